@@ -1,0 +1,105 @@
+// headroom — the problems being judged: core attention and the multi-head block.
+//
+// Core: for batch b and query head h, with key/value head g = h / (Hq / Hkv),
+//   O[b,h,i,:] = Σ_j p_ij V[b,g,j,:],  p_ij = exp(z_ij) / Σ_k exp(z_ik),
+//   z_ij = s · (Q[b,h,i,:] · K[b,g,j,:]) + bias_ij   over visible j only,
+// with s the float32 scale exactly as passed (Vaswani et al. 2017, eq. 1).
+// Block: Q = X_q W_q + b_q, K = X_kv W_k + b_k, V = X_kv W_v + b_v, head h owning
+// columns [h·Dk, (h+1)·Dk) of Q (likewise K, V); Y = concat_h(O_h) W_o + b_o.
+// Grouped-query attention is Hkv < Hq with Hq a multiple of Hkv.
+#pragma once
+
+#include <cstdint>
+#include <optional>
+#include <string>
+#include <string_view>
+#include <vector>
+
+#include "headroom/tensor.h"
+
+namespace headroom {
+
+enum class MaskKind : unsigned char {
+  none,
+  causal_top_left,      ///< key j visible to query i when j ≤ i
+  causal_bottom_right,  ///< j ≤ i + (Tk − Tq): the last query sees every key
+  key_padding,          ///< j < key_lengths[b]
+  dense,                ///< allowed[b, h|0, i, j] != 0
+  bias,                 ///< additive bias[b, h|0, i, j] added to z; −inf masks
+};
+
+/// Returns: "none", "causal_top_left", "causal_bottom_right", "key_padding", "dense", "bias".
+std::string_view mask_kind_name(MaskKind k);
+std::optional<MaskKind> parse_mask_kind(std::string_view name);
+
+struct CoreShape {
+  std::int64_t batch = 1, q_heads = 1, kv_heads = 1, q_len = 1, kv_len = 1, key_dim = 1, value_dim = 1;
+  bool operator==(const CoreShape&) const = default;
+};
+
+struct Mask {
+  MaskKind kind = MaskKind::none;
+  std::vector<std::int64_t> key_lengths;  ///< key_padding: [B], each in [0, Tk]
+  Tensor allowed;  ///< dense: [B, 1 or Hq, Tq, Tk], nonzero = visible
+  Tensor bias;     ///< bias: [B, 1 or Hq, Tq, Tk], finite or −inf
+
+  /// Returns: whether key j is visible to query i of head h in batch b.
+  bool visible(const CoreShape& s, std::int64_t b, std::int64_t h, std::int64_t i, std::int64_t j) const;
+  /// Returns: the additive bias of (b, h, i, j) (0 unless kind is bias).
+  double bias_at(std::int64_t b, std::int64_t h, std::int64_t i, std::int64_t j) const;
+};
+
+struct CoreProblem {
+  CoreShape shape;
+  float scale = 1.0f;  ///< used exactly as this float32 value
+  Mask mask;
+};
+
+/// Q [B, Hq, Tq, Dk], K [B, Hkv, Tk, Dk], V [B, Hkv, Tk, Dv].
+struct CoreInputs {
+  Tensor q, k, v;
+};
+
+struct BlockShape {
+  std::int64_t batch = 1, q_len = 1, kv_len = 1, model_dim = 1, q_heads = 1, kv_heads = 1,
+               key_dim = 1, value_dim = 1;
+  bool operator==(const BlockShape&) const = default;
+  /// Returns: the shape of the attention inside the block.
+  CoreShape core() const { return {batch, q_heads, kv_heads, q_len, kv_len, key_dim, value_dim}; }
+};
+
+struct BlockProblem {
+  BlockShape shape;
+  float scale = 1.0f;
+  Mask mask;  ///< over the attention inside the block, shapes as for CoreShape
+};
+
+/// X_q [B, Tq, Dm], X_kv [B, Tk, Dm]; W_q [Dm, Hq·Dk], W_k [Dm, Hkv·Dk],
+/// W_v [Dm, Hkv·Dv], W_o [Hq·Dv, Dm]; biases b_q [Hq·Dk], b_k [Hkv·Dk],
+/// b_v [Hkv·Dv], b_o [Dm], each empty (size 0 shape {}) when absent.
+struct BlockInputs {
+  Tensor x_q, x_kv, w_q, w_k, w_v, w_o, b_q, b_k, b_v, b_o;
+};
+
+/// One validation finding: which field, what was expected, what was found.
+struct ProblemError {
+  std::string field;
+  std::string expected;
+  std::string found;
+  /// Returns: "<field>: expected <expected>, found <found>".
+  std::string message() const;
+};
+
+/// Returns: every inconsistency of the shape, scale and mask (empty when valid):
+/// extents ≥ 1, Hq a multiple of Hkv, finite nonzero scale, mask tensors shaped
+/// as documented, key lengths in [0, Tk].
+std::vector<ProblemError> validate(const CoreProblem& p);
+/// Returns: validate(p) plus the shapes of Q, K, V against p.shape.
+std::vector<ProblemError> validate(const CoreProblem& p, const CoreInputs& in);
+std::vector<ProblemError> validate(const BlockProblem& p);
+std::vector<ProblemError> validate(const BlockProblem& p, const BlockInputs& in);
+
+/// Returns: the key/value head serving query head h.
+inline std::int64_t kv_head_of(const CoreShape& s, std::int64_t h) { return h / (s.q_heads / s.kv_heads); }
+
+}  // namespace headroom
