@@ -1,0 +1,61 @@
+// headroom — the command line: subcommands register themselves (command.h).
+#include <algorithm>
+#include <cstdio>
+#include <cstdlib>
+#include <iostream>
+#include <vector>
+
+#include "command.h"
+#include "headroom/input_error.h"
+
+namespace headroom::cli {
+namespace {
+
+struct Entry {
+  std::string name;
+  int order;
+  AddCommand add;
+};
+
+std::vector<Entry>& registry() {
+  static std::vector<Entry> entries;
+  return entries;
+}
+
+}  // namespace
+
+CommandRegistration::CommandRegistration(std::string name, int order, AddCommand add) {
+  registry().push_back({std::move(name), order, std::move(add)});
+}
+
+void exit_with(int code) {
+  std::cout.flush();
+  std::cerr.flush();
+  std::fflush(nullptr);
+  std::exit(code);
+}
+
+}  // namespace headroom::cli
+
+int main(int argc, char** argv) {
+  using namespace headroom::cli;
+  CLI::App app{"headroom — numerical qualification of softmax-attention kernels"};
+  app.require_subcommand(1);
+  app.set_version_flag("--version", "headroom 0.1.0");
+  auto entries = registry();
+  std::stable_sort(entries.begin(), entries.end(), [](const auto& a, const auto& b) { return a.order < b.order; });
+  for (auto& e : entries) e.add(app);
+  try {
+    app.parse(argc, argv);
+  } catch (const CLI::ParseError& e) {
+    int code = app.exit(e);
+    return code == 0 ? 0 : 2;
+  } catch (const headroom::InputError& e) {
+    std::cerr << "headroom: " << e.what() << '\n';
+    return 2;
+  } catch (const std::exception& e) {
+    std::cerr << "headroom: error: " << e.what() << '\n';
+    return 2;
+  }
+  return 0;
+}
