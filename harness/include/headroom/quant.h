@@ -49,13 +49,24 @@ struct QuantizedTensor {
   std::int64_t group(std::int64_t b, std::int64_t h, std::int64_t t, std::int64_t d) const;
 };
 
-/// Returns: `x` (rank 4, finite) quantised with round-to-nearest-even codes.
-/// Symmetric: s = max|x| / 127 over the group (s = 1 when the group is all
-/// zero), rounded to float32 upward so no code overflows. Asymmetric:
-/// s = (max − min) / 255, z = round(−128 − min / s), clamped to int8.
+/// Returns: `x` (rank 4, finite) quantised with codes c = z + rne(x / s), the
+/// integer nearest to x/s decided exactly (ties to even), so every element's
+/// dequantisation error |x − (c − z)·s| is at most s/2.
+/// Symmetric: s = max|x| / 127 over the group, rounded to float32 upward so
+/// that 127·s ≥ max|x| and every code lies in [−127, 127].
+/// Asymmetric: the group's range [min, max] is first widened to include 0 (so
+/// 0 is exactly code z and z fits int8 without clamping), s = (max − min) / 255
+/// rounded to float32 upward, z = −128 − rne(min / s); if an exact check finds
+/// the max off the end (both ends on ties), s grows by one float32 ulp.
+/// An all-zero (or empty) group gets s = 1, z = 0, codes 0.
+/// Throws std::invalid_argument when `x` is not rank 4, holds a NaN or an
+/// infinity, or needs a scale beyond float32's range.
 QuantizedTensor quantize(const Tensor& x, QuantScheme scheme);
 
-/// Returns: the exact dequantised values (c − z) · s.
+/// Returns: the exact dequantised values (c − z) · s (|c − z| ≤ 255 and s has
+/// 24 bits, so each is exact in double). Throws std::invalid_argument when the
+/// sizes disagree with the scheme, a scale is not positive and finite, a zero
+/// point is outside int8, or a symmetric code is −128.
 Tensor dequantize(const QuantizedTensor& q);
 
 }  // namespace headroom
