@@ -5,17 +5,15 @@
 // little-endian uint16 (1.0) or uint32 (2.0, 3.0), the header, the data.
 #include "headroom/npy.h"
 
-#include <fcntl.h>
-#include <unistd.h>
-
+#include <algorithm>
 #include <array>
-#include <atomic>
 #include <cerrno>
 #include <cstring>
 #include <fstream>
 #include <stdexcept>
 #include <system_error>
 
+#include "headroom/atomic_file.h"
 #include "headroom/input_error.h"
 #include "npy_header.h"
 
@@ -142,8 +140,6 @@ NpyArray make_array(Layout&& l) {
   return a;
 }
 
-std::atomic<unsigned> temp_counter{0};
-
 }  // namespace
 
 std::int64_t NpyArray::count() const {
@@ -236,34 +232,7 @@ std::vector<unsigned char> npy_file_bytes(const NpyArray& a, NpyVersion version)
 
 void write_npy(const std::filesystem::path& path, const NpyArray& a, NpyVersion version) {
   const std::vector<unsigned char> content = npy_file_bytes(a, version);
-  const std::string file = path.string();
-  const std::filesystem::path dir = path.has_parent_path() ? path.parent_path() : std::filesystem::path(".");
-  const std::filesystem::path temp =
-      dir / ("." + path.filename().string() + ".tmp-" + std::to_string(::getpid()) + "-" + std::to_string(temp_counter++));
-  auto fail = [&](const std::string& what) {
-    const std::string reason = std::strerror(errno);
-    ::unlink(temp.c_str());
-    throw InputError(file, "write", what + ": " + reason, "check that the folder exists and is writable");
-  };
-  const int fd = ::open(temp.c_str(), O_WRONLY | O_CREAT | O_EXCL | O_CLOEXEC, 0644);
-  if (fd < 0) fail("cannot create " + temp.string());
-  std::size_t done = 0;
-  while (done < content.size()) {
-    const ssize_t w = ::write(fd, content.data() + done, content.size() - done);
-    if (w < 0 && errno == EINTR) continue;
-    if (w <= 0) {
-      ::close(fd);
-      fail("write failed");
-    }
-    done += static_cast<std::size_t>(w);
-  }
-  // Flushed before the rename, so the new name never points at data still in flight.
-  if (::fsync(fd) != 0) {
-    ::close(fd);
-    fail("fsync failed");
-  }
-  if (::close(fd) != 0) fail("close failed");
-  if (::rename(temp.c_str(), path.c_str()) != 0) fail("rename failed");
+  write_file_atomically(path, std::string_view(reinterpret_cast<const char*>(content.data()), content.size()));
 }
 
 }  // namespace headroom
