@@ -1,0 +1,97 @@
+// headroom — the result record of a run: one entry per case, versioned JSON.
+//
+// This is what `qualify`, `hunt` and `replay` write, what `merge` joins and
+// `compare` diffs, and what every report is drawn from. The schema is
+// documented in docs/result-schema.md; `schema` is bumped on any change that an
+// older reader would misread. Timings are kept out of the per-case records so a
+// resumed or sharded run yields a record equal to an uninterrupted one.
+#pragma once
+
+#include <cstdint>
+#include <filesystem>
+#include <map>
+#include <string>
+#include <vector>
+
+#include <nlohmann/json.hpp>
+
+namespace headroom {
+
+inline constexpr int kRecordSchema = 1;
+
+/// The error figures of one case (NaN where not applicable, e.g. no lse).
+struct CaseFigures {
+  std::int64_t elements = 0;        ///< output elements scored (fully masked rows excluded)
+  double max_ulp = 0;               ///< in the output format
+  double max_scaled_error = 0;      ///< |o − o*| / (u_F · Σ p_j |v_j|)
+  double max_abs_error = 0;
+  double rmse = 0;
+  double relative_rmse = 0;         ///< RMSE / RMS(o*)
+  double relative_l1 = 0;           ///< Σ|o − o*| / Σ|o*|
+  double cosine = 1;                ///< cosine similarity of o and o*
+  double lse_error = 0;             ///< max |lse − lse*|, NaN when the kernel returns none
+  double ratio_to_plain = 0;        ///< max scaled error / that of the textbook kernel of the format; NaN if n/a
+  double input_error = 0;           ///< max scaled error of reference(received) vs reference(source)
+  double kernel_error = 0;          ///< max scaled error of kernel vs reference(received)  (= max_scaled_error)
+  std::string worst_index;          ///< "b,h,i,d" of the worst scaled error
+  double worst_expected = 0;        ///< o* there
+  double worst_obtained = 0;        ///< o there
+};
+
+struct CaseRecord {
+  std::string name;         ///< unique within a run; deterministic
+  std::string family;
+  std::uint64_t seed = 0;
+  int size = 0;
+  std::string level;        ///< "core" | "block"
+  std::string shape;        ///< "B,Hq,Hkv,Tq,Tk,Dk,Dv" (block: "B,Tq,Tk,Dm,Hq,Hkv,Dk,Dv")
+  std::int64_t kv_len = 0;  ///< for plots against sequence length
+  double logit_scale = 0;   ///< max |z| over visible scores, for plots against logit scale
+  std::string mask;         ///< mask kind name
+  std::string format;       ///< kernel input format name
+  CaseFigures figures;
+  std::map<std::string, int> faults;      ///< class name → count (absent = 0)
+  std::vector<std::string> fault_details; ///< one line each
+  bool within_budget = true;
+  std::vector<std::string> reasons;       ///< why not within budget
+  std::string replay;                     ///< the one command that reproduces this case
+  std::vector<double> ulp_histogram;      ///< counts of elements per ULP bucket (see kUlpBuckets)
+};
+
+/// Upper edges of the ULP histogram buckets: 0, ≤0.5, ≤1, ≤2, ≤4, ... ≤2^20, more.
+std::vector<double> ulp_bucket_edges();
+
+struct RunRecord {
+  int schema = kRecordSchema;
+  std::string tool = "headroom 0.1.0";
+  std::string command;        ///< qualify | hunt | replay | merge
+  std::string kernel;
+  std::string kernel_description;
+  std::string input_format, output_format;
+  std::string suite;          ///< suite name, or "hunt", or "replay"
+  std::string budget;         ///< budget file path or "defaults"
+  std::string shard = "1/1";  ///< "i/n" (1-based); merged records say "merged"
+  std::vector<CaseRecord> cases;
+
+  /// Returns: "pass" when every case is within budget, else "fail".
+  std::string verdict() const;
+  /// Returns: fault counts summed over all cases, by class name.
+  std::map<std::string, int> fault_totals() const;
+};
+
+nlohmann::json to_json(const CaseRecord& c);
+nlohmann::json to_json(const RunRecord& r);
+/// Returns: the case record in `j`. Throws InputError(file, place, ...) on any
+/// missing field, wrong type or unknown schema.
+CaseRecord case_record_from_json(const nlohmann::json& j, const std::string& file, const std::string& place);
+RunRecord run_record_from_json(const nlohmann::json& j, const std::string& file);
+
+/// Returns: the record in a JSON file. Throws InputError naming the file, the
+/// line and column of a syntax error, or the field of a schema error.
+RunRecord read_run_record(const std::filesystem::path& path);
+/// Writes the record atomically (temporary file in the same folder, then rename).
+/// Throws InputError when the folder is not writable or the disk is full; the
+/// previous file is then left intact.
+void write_run_record(const RunRecord& r, const std::filesystem::path& path);
+
+}  // namespace headroom
