@@ -1,0 +1,127 @@
+// Tests of the run record (record.h) and the journal (journal.h).
+#include <gtest/gtest.h>
+
+#include <cmath>
+#include <filesystem>
+#include <fstream>
+
+#include "headroom/input_error.h"
+#include "headroom/journal.h"
+#include "headroom/record.h"
+
+namespace headroom {
+namespace {
+
+namespace fs = std::filesystem;
+
+fs::path fresh_dir(const std::string& name) {
+  fs::path d = fs::temp_directory_path() / ("headroom_record_test_" + name + "_" + std::to_string(::getpid()));
+  fs::remove_all(d);
+  fs::create_directories(d);
+  return d;
+}
+
+CaseRecord sample_case(const std::string& name, bool within) {
+  CaseRecord c;
+  c.name = name;
+  c.family = "gaussian";
+  c.seed = 18446744073709551615ull;  // the largest seed must survive JSON
+  c.size = 10;
+  c.level = "core";
+  c.shape = "1,2,1,3,5,4,4";
+  c.kv_len = 5;
+  c.logit_scale = 3.5;
+  c.mask = "causal_bottom_right";
+  c.format = "binary16";
+  c.figures.max_ulp = 2;
+  c.figures.lse_error = std::nan("");
+  c.figures.ratio_to_plain = INFINITY;
+  c.faults["mask_leak"] = 1;
+  c.fault_details = {"mask_leak: key 4 of row 0 leaks"};
+  c.within_budget = within;
+  c.reasons = within ? std::vector<std::string>{} : std::vector<std::string>{"max_ulp 2 > 1"};
+  c.replay = "headroom replay --kernel k corpus/x";
+  c.ulp_histogram = {1, 2, 3};
+  return c;
+}
+
+TEST(RunRecord, RoundTripsThroughJsonWithNonFiniteFigures) {
+  RunRecord r;
+  r.kernel = "f16_f32acc";
+  r.cases = {sample_case("a", true), sample_case("b", false)};
+  const auto dir = fresh_dir("roundtrip");
+  write_run_record(r, dir / "r.json");
+  const RunRecord back = read_run_record(dir / "r.json");
+  ASSERT_EQ(back.cases.size(), 2u);
+  EXPECT_EQ(back.cases[0].seed, 18446744073709551615ull);
+  EXPECT_TRUE(std::isnan(back.cases[0].figures.lse_error));
+  EXPECT_TRUE(std::isinf(back.cases[0].figures.ratio_to_plain));
+  EXPECT_EQ(back.cases[1].reasons, r.cases[1].reasons);
+  EXPECT_EQ(to_json(back), to_json(r));
+  EXPECT_EQ(back.verdict(), "fail");
+  EXPECT_EQ(back.fault_totals().at("mask_leak"), 2);
+}
+
+TEST(RunRecord, SyntaxErrorNamesLineAndColumn) {
+  const auto dir = fresh_dir("syntax");
+  std::ofstream(dir / "bad.json") << "{\n  \"schema\": 1,\n  \"tool\": oops\n}\n";
+  try {
+    read_run_record(dir / "bad.json");
+    FAIL() << "accepted invalid JSON";
+  } catch (const InputError& e) {
+    EXPECT_NE(std::string(e.what()).find("bad.json"), std::string::npos);
+    EXPECT_NE(std::string(e.what()).find("line 3"), std::string::npos) << e.what();
+  }
+}
+
+TEST(RunRecord, MissingFieldIsNamed) {
+  auto j = to_json(RunRecord{});
+  j.erase("kernel");
+  try {
+    run_record_from_json(j, "r.json");
+    FAIL() << "accepted a record without a kernel";
+  } catch (const InputError& e) {
+    EXPECT_NE(std::string(e.what()).find("\"kernel\""), std::string::npos) << e.what();
+  }
+  auto k = to_json(RunRecord{});
+  k["schema"] = 99;
+  EXPECT_THROW(run_record_from_json(k, "r.json"), InputError);
+}
+
+TEST(Journal, ResumeKeepsFinishedCasesAndDropsATornLastLine) {
+  const auto dir = fresh_dir("journal");
+  const auto path = dir / "run.journal";
+  {
+    Journal j(path, "qualify k quick 1/1", false);
+    j.append(sample_case("a", true));
+    j.append(sample_case("b", false));
+  }
+  { std::ofstream(path, std::ios::app) << "{\"name\": \"c\", \"fam"; }  // a kill mid-write
+  Journal again(path, "qualify k quick 1/1", true);
+  EXPECT_EQ(again.size(), 2u);
+  ASSERT_NE(again.find("b"), nullptr);
+  EXPECT_FALSE(again.find("b")->within_budget);
+  EXPECT_EQ(again.find("c"), nullptr);
+  again.append(sample_case("c", true));
+  Journal third(path, "qualify k quick 1/1", true);
+  EXPECT_EQ(third.size(), 3u);
+}
+
+TEST(Journal, RefusesAnotherRunsJournal) {
+  const auto dir = fresh_dir("identity");
+  { Journal j(dir / "run.journal", "qualify k quick 1/1", false); }
+  EXPECT_THROW(Journal(dir / "run.journal", "qualify other quick 1/1", true), InputError);
+}
+
+TEST(Journal, WithoutResumeStartsAfresh) {
+  const auto dir = fresh_dir("afresh");
+  {
+    Journal j(dir / "run.journal", "id", false);
+    j.append(sample_case("a", true));
+  }
+  Journal j(dir / "run.journal", "id", false);
+  EXPECT_EQ(j.size(), 0u);
+}
+
+}  // namespace
+}  // namespace headroom
