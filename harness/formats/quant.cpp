@@ -30,8 +30,9 @@ constexpr int kScaleGrowthSteps = 64;
 /// Returns: the integer nearest to x/s, ties to even, decided exactly.
 /// Preconditions: s > 0 finite, |x/s| < 2^20 (so (2c ± 1)·s/2 is exact: ≤ 22 + 24 bits).
 long nearest_code(double x, double s) {
-  // The rounded quotient is within 2^-32 of x/s here, so its nearest integer is
-  // off by at most one; the exact midpoint comparisons then correct it.
+  // In every use |x/s| ≤ 2^9, so the rounded quotient is within 2^-44 of x/s
+  // and its nearest integer (lround breaks ties away from zero) is off by at
+  // most one; the exact midpoint comparisons then correct it.
   long c = std::lround(x / s);
   const double upper_mid = static_cast<double>(2 * c + 1) * s * 0.5;  // (c + ½)·s, exact
   const double lower_mid = static_cast<double>(2 * c - 1) * s * 0.5;  // (c − ½)·s, exact
