@@ -30,5 +30,5 @@ function(headroom_add_test source)
   target_link_libraries(${name} PRIVATE ${ARG_LIBS} GTest::gtest GTest::gtest_main rapidcheck rapidcheck_gtest)
   target_compile_definitions(${name} PRIVATE
     HEADROOM_SOURCE_DIR="${PROJECT_SOURCE_DIR}" HEADROOM_BINARY_DIR="${PROJECT_BINARY_DIR}")
-  gtest_discover_tests(${name} DISCOVERY_TIMEOUT 60 PROPERTIES TIMEOUT 600)
+  gtest_discover_tests(${name} TEST_PREFIX "${name}." DISCOVERY_TIMEOUT 60 PROPERTIES TIMEOUT 600)
 endfunction()
