@@ -147,13 +147,6 @@ std::string line_column(const std::string& text, std::size_t byte) {
 
 }  // namespace
 
-std::vector<double> ulp_bucket_edges() {
-  std::vector<double> edges{0.0, 0.5};
-  for (int e = 0; e <= 20; ++e) edges.push_back(std::ldexp(1.0, e));
-  edges.push_back(std::numeric_limits<double>::infinity());
-  return edges;
-}
-
 std::string RunRecord::verdict() const {
   for (const auto& c : cases)
     if (!c.within_budget) return "fail";

@@ -55,11 +55,8 @@ struct CaseRecord {
   bool within_budget = true;
   std::vector<std::string> reasons;       ///< why not within budget
   std::string replay;                     ///< the one command that reproduces this case
-  std::vector<double> ulp_histogram;      ///< counts of elements per ULP bucket (see kUlpBuckets)
+  std::vector<double> ulp_histogram;      ///< elements per bucket of ulp_histogram_edges() (scores.h)
 };
-
-/// Upper edges of the ULP histogram buckets: 0, ≤0.5, ≤1, ≤2, ≤4, ... ≤2^20, more.
-std::vector<double> ulp_bucket_edges();
 
 struct RunRecord {
   int schema = kRecordSchema;
