@@ -1,0 +1,317 @@
+// headroom — internal: manifest.json of a case folder (see manifest.h, case_folder.h).
+#include "manifest.h"
+
+#include <algorithm>
+#include <cmath>
+#include <cstdio>
+#include <cstdlib>
+#include <limits>
+#include <nlohmann/json.hpp>
+#include <set>
+#include <vector>
+
+#include "headroom/case_folder.h"
+#include "headroom/input_error.h"
+
+namespace headroom::case_detail {
+namespace {
+
+using nlohmann::json;
+
+constexpr const char* kSchemaFix = "see docs/case-format.md for the manifest's fields";
+
+std::string float_text(double v, const char* fmt) {
+  char buf[64];
+  std::snprintf(buf, sizeof buf, fmt, v);
+  return buf;
+}
+
+// Reads the fields of the parsed manifest, naming each in errors by its dotted path.
+class Reader {
+ public:
+  explicit Reader(const std::string& file) : file_(file) {}
+
+  [[noreturn]] void fail(const std::string& field, const std::string& problem, const std::string& fix = kSchemaFix) const {
+    throw InputError(file_, "field \"" + field + "\"", problem, fix);
+  }
+
+  static std::string join(const std::string& path, const std::string& key) { return path.empty() ? key : path + "." + key; }
+
+  // The object must have no keys beyond `known`.
+  void only_keys(const json& obj, const std::vector<std::string>& known, const std::string& path) const {
+    for (const auto& [key, value] : obj.items()) {
+      if (std::find(known.begin(), known.end(), key) == known.end()) {
+        std::string list;
+        for (const auto& k : known) list += (list.empty() ? "" : ", ") + k;
+        fail(join(path, key), "unknown key \"" + key + "\"" + (path.empty() ? "" : " in \"" + path + "\"") + " (known: " + list + ")",
+             "remove it or correct its spelling");
+      }
+    }
+  }
+
+  const json& member(const json& obj, const std::string& key, const std::string& path) const {
+    auto it = obj.find(key);
+    if (it == obj.end()) fail(join(path, key), "missing field \"" + key + "\"", "add it; " + std::string(kSchemaFix));
+    return *it;
+  }
+
+  const json& object_at(const json& obj, const std::string& key, const std::string& path) const {
+    const json& v = member(obj, key, path);
+    if (!v.is_object()) fail(join(path, key), type_problem("an object", v));
+    return v;
+  }
+
+  std::string string_at(const json& obj, const std::string& key, const std::string& path) const {
+    const json& v = member(obj, key, path);
+    if (!v.is_string()) fail(join(path, key), type_problem("a string", v));
+    return v.get<std::string>();
+  }
+
+  std::int64_t int_of(const json& v, const std::string& field) const {
+    // 2.0 is a float in JSON: an extent written as one is almost surely computed, not meant.
+    if (!v.is_number_integer()) fail(field, type_problem("an integer", v));
+    if (v.is_number_unsigned() && v.get<std::uint64_t>() > static_cast<std::uint64_t>(std::numeric_limits<std::int64_t>::max()))
+      fail(field, "integer " + v.dump() + " is too large", "use a value below 2^63");
+    return v.get<std::int64_t>();
+  }
+
+  std::int64_t int_at(const json& obj, const std::string& key, const std::string& path) const {
+    return int_of(member(obj, key, path), join(path, key));
+  }
+
+  std::uint64_t uint_at(const json& obj, const std::string& key, const std::string& path) const {
+    const json& v = member(obj, key, path);
+    if (!v.is_number_integer() || (!v.is_number_unsigned() && v.get<std::int64_t>() < 0))
+      fail(join(path, key), type_problem("an integer in [0, 2^64)", v));
+    return v.get<std::uint64_t>();
+  }
+
+  static std::string type_problem(const std::string& want, const json& found) {
+    std::string shown = found.dump();
+    if (shown.size() > 40) shown = shown.substr(0, 37) + "...";
+    return "expected " + want + ", found " + std::string(found.type_name()) + " " + shown;
+  }
+
+ private:
+  const std::string& file_;
+};
+
+// Parses the JSON, refusing syntax errors (with line and column) and repeated
+// keys: nlohmann::json keeps the last of repeated keys silently, so the parser
+// callback tracks each object's keys by path.
+json parse_json(std::string_view text, const std::string& file) {
+  struct Frame {
+    std::set<std::string> keys;
+    std::string current;
+  };
+  std::vector<Frame> stack;
+  std::string repeated;
+  auto callback = [&](int, json::parse_event_t ev, json& parsed) {
+    switch (ev) {
+      case json::parse_event_t::object_start:
+      case json::parse_event_t::array_start:
+        stack.push_back({});
+        break;
+      case json::parse_event_t::object_end:
+      case json::parse_event_t::array_end:
+        if (!stack.empty()) stack.pop_back();
+        break;
+      case json::parse_event_t::key:
+        if (!stack.empty()) {
+          Frame& f = stack.back();
+          f.current = parsed.get<std::string>();
+          if (!f.keys.insert(f.current).second && repeated.empty()) {
+            for (const auto& fr : stack) repeated += (repeated.empty() || fr.current.empty() ? "" : ".") + fr.current;
+          }
+        }
+        break;
+      default:
+        break;
+    }
+    return true;
+  };
+  json j;
+  try {
+    j = json::parse(text.begin(), text.end(), callback);
+  } catch (const json::parse_error& e) {
+    // what() reads "[json.exception.parse_error.101] parse error at line 1, column 5: <reason>".
+    std::string reason = e.what();
+    const auto at = reason.find(": ", reason.find("parse error"));
+    if (at != std::string::npos) reason = reason.substr(at + 2);
+    const std::size_t offset = e.byte == 0 ? 0 : e.byte - 1;
+    throw InputError(file, line_column(text, offset), "not valid JSON: " + reason, "correct the JSON syntax at that place");
+  }
+  if (!repeated.empty())
+    throw InputError(file, "field \"" + repeated + "\"", "the key appears more than once", "keep one of them");
+  if (!j.is_object()) throw InputError(file, "line 1, column 1", "the manifest is not a JSON object", kSchemaFix);
+  return j;
+}
+
+float read_scale(const json& root, const Reader& r) {
+  const json& v = r.member(root, "scale", "");
+  if (!v.is_number()) r.fail("scale", Reader::type_problem("a number", v));
+  const double d = v.get<double>();
+  const auto f = static_cast<float>(d);
+  // Accepted: the float32's exact value, or the float32 printed with 9
+  // significant digits (9 digits identify a float32 uniquely: IEEE 754-2019 §5.12.2).
+  const bool exact = static_cast<double>(f) == d || std::strtod(float_text(f, "%.9g").c_str(), nullptr) == d;
+  if (!exact || !std::isfinite(f))
+    r.fail("scale", "scale " + float_text(d, "%.17g") + " is not a float32 value (nearest float32: " + float_text(f, "%.9g") + " = " +
+                        float_text(f, "%a") + ")",
+           "write the float32 value with 9 significant digits, or give \"scale_hex\"");
+  auto it = root.find("scale_hex");
+  if (it == root.end()) return f;
+  if (!it->is_string()) r.fail("scale_hex", Reader::type_problem("a hex float string such as \"0x1p-3\"", *it));
+  const std::string hex = it->get<std::string>();
+  char* end = nullptr;
+  const double h = std::strtod(hex.c_str(), &end);
+  const bool is_hex = hex.find("0x") != std::string::npos || hex.find("0X") != std::string::npos;
+  if (hex.empty() || end != hex.c_str() + hex.size() || !is_hex)
+    r.fail("scale_hex", "\"" + hex + "\" is not a hex float", "write it as C's printf(\"%a\") does, e.g. \"0x1.6a09e6p-4\"");
+  const auto hf = static_cast<float>(h);
+  if (static_cast<double>(hf) != h)
+    r.fail("scale_hex", hex + " is not a float32 value (it has more than 24 significant bits or is out of range)",
+           "round it to float32: " + float_text(hf, "%a"));
+  if (hf != f)
+    r.fail("scale", "scale " + float_text(d, "%.9g") + " and scale_hex " + hex + " (" + float_text(hf, "%.9g") +
+                        ") are different float32 values",
+           "make them agree; scale_hex is the exact one");
+  return hf;
+}
+
+}  // namespace
+
+bool valid_case_name(std::string_view name) {
+  if (name.empty() || name.size() > 200 || name == "." || name == "..") return false;
+  return std::all_of(name.begin(), name.end(), [](char c) {
+    return (c >= 'a' && c <= 'z') || (c >= 'A' && c <= 'Z') || (c >= '0' && c <= '9') || c == '_' || c == '.' || c == '+' || c == '-';
+  });
+}
+
+std::string line_column(std::string_view text, std::size_t offset) {
+  offset = std::min(offset, text.size());
+  std::size_t line = 1, line_start = 0;
+  for (std::size_t i = 0; i < offset; ++i)
+    if (text[i] == '\n') {
+      ++line;
+      line_start = i + 1;
+    }
+  return "line " + std::to_string(line) + ", column " + std::to_string(offset - line_start + 1);
+}
+
+Case parse_manifest(std::string_view text, const std::string& file) {
+  const json root = parse_json(text, file);
+  const Reader r(file);
+  r.only_keys(root, {"headroom_case", "name", "level", "shape", "scale", "scale_hex", "source_format", "mask", "provenance"}, "");
+
+  const std::int64_t version = r.int_at(root, "headroom_case", "");
+  if (version != kCaseFormatVersion)
+    r.fail("headroom_case", "case format version " + std::to_string(version) + " (this headroom reads version " +
+                                std::to_string(kCaseFormatVersion) + ")",
+           "convert the case with the headroom that wrote it, or upgrade");
+
+  Case c;
+  c.name = r.string_at(root, "name", "");
+  if (!valid_case_name(c.name))
+    r.fail("name", "\"" + c.name + "\" is not a valid case name", "use 1 to 200 characters from A-Z a-z 0-9 _ . + -");
+
+  const std::string level = r.string_at(root, "level", "");
+  if (level == "core") {
+    c.level = Level::core;
+  } else if (level == "block") {
+    c.level = Level::block;
+  } else {
+    r.fail("level", "unknown level \"" + level + "\"", "use \"core\" or \"block\"");
+  }
+
+  const json& shape = r.object_at(root, "shape", "");
+  std::vector<std::string> shape_keys{"batch", "q_heads", "kv_heads", "q_len", "kv_len", "key_dim", "value_dim"};
+  if (c.level == Level::block) shape_keys.push_back("model_dim");
+  r.only_keys(shape, shape_keys, "shape");
+  auto extent = [&](const char* key) { return r.int_at(shape, key, "shape"); };
+  CoreShape cs{extent("batch"), extent("q_heads"), extent("kv_heads"), extent("q_len"),
+               extent("kv_len"), extent("key_dim"), extent("value_dim")};
+
+  const float scale = read_scale(root, r);
+
+  const std::string fmt = r.string_at(root, "source_format", "");
+  const auto format = parse_format(fmt);
+  if (!format || format_name(*format) != fmt || *format == Format::int8)
+    r.fail("source_format", "unknown source format \"" + fmt + "\"", "use \"float32\", \"float64\", \"binary16\" or \"bfloat16\"");
+  c.source_format = *format;
+
+  const json& mask_j = r.object_at(root, "mask", "");
+  r.only_keys(mask_j, {"kind", "key_lengths"}, "mask");
+  Mask mask;
+  const std::string kind = r.string_at(mask_j, "kind", "mask");
+  const auto mk = parse_mask_kind(kind);
+  if (!mk)
+    r.fail("mask.kind", "unknown mask kind \"" + kind + "\"",
+           "use none, causal_top_left, causal_bottom_right, key_padding, dense or bias");
+  mask.kind = *mk;
+  if (mask.kind == MaskKind::key_padding) {
+    const json& lengths = r.member(mask_j, "key_lengths", "mask");
+    if (!lengths.is_array()) r.fail("mask.key_lengths", Reader::type_problem("an array of integers", lengths));
+    for (std::size_t b = 0; b < lengths.size(); ++b)
+      mask.key_lengths.push_back(r.int_of(lengths[b], "mask.key_lengths[" + std::to_string(b) + "]"));
+  } else if (mask_j.contains("key_lengths")) {
+    r.fail("mask.key_lengths", "key_lengths given for mask kind " + kind, "remove it, or set mask.kind to key_padding");
+  }
+
+  const json& prov = r.object_at(root, "provenance", "");
+  r.only_keys(prov, {"family", "seed", "command"}, "provenance");
+  c.provenance.family = r.string_at(prov, "family", "provenance");
+  c.provenance.seed = r.uint_at(prov, "seed", "provenance");
+  c.provenance.command = r.string_at(prov, "command", "provenance");
+
+  if (c.level == Level::core) {
+    c.core.shape = cs;
+    c.core.scale = scale;
+    c.core.mask = std::move(mask);
+  } else {
+    c.block.shape = BlockShape{cs.batch, cs.q_len, cs.kv_len, extent("model_dim"), cs.q_heads, cs.kv_heads, cs.key_dim, cs.value_dim};
+    c.block.scale = scale;
+    c.block.mask = std::move(mask);
+  }
+  return c;
+}
+
+std::string format_manifest(const Case& c) {
+  using ordered = nlohmann::ordered_json;
+  const bool core = c.level == Level::core;
+  const CoreShape s = core ? c.core.shape : c.block.shape.core();
+  const float scale = core ? c.core.scale : c.block.scale;
+  const Mask& mask = core ? c.core.mask : c.block.mask;
+
+  ordered j;
+  j["headroom_case"] = kCaseFormatVersion;
+  j["name"] = c.name;
+  j["level"] = core ? "core" : "block";
+  ordered shape;
+  shape["batch"] = s.batch;
+  shape["q_heads"] = s.q_heads;
+  shape["kv_heads"] = s.kv_heads;
+  shape["q_len"] = s.q_len;
+  shape["kv_len"] = s.kv_len;
+  shape["key_dim"] = s.key_dim;
+  shape["value_dim"] = s.value_dim;
+  if (!core) shape["model_dim"] = c.block.shape.model_dim;
+  j["shape"] = shape;
+  // The JSON number is the double nearest the 9-digit decimal, which the
+  // reader maps back to this float32; the hex float carries it exactly.
+  j["scale"] = std::strtod(float_text(scale, "%.9g").c_str(), nullptr);
+  j["scale_hex"] = float_text(scale, "%a");
+  j["source_format"] = std::string(format_name(c.source_format));
+  ordered m;
+  m["kind"] = std::string(mask_kind_name(mask.kind));
+  if (mask.kind == MaskKind::key_padding) m["key_lengths"] = mask.key_lengths;
+  j["mask"] = m;
+  ordered prov;
+  prov["family"] = c.provenance.family;
+  prov["seed"] = c.provenance.seed;
+  prov["command"] = c.provenance.command;
+  j["provenance"] = prov;
+  return j.dump(2) + "\n";
+}
+
+}  // namespace headroom::case_detail
