@@ -1,0 +1,52 @@
+// headroom — judging one case: run the kernel, compute the exact answer, score, detect faults.
+//
+// The per-case pipeline of DESIGN.md, in one place:
+//   receive (round/quantise the source values to the kernel's input format)
+//   → run (isolated) → certified reference of what the kernel received
+//   → scores (scores.h) → faults (faults.h: non_finite, convention, mask_leak,
+//     nondeterministic, isolation classes) → the reference of the ORIGINAL
+//   source values (the input-quantisation split) → the ratio to the bundled
+//   textbook kernel of the same format on the same case.
+// The budget verdict is applied afterwards (qualify.h), so a record can be
+// re-judged against another budget without re-running anything.
+#pragma once
+
+#include <optional>
+#include <string>
+
+#include "headroom/attach.h"
+#include "headroom/case.h"
+#include "headroom/faults.h"
+#include "headroom/record.h"
+#include "headroom/reference.h"
+#include "headroom/scores.h"
+
+namespace headroom {
+
+struct JudgeOptions {
+  DetectorOptions detect;          ///< run options, determinism runs, leak probing, reference options
+  AttachedKernel* plain = nullptr; ///< the textbook kernel of the same formats, for ratio_to_plain; may be null
+  bool quantisation_split = true;  ///< also compute the reference on the source values when they differ
+};
+
+/// What one case came to. `record.within_budget` is left true: qualify.h applies the budget.
+struct Judgement {
+  CaseRecord record;
+  std::optional<CaseScore> score;  ///< absent when the kernel did not run to completion
+  CaseFaults faults;
+  std::optional<std::string> unfit;  ///< set when the case does not fit the kernel's declaration: not run
+};
+
+/// Returns: the judgement of kernel `k` on case `c`. `replay` is the command
+/// that reproduces the case (recorded as is). Never throws for kernel
+/// misbehaviour; throws InputError for a case inconsistent in itself.
+Judgement judge_case(AttachedKernel& k, const Case& c, const JudgeOptions& opt, const std::string& replay);
+
+/// Returns: "B,Hq,Hkv,Tq,Tk,Dk,Dv" (core) or "B,Tq,Tk,Dm,Hq,Hkv,Dk,Dv" (block).
+std::string shape_text(const Case& c);
+
+/// Returns: the largest |z| = |s·q·k + bias| over visible (query, key) pairs of
+/// the case's source values (double arithmetic: a plotting coordinate, not a score).
+double logit_scale(const Case& c);
+
+}  // namespace headroom
