@@ -195,7 +195,8 @@ json to_json(const RunRecord& r) {
           {"shard", r.shard},
           {"verdict", r.verdict()},
           {"faults", r.fault_totals()},
-          {"cases", cases}};
+          {"cases", cases},
+          {"skipped", r.skipped}};
 }
 
 CaseRecord case_record_from_json(const json& j, const std::string& file, const std::string& place) {
@@ -247,6 +248,7 @@ RunRecord run_record_from_json(const json& j, const std::string& file) {
   if (!cases.is_array()) r.fail("cases", "is not an array", "write an array of case records");
   for (std::size_t i = 0; i < cases.size(); ++i)
     rec.cases.push_back(case_record_from_json(cases[i], file, "cases[" + std::to_string(i) + "]"));
+  rec.skipped = r.strings("skipped");
   return rec;
 }
 

@@ -69,6 +69,7 @@ struct RunRecord {
   std::string budget;         ///< budget file path or "defaults"
   std::string shard = "1/1";  ///< "i/n" (1-based); merged records say "merged"
   std::vector<CaseRecord> cases;
+  std::vector<std::string> skipped;  ///< "name: reason" for cases that do not fit the kernel's declaration
 
   /// Returns: "pass" when every case is within budget, else "fail".
   std::string verdict() const;
