@@ -1,0 +1,62 @@
+// headroom — running a list of cases against a kernel: shards, journal, budget, record.
+//
+// The loop behind `qualify`, `hunt` and `replay`: take this shard's slice of
+// the cases, skip those the journal already holds, judge the rest (judge.h),
+// apply the budget, append each finished case to the journal, and return the
+// run record with cases sorted by name (so shards merge to the unsharded
+// record). Failing cases can be saved as case folders, and then their replay
+// command names the saved folder.
+#pragma once
+
+#include <cstdint>
+#include <filesystem>
+#include <functional>
+#include <string>
+#include <vector>
+
+#include "headroom/case.h"
+#include "headroom/journal.h"
+#include "headroom/judge.h"
+#include "headroom/record.h"
+
+namespace headroom {
+
+/// A deterministic slice: shard `index` (0-based) of `count`.
+struct Shard {
+  int index = 0;
+  int count = 1;
+  /// Returns: "i/n" 1-based, as the user writes it.
+  std::string text() const;
+};
+
+/// Returns: the shard written "i/n" (1 ≤ i ≤ n). Throws InputError(place "--shard") otherwise.
+Shard parse_shard(const std::string& text);
+
+/// Returns: whether case `name` belongs to shard `s`: a stable hash of the name
+/// modulo the count, so every case lands in exactly one shard whatever the order.
+bool in_shard(const std::string& name, const Shard& s);
+
+/// One case to run and the command that recreates it from nothing.
+struct PlannedCase {
+  Case c;
+  std::string recreate;  ///< e.g. "headroom case make ... --out DIR" with DIR standing for the folder
+};
+
+struct RunnerOptions {
+  JudgeOptions judge;
+  Shard shard;
+  Journal* journal = nullptr;             ///< finished cases are appended here; cases found there are not re-run
+  std::filesystem::path save_failures;    ///< folder for failing cases (empty: not saved)
+  std::string kernel_spec;                ///< the kernel as the user named it, for replay commands
+  /// Applies the budget: sets within_budget and reasons. Called once per judged case.
+  std::function<void(CaseRecord&, const Judgement&, const Case&)> apply_budget;
+  /// Called after each case (done counts cases of this shard finished so far, journal included).
+  std::function<void(std::size_t done, std::size_t total, const CaseRecord&)> progress;
+};
+
+/// Returns: the record of running `cases` (this shard's slice) on kernel `k`.
+/// Cases not fitting the kernel's declaration are listed in `skipped`.
+RunRecord run_cases(AttachedKernel& k, const std::vector<PlannedCase>& cases, const RunnerOptions& opt,
+                    std::vector<std::string>* skipped = nullptr);
+
+}  // namespace headroom

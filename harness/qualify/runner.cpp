@@ -1,0 +1,110 @@
+// headroom — the case loop behind qualify, hunt and replay (qualify.h).
+#include <algorithm>
+#include <cctype>
+#include <cstdlib>
+
+#include "headroom/case_folder.h"
+#include "headroom/input_error.h"
+#include "headroom/qualify.h"
+
+namespace headroom {
+namespace {
+
+// FNV-1a, 64-bit: stable across platforms and releases, unlike std::hash.
+std::uint64_t stable_hash(const std::string& s) {
+  std::uint64_t h = 1469598103934665603ull;
+  for (unsigned char ch : s) {
+    h ^= ch;
+    h *= 1099511628211ull;
+  }
+  return h;
+}
+
+// Folder names from case names: keep [A-Za-z0-9._-], replace the rest.
+std::string folder_name(const std::string& name) {
+  std::string out = name;
+  for (char& ch : out)
+    if (!(std::isalnum(static_cast<unsigned char>(ch)) || ch == '.' || ch == '_' || ch == '-')) ch = '_';
+  return out.empty() ? "case" : out;
+}
+
+std::string quote(const std::string& s) {
+  if (s.find_first_of(" \t'\"$\\;&|<>()*?") == std::string::npos) return s;
+  std::string out = "'";
+  for (char ch : s) out += ch == '\'' ? std::string("'\\''") : std::string(1, ch);
+  return out + "'";
+}
+
+}  // namespace
+
+std::string Shard::text() const { return std::to_string(index + 1) + "/" + std::to_string(count); }
+
+Shard parse_shard(const std::string& text) {
+  const auto slash = text.find('/');
+  auto bad = [&] {
+    return InputError("command line", "--shard " + text, "is not i/n with 1 ≤ i ≤ n",
+                      "write e.g. --shard 2/3 for the second of three shards");
+  };
+  if (slash == std::string::npos) throw bad();
+  char* end = nullptr;
+  const long i = std::strtol(text.c_str(), &end, 10);
+  if (end != text.c_str() + slash) throw bad();
+  const long n = std::strtol(text.c_str() + slash + 1, &end, 10);
+  if (*end != '\0' || n < 1 || i < 1 || i > n || n > 100000) throw bad();
+  return {static_cast<int>(i - 1), static_cast<int>(n)};
+}
+
+bool in_shard(const std::string& name, const Shard& s) {
+  return s.count <= 1 || stable_hash(name) % static_cast<std::uint64_t>(s.count) == static_cast<std::uint64_t>(s.index);
+}
+
+RunRecord run_cases(AttachedKernel& k, const std::vector<PlannedCase>& cases, const RunnerOptions& opt,
+                    std::vector<std::string>* skipped) {
+  const KernelDeclaration& d = k.declaration();
+  RunRecord record;
+  record.kernel = d.name;
+  record.kernel_description = d.description;
+  record.input_format = std::string(format_name(d.input_format));
+  record.output_format = std::string(format_name(d.output_format));
+  record.shard = opt.shard.text();
+
+  std::vector<const PlannedCase*> mine;
+  for (const auto& p : cases)
+    if (in_shard(p.c.name, opt.shard)) mine.push_back(&p);
+  std::sort(mine.begin(), mine.end(), [](const PlannedCase* a, const PlannedCase* b) { return a->c.name < b->c.name; });
+
+  std::size_t done = 0;
+  for (const PlannedCase* p : mine) {
+    if (opt.journal) {
+      if (const CaseRecord* seen = opt.journal->find(p->c.name)) {
+        record.cases.push_back(*seen);
+        if (opt.progress) opt.progress(++done, mine.size(), *seen);
+        continue;
+      }
+    }
+    const std::string spec = quote(opt.kernel_spec.empty() ? d.name : opt.kernel_spec);
+    const std::string dir = "case-" + folder_name(p->c.name);
+    std::string replay = p->recreate.empty() ? "headroom replay --kernel " + spec + " " + dir
+                                             : p->recreate + " --out " + dir + " && headroom replay --kernel " + spec + " " + dir;
+    Judgement j = judge_case(k, p->c, opt.judge, replay);
+    if (j.unfit) {
+      const std::string line = p->c.name + ": " + *j.unfit;
+      record.skipped.push_back(line);
+      if (skipped) skipped->push_back(line);
+      if (opt.progress) opt.progress(++done, mine.size(), j.record);
+      continue;
+    }
+    if (opt.apply_budget) opt.apply_budget(j.record, j, p->c);
+    if (!j.record.within_budget && !opt.save_failures.empty()) {
+      const auto folder = opt.save_failures / folder_name(p->c.name);
+      write_case(p->c, folder);
+      j.record.replay = "headroom replay --kernel " + spec + " " + quote(folder.string());
+    }
+    if (opt.journal) opt.journal->append(j.record);
+    record.cases.push_back(j.record);
+    if (opt.progress) opt.progress(++done, mine.size(), record.cases.back());
+  }
+  return record;
+}
+
+}  // namespace headroom
