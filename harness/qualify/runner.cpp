@@ -83,9 +83,13 @@ RunRecord run_cases(AttachedKernel& k, const std::vector<PlannedCase>& cases, co
       }
     }
     const std::string spec = quote(opt.kernel_spec.empty() ? d.name : opt.kernel_spec);
-    const std::string dir = "case-" + folder_name(p->c.name);
-    std::string replay = p->recreate.empty() ? "headroom replay --kernel " + spec + " " + dir
-                                             : p->recreate + " --out " + dir + " && headroom replay --kernel " + spec + " " + dir;
+    std::string replay;
+    if (p->request) {
+      const std::string dir = "case-" + folder_name(p->c.name);
+      replay = case_command(*p->request, dir) + " && headroom replay --kernel " + spec + " " + dir;
+    } else {
+      replay = "headroom replay --kernel " + spec + " " + quote(p->folder.string());
+    }
     Judgement j = judge_case(k, p->c, opt.judge, replay);
     if (j.unfit) {
       const std::string line = p->c.name + ": " + *j.unfit;

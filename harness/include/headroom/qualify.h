@@ -11,10 +11,12 @@
 #include <cstdint>
 #include <filesystem>
 #include <functional>
+#include <optional>
 #include <string>
 #include <vector>
 
 #include "headroom/case.h"
+#include "headroom/generate.h"
 #include "headroom/journal.h"
 #include "headroom/judge.h"
 #include "headroom/record.h"
@@ -36,10 +38,11 @@ Shard parse_shard(const std::string& text);
 /// modulo the count, so every case lands in exactly one shard whatever the order.
 bool in_shard(const std::string& name, const Shard& s);
 
-/// One case to run and the command that recreates it from nothing.
+/// One case to run, and the request that recreates it from nothing (absent for a case read from a folder).
 struct PlannedCase {
   Case c;
-  std::string recreate;  ///< e.g. "headroom case make ... --out DIR" with DIR standing for the folder
+  std::optional<CaseRequest> request;
+  std::filesystem::path folder;  ///< where the case was read from, when it was
 };
 
 struct RunnerOptions {
