@@ -1,0 +1,55 @@
+// headroom — property-based search for a failing case, and shrinking it.
+//
+// `hunt` generates N cases across the generator families of the kernel's level
+// (family i mod F, seed S + i, size growing from small to the default, as
+// RapidCheck ramps its size), judges each, and for each failure walks
+// RapidCheck's shrink tree (generate.h) greedily: the first shrink that still
+// fails *the same way* is taken, until none does or the step limit is reached.
+// "The same way" means the same first fault class, or — for a failure of the
+// budget alone — any budget failure with no fault. The smallest failing case
+// is saved as a case folder with its family, seed and shrink path.
+#pragma once
+
+#include <cstdint>
+#include <filesystem>
+#include <string>
+#include <vector>
+
+#include "headroom/qualify.h"
+
+namespace headroom {
+
+struct HuntOptions {
+  RunnerOptions runner;                ///< judging, budget, shard, journal; its save_failures is unused
+  int cases = 100;
+  std::uint64_t seed = 1;
+  std::vector<std::string> families;   ///< empty: every family of the kernel's level
+  std::filesystem::path save;          ///< folder for shrunk failing cases (empty: not saved)
+  int max_shrink_steps = 200;          ///< judged shrinks per failure, at most
+};
+
+struct HuntFinding {
+  std::string original;                ///< the case as first found failing
+  std::string shrunk;                  ///< the smallest case still failing the same way
+  std::string signature;               ///< e.g. "fault:mask_leak" or "budget"
+  int shrink_steps = 0;                ///< shrinks judged
+  std::filesystem::path saved;         ///< its folder, when saved
+};
+
+struct HuntResult {
+  RunRecord record;                    ///< one case per generated case; failures replaced by their shrunk case
+  std::vector<HuntFinding> findings;
+};
+
+/// Returns: the failure signature of a judged case: "fault:<first class>",
+/// "budget" when only a budget limit is exceeded, or "" when it passed.
+std::string failure_signature(const CaseRecord& r);
+
+/// Returns: the requests of a hunt, before sharding: family i mod F, seed S + i,
+/// size from 10 up to kDefaultSize.
+std::vector<CaseRequest> hunt_requests(const HuntOptions& opt, Level level);
+
+/// Returns: the hunt's result on kernel `k`.
+HuntResult hunt(AttachedKernel& k, const HuntOptions& opt);
+
+}  // namespace headroom
