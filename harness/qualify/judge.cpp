@@ -220,9 +220,13 @@ Judgement judge_case(AttachedKernel& k, const Case& c, const JudgeOptions& opt, 
     const KernelRun plain = opt.plain->run(rc, opt.detect.run);
     if (plain.status == RunStatus::ok) {
       const CaseScore ps = score_of(plain, ref, d.output_format);
-      if (ps.non_finite == 0) rec.figures.ratio_to_plain = ratio_to_plain(*j.score, ps).max_scaled_error;
+      if (ps.non_finite == 0) {
+        j.ratio = ratio_to_plain(*j.score, ps);
+        rec.figures.ratio_to_plain = j.ratio->max_scaled_error;
+      }
     }
   } else if (opt.plain == &k) {
+    j.ratio = PlainRatio{1.0, 1.0};
     rec.figures.ratio_to_plain = 1.0;
   }
   return j;

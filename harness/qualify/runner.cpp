@@ -58,6 +58,17 @@ bool in_shard(const std::string& name, const Shard& s) {
   return s.count <= 1 || stable_hash(name) % static_cast<std::uint64_t>(s.count) == static_cast<std::uint64_t>(s.index);
 }
 
+std::function<void(CaseRecord&, const Judgement&, const Case&)> budget_applier(KernelBudget budget) {
+  return [budget = std::move(budget)](CaseRecord& rec, const Judgement& j, const Case& c) {
+    const Verdict v = judge(j.score ? &*j.score : nullptr, j.faults, budget, accumulation_length(c),
+                            j.ratio ? &*j.ratio : nullptr);
+    rec.within_budget = v.pass;
+    rec.reasons.clear();
+    for (const auto& r : v.reasons) rec.reasons.push_back(r.text);
+    for (const auto& n : v.notes) rec.fault_details.push_back("note: " + n);
+  };
+}
+
 RunRecord run_cases(AttachedKernel& k, const std::vector<PlannedCase>& cases, const RunnerOptions& opt,
                     std::vector<std::string>* skipped) {
   const KernelDeclaration& d = k.declaration();

@@ -33,6 +33,7 @@ struct JudgeOptions {
 struct Judgement {
   CaseRecord record;
   std::optional<CaseScore> score;  ///< absent when the kernel did not run to completion
+  std::optional<PlainRatio> ratio; ///< to the textbook kernel of the format, when it ran on the case
   CaseFaults faults;
   std::optional<std::string> unfit;  ///< set when the case does not fit the kernel's declaration: not run
 };

@@ -15,6 +15,7 @@
 #include <string>
 #include <vector>
 
+#include "headroom/budget.h"
 #include "headroom/case.h"
 #include "headroom/generate.h"
 #include "headroom/journal.h"
@@ -56,6 +57,11 @@ struct RunnerOptions {
   /// Called after each case (done counts cases of this shard finished so far, journal included).
   std::function<void(std::size_t done, std::size_t total, const CaseRecord&)> progress;
 };
+
+/// Returns: a RunnerOptions::apply_budget that judges each case against `budget`
+/// (budget.h judge(), at the case's accumulation length) and records the reasons
+/// and notes.
+std::function<void(CaseRecord&, const Judgement&, const Case&)> budget_applier(KernelBudget budget);
 
 /// Returns: the record of running `cases` (this shard's slice) on kernel `k`.
 /// Cases not fitting the kernel's declaration are listed in `skipped`.
