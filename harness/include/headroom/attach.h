@@ -29,10 +29,23 @@ namespace headroom {
 struct ReceivedCase {
   Case received;  ///< same problem, tensors replaced by the received values
   std::optional<QuantizedTensor> q8, k8, v8;  ///< int8 core inputs
+  Format input_format = Format::float32;      ///< the format the tensors were received in
 };
 
-/// Returns: the case as the kernel declared by `d` receives it.
-/// Throws InputError when the case does not fit the declaration (level, mask).
+/// Returns: why kernel `d` cannot be given case `c` (level, mask kind,
+/// max_kv_len, a fully masked row for a never_called kernel, int8 at block
+/// level), or nothing when it can. Callers skip such cases; receive refuses them.
+std::optional<std::string> why_unfit(const Case& c, const KernelDeclaration& d);
+
+/// Returns: the case as the kernel declared by `d` receives it: every source
+/// tensor (Q, K, V; X, W, b) rounded to d.input_format with round-to-nearest-
+/// even (binary16.h, format.h; float64 unchanged), or quantised with d's
+/// per-input schemes (quant.h); an additive bias rounded to float32 (the ABI
+/// passes it as float); dense mask entries normalised to 0/1. The values are
+/// exactly those the kernel's buffers will hold. Values beyond a format's range
+/// become ±infinity, as the conversion prescribes.
+/// Throws InputError naming the case when why_unfit says no, when the case is
+/// inconsistent (validate), or when int8 quantisation refuses the values.
 ReceivedCase receive(const Case& c, const KernelDeclaration& d);
 
 enum class RunStatus : unsigned char {
@@ -47,10 +60,20 @@ enum class RunStatus : unsigned char {
 /// Returns: the fault class name used in JSON ("ok", "unsupported", "crash", "oob_read", ...).
 const char* run_status_name(RunStatus s);
 
+/// Isolation (isolate = true): the call runs in a forked child. Every input
+/// buffer ends exactly where a PROT_NONE guard page begins (so one element
+/// read past the end faults; the start is aligned only to the element size)
+/// and is read-only; every output has 64 canary bytes before and after it
+/// and a guard page after that; outputs are prefilled with a quiet-NaN
+/// pattern, so an element left unwritten reads as NaN. The child has no core
+/// dumps and RLIMIT_AS = its address space at fork + memory_limit_bytes.
+/// In-process (isolate = false): same buffers, guard pages left accessible
+/// and checked like canaries afterwards; no time or memory limit.
+/// External programs always run in their own process group; isolate is moot.
 struct RunOptions {
   bool isolate = true;          ///< run in a child process (guard pages, canaries, limits)
-  double time_limit_s = 20.0;
-  std::uint64_t memory_limit_bytes = std::uint64_t{4} << 30;
+  double time_limit_s = 20.0;   ///< wall clock, seconds; the child is SIGKILLed past it
+  std::uint64_t memory_limit_bytes = std::uint64_t{4} << 30;  ///< address space the call may add
 };
 
 struct KernelRun {
@@ -65,6 +88,8 @@ class AttachedKernel {
   virtual ~AttachedKernel() = default;
   virtual const KernelDeclaration& declaration() const = 0;
   /// Returns: the outcome of one call on `c`. Never throws for kernel misbehaviour.
+  /// Preconditions: `c` = receive(case, declaration()); throws
+  /// std::invalid_argument otherwise (a caller's mistake, not the kernel's).
   virtual KernelRun run(const ReceivedCase& c, const RunOptions& opt) = 0;
 };
 
@@ -77,5 +102,11 @@ std::unique_ptr<AttachedKernel> attach_library(const std::string& path);
 /// Returns: a kernel run as an external program (see external_program.h for the
 /// exchange protocol). Throws InputError when its declaration is unreadable.
 std::unique_ptr<AttachedKernel> attach_program(const std::string& command, double time_limit_s);
+
+/// Returns: the kernel a user names: a path (contains '/' or ends in ".so") is
+/// loaded with attach_library, anything else is a bundled kernel's name.
+/// Throws InputError for an unknown name, saying how to list the names
+/// (`headroom kernels --names`), and as attach_library for a bad library.
+std::unique_ptr<AttachedKernel> attach_kernel(const std::string& spec);
 
 }  // namespace headroom

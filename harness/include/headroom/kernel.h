@@ -1,4 +1,10 @@
 // headroom — the C++ view of a kernel's declaration (kernel_abi.h's hr_kernel).
+//
+// A declaration says what a kernel is: level, formats, masks, conventions and
+// layouts. headroom only ever calls a kernel with problems its declaration
+// covers, and judges it against what it declared. A declaration arrives from
+// a plug-in (a C struct that may hold garbage) or from an external program's
+// JSON (external_program.h); both are checked here before anything runs.
 #pragma once
 
 #include <cstdint>
@@ -9,9 +15,14 @@
 #include "headroom/problem.h"
 #include "headroom/quant.h"
 
+struct hr_kernel;
+
 namespace headroom {
 
 enum class MaskedRowConvention : unsigned char { zeros, nan, never_called };
+
+/// Returns: "zeros", "nan", "never_called".
+const char* masked_row_name(MaskedRowConvention c);
 
 struct KernelDeclaration {
   std::string name;
@@ -29,5 +40,31 @@ struct KernelDeclaration {
   /// Returns: whether the kernel declares support for mask kind k.
   bool supports(MaskKind k) const;
 };
+
+/// Returns: the HR_MASK_* bit of mask kind k (HR_MASK_NONE for none, ...).
+std::uint32_t mask_bit(MaskKind k);
+
+/// Returns: the declaration of `k`, fully checked. `origin` names where it came
+/// from (a library path, "bundled"); errors name it as the file.
+/// Throws InputError naming origin, the kernel and the fix for: a null
+/// declaration, an abi_version other than HEADROOM_ABI_VERSION, a null, empty,
+/// over-long (> 64) or non-[a-z0-9_.-] name, an unknown level, format,
+/// granularity or masked-row value, an int8 output, int8 input at block
+/// level, quantisation schemes on a non-int8 kernel, mask bits outside
+/// HR_MASK_*, no mask kind, layout bits outside HR_LAYOUT_* or none,
+/// returns_lse other than 0/1 or on a block kernel, a negative max_kv_len,
+/// or no run function for its level (or one for the other level).
+KernelDeclaration declaration_of(const hr_kernel* k, const std::string& origin);
+
+/// Returns: nothing when `d` is consistent; throws InputError naming origin
+/// and the kernel for the format-independent rules listed above (name, int8
+/// output, int8 block, masks, layouts, lse, max_kv_len). declaration_of and
+/// the external-program reader both end with this check.
+void check_declaration(const KernelDeclaration& d, const std::string& origin);
+
+/// Returns: one line describing `d`, e.g.
+/// "core in=binary16 out=float32 masks=none,causal_top_left masked_row=zeros
+///  lse=yes layouts=BHTD max_kv_len=any".
+std::string declaration_summary(const KernelDeclaration& d);
 
 }  // namespace headroom

@@ -1,0 +1,185 @@
+// headroom — an external program's declaration as JSON, read strictly (external_program.h).
+#include <set>
+#include <string>
+
+#include <nlohmann/json.hpp>
+
+#include "headroom/external_program.h"
+#include "headroom/input_error.h"
+#include "headroom/kernel_abi.h"
+
+namespace headroom {
+namespace {
+
+using nlohmann::json;
+
+const std::set<std::string> kFields = {"protocol",  "name",       "description", "level",       "input_format",
+                                       "output_format", "q_quant", "k_quant",     "v_quant",     "mask_kinds",
+                                       "masked_row", "returns_lse", "max_kv_len", "layouts"};
+
+std::string place(const std::string& field) { return "describe output, field \"" + field + "\""; }
+
+[[noreturn]] void refuse(const std::string& origin, const std::string& field, const std::string& problem,
+                         const std::string& fix) {
+  throw InputError(origin, place(field), problem, fix);
+}
+
+const json& required(const json& j, const char* field, const std::string& origin) {
+  auto it = j.find(field);
+  if (it == j.end()) refuse(origin, field, "missing", "add it (see docs/external-program.md)");
+  return *it;
+}
+
+std::string string_field(const json& v, const char* field, const std::string& origin) {
+  if (!v.is_string()) refuse(origin, field, "expected a string, found " + v.dump(), "give a JSON string");
+  return v.get<std::string>();
+}
+
+Format format_field(const json& j, const char* field, const std::string& origin) {
+  const std::string name = string_field(required(j, field, origin), field, origin);
+  auto f = parse_format(name);
+  if (!f) refuse(origin, field, "unknown format \"" + name + "\"", "use float64, float32, binary16, bfloat16 or int8");
+  return *f;
+}
+
+QuantScheme quant_field(const json& j, const char* field, const std::string& origin) {
+  const json& q = required(j, field, origin);
+  if (!q.is_object()) refuse(origin, field, "expected an object, found " + q.dump(), "give {\"granularity\": ..., \"asymmetric\": ...}");
+  for (auto it = q.begin(); it != q.end(); ++it) {
+    if (it.key() != "granularity" && it.key() != "asymmetric") {
+      refuse(origin, field, "unknown key \"" + it.key() + "\"", "use only \"granularity\" and \"asymmetric\"");
+    }
+  }
+  QuantScheme s;
+  const std::string g = string_field(required(q, "granularity", origin), field, origin);
+  auto gran = parse_granularity(g);
+  if (!gran) refuse(origin, field, "unknown granularity \"" + g + "\"", "use per_tensor, per_head, per_token or per_channel");
+  s.granularity = *gran;
+  if (auto a = q.find("asymmetric"); a != q.end()) {
+    if (!a->is_boolean()) refuse(origin, field, "\"asymmetric\" must be true or false", "give a JSON boolean");
+    s.asymmetric = a->get<bool>();
+  }
+  return s;
+}
+
+json scheme_json(const QuantScheme& s) {
+  return json{{"granularity", std::string(granularity_name(s.granularity))}, {"asymmetric", s.asymmetric}};
+}
+
+constexpr MaskKind kMaskKinds[] = {MaskKind::none,        MaskKind::causal_top_left, MaskKind::causal_bottom_right,
+                                   MaskKind::key_padding, MaskKind::dense,           MaskKind::bias};
+
+}  // namespace
+
+KernelDeclaration declaration_from_json(const std::string& text, const std::string& origin) {
+  json j;
+  try {
+    j = json::parse(text);
+  } catch (const json::parse_error& e) {
+    throw InputError(origin, "describe output", std::string("not valid JSON: ") + e.what(),
+                     "print exactly one JSON object on stdout (logs go to stderr)");
+  }
+  if (!j.is_object()) {
+    throw InputError(origin, "describe output", "expected a JSON object", "print the declaration as one JSON object");
+  }
+  for (auto it = j.begin(); it != j.end(); ++it) {
+    if (kFields.count(it.key()) == 0) {
+      refuse(origin, it.key(), "unknown field", "remove it or correct its spelling (see docs/external-program.md)");
+    }
+  }
+  const json& protocol = required(j, "protocol", origin);
+  if (!protocol.is_number_integer() || protocol.get<long long>() != kExternalProtocolVersion) {
+    refuse(origin, "protocol", "speaks protocol " + protocol.dump() + ", this headroom speaks " +
+                                   std::to_string(kExternalProtocolVersion),
+           "update the program to protocol " + std::to_string(kExternalProtocolVersion) + " (docs/external-program.md)");
+  }
+  KernelDeclaration d;
+  d.name = string_field(required(j, "name", origin), "name", origin);
+  if (auto it = j.find("description"); it != j.end()) d.description = string_field(*it, "description", origin);
+  const std::string level = string_field(required(j, "level", origin), "level", origin);
+  if (level == "core") {
+    d.level = Level::core;
+  } else if (level == "block") {
+    d.level = Level::block;
+  } else {
+    refuse(origin, "level", "unknown level \"" + level + "\"", "use \"core\" or \"block\"");
+  }
+  d.input_format = format_field(j, "input_format", origin);
+  d.output_format = format_field(j, "output_format", origin);
+  if (d.input_format == Format::int8) {
+    d.q_quant = quant_field(j, "q_quant", origin);
+    d.k_quant = quant_field(j, "k_quant", origin);
+    d.v_quant = quant_field(j, "v_quant", origin);
+  } else {
+    for (const char* f : {"q_quant", "k_quant", "v_quant"}) {
+      if (j.contains(f)) refuse(origin, f, "given but the input format is not int8", "remove it, or declare int8 input");
+    }
+  }
+  const json& masks = required(j, "mask_kinds", origin);
+  if (!masks.is_array()) refuse(origin, "mask_kinds", "expected an array of mask kind names", "e.g. [\"none\", \"causal_top_left\"]");
+  d.mask_kinds = 0;
+  for (const json& m : masks) {
+    const std::string name = string_field(m, "mask_kinds", origin);
+    auto kind = parse_mask_kind(name);
+    if (!kind) {
+      refuse(origin, "mask_kinds", "unknown mask kind \"" + name + "\"",
+             "use none, causal_top_left, causal_bottom_right, key_padding, dense or bias");
+    }
+    d.mask_kinds |= mask_bit(*kind);
+  }
+  const std::string row = string_field(required(j, "masked_row", origin), "masked_row", origin);
+  if (row == "zeros") {
+    d.masked_row = MaskedRowConvention::zeros;
+  } else if (row == "nan") {
+    d.masked_row = MaskedRowConvention::nan;
+  } else if (row == "never_called") {
+    d.masked_row = MaskedRowConvention::never_called;
+  } else {
+    refuse(origin, "masked_row", "unknown convention \"" + row + "\"", "use \"zeros\", \"nan\" or \"never_called\"");
+  }
+  if (auto it = j.find("returns_lse"); it != j.end()) {
+    if (!it->is_boolean()) refuse(origin, "returns_lse", "expected true or false, found " + it->dump(), "give a JSON boolean");
+    d.returns_lse = it->get<bool>();
+  }
+  if (auto it = j.find("max_kv_len"); it != j.end()) {
+    if (!it->is_number_integer()) refuse(origin, "max_kv_len", "expected an integer, found " + it->dump(), "give 0 or a positive integer");
+    d.max_kv_len = it->get<std::int64_t>();
+  }
+  d.layouts = HR_LAYOUT_BHTD;
+  if (auto it = j.find("layouts"); it != j.end()) {
+    if (!it->is_array() || *it != json::array({"BHTD"})) {
+      refuse(origin, "layouts", "external programs exchange C-order [B, H, T, D] .npy files; found " + it->dump(),
+             "omit \"layouts\" or give [\"BHTD\"]");
+    }
+  }
+  check_declaration(d, origin);
+  return d;
+}
+
+std::string declaration_to_json(const KernelDeclaration& d) {
+  json masks = json::array();
+  for (MaskKind k : kMaskKinds) {
+    if (d.supports(k)) masks.push_back(std::string(mask_kind_name(k)));
+  }
+  json j = {
+      {"protocol", kExternalProtocolVersion},
+      {"name", d.name},
+      {"description", d.description},
+      {"level", d.level == Level::core ? "core" : "block"},
+      {"input_format", std::string(format_name(d.input_format))},
+      {"output_format", std::string(format_name(d.output_format))},
+      {"mask_kinds", masks},
+      {"masked_row", masked_row_name(d.masked_row)},
+      {"returns_lse", d.returns_lse},
+      {"max_kv_len", d.max_kv_len},
+      {"layouts", json::array({"BHTD"})},
+  };
+  if (d.input_format == Format::int8) {
+    j["q_quant"] = scheme_json(d.q_quant);
+    j["k_quant"] = scheme_json(d.k_quant);
+    j["v_quant"] = scheme_json(d.v_quant);
+  }
+  return j.dump(2);
+}
+
+}  // namespace headroom

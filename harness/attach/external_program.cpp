@@ -1,0 +1,270 @@
+// headroom — running a kernel that is an external program, through .npy files (external_program.h).
+#include "headroom/external_program.h"
+
+#include <stdlib.h>
+
+#include <cerrno>
+#include <cmath>
+#include <cstdio>
+#include <cstring>
+#include <fstream>
+#include <system_error>
+
+#include <nlohmann/json.hpp>
+
+#include "attach/packing.h"
+#include "attach/process.h"
+#include "headroom/input_error.h"
+#include "headroom/npy.h"
+
+namespace headroom {
+namespace {
+
+namespace fs = std::filesystem;
+using nlohmann::json;
+
+// The exchange folder: made with mkdtemp (mode 0700), removed whatever happens.
+class ExchangeDir {
+ public:
+  ExchangeDir() {
+    std::string pattern = (fs::temp_directory_path() / "headroom-run-XXXXXX").string();
+    if (mkdtemp(pattern.data()) == nullptr) {
+      throw std::runtime_error("cannot create an exchange folder under " + fs::temp_directory_path().string() + ": " +
+                               std::strerror(errno));
+    }
+    path_ = pattern;
+  }
+  ExchangeDir(const ExchangeDir&) = delete;
+  ExchangeDir& operator=(const ExchangeDir&) = delete;
+  ~ExchangeDir() {
+    std::error_code ec;
+    fs::remove_all(path_, ec);
+  }
+  const fs::path& path() const { return path_; }
+
+ private:
+  fs::path path_;
+};
+
+void put(const fs::path& dir, const std::string& file, const NpyArray& a) { write_npy(dir / file, a); }
+
+NpyArray raw_array(std::vector<std::int64_t> shape, const char* descr, const void* data, std::size_t bytes) {
+  NpyArray a;
+  a.shape = std::move(shape);
+  a.descr = descr;
+  a.bytes.resize(bytes);
+  if (bytes != 0) std::memcpy(a.bytes.data(), data, bytes);
+  return a;
+}
+
+void put_quantised(const fs::path& dir, const std::string& name, const QuantizedTensor& q, json& quant) {
+  put(dir, name + ".npy", raw_array(q.shape, "|i1", q.codes.data(), q.codes.size()));
+  put(dir, name + "_scale.npy", raw_array(q.scale_shape, "<f4", q.scales.data(), q.scales.size() * sizeof(float)));
+  json entry = {{"granularity", std::string(granularity_name(q.scheme.granularity))},
+                {"asymmetric", q.scheme.asymmetric},
+                {"scale", name + "_scale.npy"}};
+  if (q.scheme.asymmetric) {
+    put(dir, name + "_zero_point.npy",
+        raw_array(q.scale_shape, "<i4", q.zero_points.data(), q.zero_points.size() * sizeof(std::int32_t)));
+    entry["zero_point"] = name + "_zero_point.npy";
+  }
+  quant[name] = entry;
+}
+
+json put_mask(const fs::path& dir, const Mask& m) {
+  json j = {{"kind", std::string(mask_kind_name(m.kind))}};
+  if (m.kind == MaskKind::key_padding) {
+    put(dir, "key_lengths.npy",
+        raw_array({static_cast<std::int64_t>(m.key_lengths.size())}, "<i8", m.key_lengths.data(),
+                  m.key_lengths.size() * sizeof(std::int64_t)));
+    j["file"] = "key_lengths.npy";
+  } else if (m.kind == MaskKind::dense) {
+    put(dir, "mask.npy", tensor_to_npy(m.allowed, "|b1"));
+    j["file"] = "mask.npy";
+  } else if (m.kind == MaskKind::bias) {
+    put(dir, "bias.npy", tensor_to_npy(m.bias, "<f4"));
+    j["file"] = "bias.npy";
+  }
+  return j;
+}
+
+std::string float_hex(float x) {
+  char buf[48];
+  std::snprintf(buf, sizeof buf, "%a", static_cast<double>(x));
+  return buf;
+}
+
+double float_decimal(float x) {
+  // 9 significant digits identify a float32 (IEEE 754-2019 §5.12.2); the
+  // double nearest that decimal rounds back to x.
+  char buf[48];
+  std::snprintf(buf, sizeof buf, "%.9g", static_cast<double>(x));
+  return std::strtod(buf, nullptr);
+}
+
+// Reads one output file strictly; on any defect fills `bad` and returns nothing.
+std::optional<Tensor> read_output(const fs::path& dir, const std::string& file, const std::string& descr,
+                                  const std::vector<std::int64_t>& shape, const char* meaning, std::string& bad) {
+  const fs::path path = dir / file;
+  std::error_code ec;
+  if (!fs::exists(path, ec)) {
+    bad = file + ": not written (the program must write " + meaning + ")";
+    return std::nullopt;
+  }
+  try {
+    NpyArray a = read_npy(path);
+    if (a.descr != descr) {
+      bad = file + ": dtype '" + a.descr + "', expected '" + descr + "'";
+      return std::nullopt;
+    }
+    if (a.shape != shape) {
+      bad = file + ": shape " + json(a.shape).dump() + ", expected " + json(shape).dump();
+      return std::nullopt;
+    }
+    return npy_to_tensor(a, path);
+  } catch (const InputError& e) {
+    bad = file + ": " + e.place() + ": " + e.problem();
+    return std::nullopt;
+  }
+}
+
+class ProgramKernel final : public AttachedKernel {
+ public:
+  ProgramKernel(std::string command, KernelDeclaration d) : command_(std::move(command)), declaration_(std::move(d)) {}
+  const KernelDeclaration& declaration() const override { return declaration_; }
+
+  KernelRun run(const ReceivedCase& c, const RunOptions& opt) override {
+    attach_detail::check_received(c, declaration_);
+    ExchangeDir dir;
+    write_exchange(dir.path(), c, declaration_);
+    const std::string line = command_ + " run " + attach_detail::shell_quote(dir.path().string());
+    attach_detail::ProcessResult p = attach_detail::run_shell(line, opt.time_limit_s, opt.memory_limit_bytes);
+    KernelRun r;
+    if (p.timed_out) {
+      r.status = RunStatus::timeout;
+      r.detail = "`" + command_ + " run`: " + attach_detail::describe_end(p, opt.time_limit_s);
+      return r;
+    }
+    if (!p.started || p.signaled || (p.exit_code != 0 && p.exit_code != kExternalExitUnsupported)) {
+      r.status = RunStatus::crash;
+      r.detail = "`" + command_ + " run`: " + attach_detail::describe_end(p, opt.time_limit_s);
+      return r;
+    }
+    if (p.exit_code == kExternalExitUnsupported) {
+      r.status = RunStatus::unsupported;
+      r.detail = "the program exited " + std::to_string(kExternalExitUnsupported) + " (declines the problem)";
+      return r;
+    }
+    return read_exchange(dir.path(), c, declaration_);
+  }
+
+ private:
+  std::string command_;
+  KernelDeclaration declaration_;
+};
+
+}  // namespace
+
+void write_exchange(const fs::path& dir, const ReceivedCase& c, const KernelDeclaration& d) {
+  const Case& k = c.received;
+  json problem = {{"protocol", kExternalProtocolVersion},
+                  {"kernel", d.name},
+                  {"case", k.name},
+                  {"level", k.level == Level::core ? "core" : "block"},
+                  {"input_format", std::string(format_name(d.input_format))},
+                  {"output_format", std::string(format_name(d.output_format))},
+                  {"layout", "BHTD"}};
+  json inputs = json::object();
+  const std::string out_descr(npy_descr_of(d.output_format));
+  if (k.level == Level::core) {
+    const CoreShape& s = k.core.shape;
+    problem["shape"] = {{"batch", s.batch},     {"q_heads", s.q_heads}, {"kv_heads", s.kv_heads}, {"q_len", s.q_len},
+                        {"kv_len", s.kv_len},   {"key_dim", s.key_dim}, {"value_dim", s.value_dim}};
+    problem["scale"] = float_decimal(k.core.scale);
+    problem["scale_hex"] = float_hex(k.core.scale);
+    problem["mask"] = put_mask(dir, k.core.mask);
+    if (d.input_format == Format::int8) {
+      json quant = json::object();
+      put_quantised(dir, "q", *c.q8, quant);
+      put_quantised(dir, "k", *c.k8, quant);
+      put_quantised(dir, "v", *c.v8, quant);
+      problem["quant"] = quant;
+    } else {
+      put(dir, "q.npy", tensor_to_npy(k.core_inputs.q, d.input_format));
+      put(dir, "k.npy", tensor_to_npy(k.core_inputs.k, d.input_format));
+      put(dir, "v.npy", tensor_to_npy(k.core_inputs.v, d.input_format));
+    }
+    inputs = {{"q", "q.npy"}, {"k", "k.npy"}, {"v", "v.npy"}};
+    json outputs = {{"o", {{"file", "o.npy"}, {"dtype", out_descr}, {"shape", {s.batch, s.q_heads, s.q_len, s.value_dim}}}}};
+    problem["returns_lse"] = d.returns_lse;
+    if (d.returns_lse) outputs["lse"] = {{"file", "lse.npy"}, {"dtype", "<f4"}, {"shape", {s.batch, s.q_heads, s.q_len}}};
+    problem["outputs"] = outputs;
+  } else {
+    const BlockShape& s = k.block.shape;
+    problem["shape"] = {{"batch", s.batch},       {"q_len", s.q_len},       {"kv_len", s.kv_len},
+                        {"model_dim", s.model_dim}, {"q_heads", s.q_heads}, {"kv_heads", s.kv_heads},
+                        {"key_dim", s.key_dim},   {"value_dim", s.value_dim}};
+    problem["scale"] = float_decimal(k.block.scale);
+    problem["scale_hex"] = float_hex(k.block.scale);
+    problem["mask"] = put_mask(dir, k.block.mask);
+    const BlockInputs& in = k.block_inputs;
+    const std::pair<const char*, const Tensor*> tensors[] = {
+        {"x_q", &in.x_q}, {"x_kv", &in.x_kv}, {"w_q", &in.w_q}, {"w_k", &in.w_k}, {"w_v", &in.w_v},
+        {"w_o", &in.w_o}, {"b_q", &in.b_q},   {"b_k", &in.b_k}, {"b_v", &in.b_v}, {"b_o", &in.b_o}};
+    for (const auto& [name, t] : tensors) {
+      if (t->values.empty()) continue;  // an absent bias has no file
+      put(dir, std::string(name) + ".npy", tensor_to_npy(*t, d.input_format));
+      inputs[name] = std::string(name) + ".npy";
+    }
+    problem["outputs"] = {{"y", {{"file", "y.npy"}, {"dtype", out_descr}, {"shape", {s.batch, s.q_len, s.model_dim}}}}};
+  }
+  problem["inputs"] = inputs;
+  std::ofstream f(dir / "problem.json");
+  f << problem.dump(2) << '\n';
+  if (!f) throw std::runtime_error("cannot write " + (dir / "problem.json").string());
+}
+
+KernelRun read_exchange(const fs::path& dir, const ReceivedCase& c, const KernelDeclaration& d) {
+  KernelRun r;
+  const std::string descr(npy_descr_of(d.output_format));
+  std::string bad;
+  std::optional<Tensor> out;
+  if (c.received.level == Level::core) {
+    const CoreShape& s = c.received.core.shape;
+    out = read_output(dir, "o.npy", descr, {s.batch, s.q_heads, s.q_len, s.value_dim}, "the attention output", bad);
+    if (out && d.returns_lse) {
+      std::optional<Tensor> lse = read_output(dir, "lse.npy", "<f4", {s.batch, s.q_heads, s.q_len},
+                                              "the log-sum-exp it declares (returns_lse)", bad);
+      if (lse) r.lse = std::move(*lse);
+      if (!lse) out.reset();
+    }
+  } else {
+    const BlockShape& s = c.received.block.shape;
+    out = read_output(dir, "y.npy", descr, {s.batch, s.q_len, s.model_dim}, "the block output", bad);
+  }
+  if (!out) {
+    r.status = RunStatus::bad_output;
+    r.detail = bad;
+    r.lse = Tensor{};
+    return r;
+  }
+  r.out = std::move(*out);
+  return r;
+}
+
+std::unique_ptr<AttachedKernel> attach_program(const std::string& command, double time_limit_s) {
+  const std::string origin = "`" + command + "`";
+  attach_detail::ProcessResult p = attach_detail::run_shell(command + " describe", time_limit_s, 0);
+  if (!p.started || p.timed_out || p.signaled || p.exit_code != 0) {
+    throw InputError(origin, "describe", "`" + command + " describe` failed: " + attach_detail::describe_end(p, time_limit_s),
+                     "check the command line; `CMD describe` must print the declaration as JSON and exit 0 "
+                     "(docs/external-program.md)");
+  }
+  if (p.out_truncated) {
+    throw InputError(origin, "describe", "printed more than 1 MiB", "print only the declaration on stdout");
+  }
+  KernelDeclaration d = declaration_from_json(p.out, origin);
+  return std::make_unique<ProgramKernel>(command, std::move(d));
+}
+
+}  // namespace headroom

@@ -1,0 +1,46 @@
+// headroom — a received case laid out as the C ABI's problem structure.
+//
+// Internal to the attach stage. Every input (Q, K, V, int8 scales and zero
+// points, mask arrays; X, W, b) is its own guarded input buffer holding the
+// received values in the declared format; every output (O or Y, the
+// log-sum-exp) is its own canaried output buffer prefilled with "unwritten"
+// NaNs. Core tensors are BHTD contiguous when the kernel declares BHTD, else
+// BTHD strided (extents stay [B, H, T, D]; strides say where elements are).
+#pragma once
+
+#include <cstdint>
+#include <optional>
+
+#include "attach/guarded_arena.h"
+#include "headroom/attach.h"
+#include "headroom/kernel_abi.h"
+
+namespace headroom::attach_detail {
+
+struct PackedCall {
+  GuardedArena arena;
+  hr_core_problem core{};    ///< level core
+  hr_block_problem block{};  ///< level block
+  Level level = Level::core;
+  Format output_format = Format::float32;
+  std::size_t out_slot = 0;
+  std::optional<std::size_t> lse_slot;
+  std::int64_t out_extents[4] = {1, 1, 1, 1};
+  std::int64_t out_strides[4] = {0, 0, 0, 0};
+  std::vector<std::int64_t> out_shape;  ///< of KernelRun::out: [B, Hq, Tq, Dv] or [B, Tq, Dm]
+};
+
+/// Returns: nothing when `c` was received for kernel `d` (level, input format,
+/// mask kind, int8 codes and schemes); throws std::invalid_argument otherwise.
+void check_received(const ReceivedCase& c, const KernelDeclaration& d);
+
+/// Returns: the buffers and problem structure for one call of kernel `d` on `c`.
+/// Preconditions: c = receive(case, d) (checked: std::invalid_argument otherwise).
+PackedCall pack(const ReceivedCase& c, const KernelDeclaration& d);
+
+/// Returns: the output tensor (values of the output format, as doubles) and,
+/// when returned, the log-sum-exp [B, Hq, Tq].
+Tensor unpack_output(const PackedCall& p);
+Tensor unpack_lse(const PackedCall& p);
+
+}  // namespace headroom::attach_detail

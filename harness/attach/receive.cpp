@@ -1,0 +1,150 @@
+// headroom — what a kernel receives: the case's source values in its declared input format (attach.h).
+#include <cmath>
+#include <cstdint>
+#include <stdexcept>
+#include <string>
+
+#include "headroom/attach.h"
+#include "headroom/binary16.h"
+#include "headroom/input_error.h"
+
+namespace headroom {
+namespace {
+
+// The value a buffer of format f holds for source value x: the pattern nearest
+// to x (ties to even), read back exactly. Converting from double rounds once.
+double received_value(double x, Format f) {
+  switch (f) {
+    case Format::float64: return x;
+    case Format::float32: return static_cast<double>(static_cast<float>(x));
+    case Format::binary16: return binary16_to_float(double_to_binary16(x));
+    case Format::bfloat16: return bfloat16_to_float(double_to_bfloat16(x));
+    case Format::int8: break;
+  }
+  throw std::logic_error("received_value: int8 is quantised per tensor, not rounded per value");
+}
+
+Tensor rounded(const Tensor& t, Format f) {
+  Tensor out = t;
+  for (double& v : out.values) v = received_value(v, f);
+  return out;
+}
+
+// The mask as the ABI carries it: dense entries become 0/1 bytes, a bias
+// becomes float32 (hr_mask.bias is const float*). −inf stays −inf.
+Mask received_mask(const Mask& m) {
+  Mask out = m;
+  if (m.kind == MaskKind::dense) {
+    for (double& v : out.allowed.values) v = v != 0.0 ? 1.0 : 0.0;
+  } else if (m.kind == MaskKind::bias) {
+    out.bias = rounded(m.bias, Format::float32);
+  }
+  return out;
+}
+
+bool has_fully_masked_row(const CoreShape& s, const Mask& m) {
+  for (std::int64_t b = 0; b < s.batch; ++b) {
+    for (std::int64_t h = 0; h < s.q_heads; ++h) {
+      for (std::int64_t i = 0; i < s.q_len; ++i) {
+        bool any = false;
+        for (std::int64_t j = 0; j < s.kv_len && !any; ++j) any = m.visible(s, b, h, i, j);
+        if (!any) return true;
+      }
+    }
+  }
+  return false;
+}
+
+std::string problems_text(const std::vector<ProblemError>& errors) {
+  std::string text;
+  for (const ProblemError& e : errors) text += (text.empty() ? "" : "; ") + e.message();
+  return text;
+}
+
+QuantizedTensor quantized(const Case& c, const Tensor& t, const QuantScheme& scheme, const char* which) {
+  try {
+    return quantize(t, scheme);
+  } catch (const std::invalid_argument& e) {
+    throw InputError(c.name, std::string("tensor ") + which,
+                     std::string("cannot be quantised as ") + scheme_name(scheme) + ": " + e.what(),
+                     "give the case finite values within float32 range");
+  }
+}
+
+}  // namespace
+
+std::optional<std::string> why_unfit(const Case& c, const KernelDeclaration& d) {
+  const char* case_level = c.level == Level::core ? "core" : "block";
+  if (c.level != d.level) {
+    return std::string("the case is a ") + case_level + " problem and kernel \"" + d.name + "\" is a " +
+           (d.level == Level::core ? "core" : "block") + " kernel";
+  }
+  const Mask& mask = c.level == Level::core ? c.core.mask : c.block.mask;
+  const CoreShape shape = c.level == Level::core ? c.core.shape : c.block.shape.core();
+  if (!d.supports(mask.kind)) {
+    return "kernel \"" + d.name + "\" does not declare mask kind " + std::string(mask_kind_name(mask.kind));
+  }
+  if (d.max_kv_len > 0 && shape.kv_len > d.max_kv_len) {
+    return "the case has " + std::to_string(shape.kv_len) + " keys and kernel \"" + d.name + "\" accepts at most " +
+           std::to_string(d.max_kv_len);
+  }
+  if (c.level == Level::block && d.input_format == Format::int8) {
+    return std::string("int8 input at block level is not supported (only Q, K, V are quantised)");
+  }
+  if (d.masked_row == MaskedRowConvention::never_called) {
+    // The mask must be consistent before visible() may index it.
+    const bool consistent = c.level == Level::core ? validate(c.core).empty() : validate(c.block).empty();
+    if (consistent && has_fully_masked_row(shape, mask)) {
+      return "the case has a fully masked query row and kernel \"" + d.name + "\" declares masked_row never_called";
+    }
+  }
+  return std::nullopt;
+}
+
+ReceivedCase receive(const Case& c, const KernelDeclaration& d) {
+  const std::vector<ProblemError> errors =
+      c.level == Level::core ? validate(c.core, c.core_inputs) : validate(c.block, c.block_inputs);
+  if (!errors.empty()) {
+    throw InputError(c.name, "problem", "the case is inconsistent: " + problems_text(errors),
+                     "regenerate the case or correct its manifest and tensors");
+  }
+  if (auto reason = why_unfit(c, d)) {
+    throw InputError(c.name, "kernel declaration", *reason,
+                     "choose a kernel that declares this case, or skip the case (why_unfit)");
+  }
+  ReceivedCase r;
+  r.received = c;
+  r.input_format = d.input_format;
+  if (c.level == Level::core) {
+    r.received.core.mask = received_mask(c.core.mask);
+    if (d.input_format == Format::int8) {
+      r.q8 = quantized(c, c.core_inputs.q, d.q_quant, "q");
+      r.k8 = quantized(c, c.core_inputs.k, d.k_quant, "k");
+      r.v8 = quantized(c, c.core_inputs.v, d.v_quant, "v");
+      r.received.core_inputs.q = dequantize(*r.q8);
+      r.received.core_inputs.k = dequantize(*r.k8);
+      r.received.core_inputs.v = dequantize(*r.v8);
+    } else {
+      r.received.core_inputs.q = rounded(c.core_inputs.q, d.input_format);
+      r.received.core_inputs.k = rounded(c.core_inputs.k, d.input_format);
+      r.received.core_inputs.v = rounded(c.core_inputs.v, d.input_format);
+    }
+  } else {
+    r.received.block.mask = received_mask(c.block.mask);
+    BlockInputs& in = r.received.block_inputs;
+    for (Tensor* t : {&in.x_q, &in.x_kv, &in.w_q, &in.w_k, &in.w_v, &in.w_o, &in.b_q, &in.b_k, &in.b_v, &in.b_o}) {
+      *t = rounded(*t, d.input_format);
+    }
+  }
+  // Rounding a bias to float32 can carry a huge finite value to +inf: say so
+  // here rather than hand the kernel a problem the model does not define.
+  const std::vector<ProblemError> after = c.level == Level::core ? validate(r.received.core)
+                                                                 : validate(r.received.block);
+  if (!after.empty()) {
+    throw InputError(c.name, "mask", "after rounding to the kernel's formats: " + problems_text(after),
+                     "keep bias values within float32 range");
+  }
+  return r;
+}
+
+}  // namespace headroom

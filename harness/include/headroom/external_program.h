@@ -1,0 +1,65 @@
+// headroom — the exchange with a kernel that is an external program (docs/external-program.md).
+//
+// headroom runs a command line CMD (through /bin/sh, in its own process group):
+//
+//   CMD describe    prints the kernel's declaration as one JSON object on stdout
+//                   and exits 0 (declaration_from_json says what it may hold);
+//   CMD run DIR     DIR holds problem.json and the inputs as .npy files in the
+//                   declared input format; the program writes DIR/o.npy (core)
+//                   or DIR/y.npy (block), and DIR/lse.npy when it declares
+//                   returns_lse, then exits 0 — or exits 77 to decline the
+//                   problem (reported as unsupported).
+//
+// Inputs (C-order, little-endian; the logical [B, H, T, D] order whatever the
+// plug-in layouts): q.npy [B, Hq, Tq, Dk], k.npy, v.npy [B, Hkv, Tk, Dk|Dv];
+// binary16 as '<f2', bfloat16 as '<u2' bit patterns, float32 '<f4', float64
+// '<f8', int8 codes '|i1' with q_scale.npy '<f4' (shape as quant.h) and, when
+// asymmetric, q_zero_point.npy '<i4' (likewise k_, v_); key_lengths.npy '<i8'
+// [B], mask.npy '|b1' [B, 1|Hq, Tq, Tk], bias.npy '<f4' [B, 1|Hq, Tq, Tk].
+// Block: x_q.npy [B, Tq, Dm], x_kv.npy [B, Tk, Dm], w_q.npy [Dm, Hq·Dk],
+// w_k.npy, w_v.npy, w_o.npy [Hq·Dv, Dm], b_*.npy [n] when present.
+// Outputs: o.npy [B, Hq, Tq, Dv] / y.npy [B, Tq, Dm] with the dtype of the
+// output format, lse.npy '<f4' [B, Hq, Tq]. Anything else — missing,
+// truncated, another dtype or shape — is bad_output naming the file.
+// The exchange folder is created under the temp directory and always removed.
+#pragma once
+
+#include <filesystem>
+#include <string>
+
+#include "headroom/attach.h"
+#include "headroom/kernel.h"
+
+namespace headroom {
+
+/// The exchange's version: "protocol" in describe's JSON and in problem.json.
+inline constexpr int kExternalProtocolVersion = 1;
+/// The exit status with which `CMD run DIR` declines a problem.
+inline constexpr int kExternalExitUnsupported = 77;
+
+/// Returns: the declaration in `text`, one JSON object with the fields
+///   "protocol" 1, "name", "level" ("core"|"block"), "input_format",
+///   "output_format" (format names of format.h), "mask_kinds" (array of mask
+///   kind names of problem.h), "masked_row" ("zeros"|"nan"|"never_called");
+///   optional "description" (""), "returns_lse" (false), "max_kv_len" (0 = no
+///   limit), "layouts" (["BHTD"]: the only layout of .npy files);
+///   int8 input: "q_quant", "k_quant", "v_quant" each {"granularity":
+///   "per_tensor"|"per_head"|"per_token"|"per_channel", "asymmetric": bool}.
+/// Throws InputError with `origin` as the file and the field as the place
+/// for malformed JSON, a missing, unknown or mistyped field, an unknown name,
+/// and every rule of check_declaration.
+KernelDeclaration declaration_from_json(const std::string& text, const std::string& origin);
+
+/// Returns: `d` as `CMD describe` would print it (declaration_from_json reads
+/// it back to an equal declaration).
+std::string declaration_to_json(const KernelDeclaration& d);
+
+/// Writes problem.json and the input files of one call into `dir` (existing).
+/// Preconditions: c = receive(case, d).
+void write_exchange(const std::filesystem::path& dir, const ReceivedCase& c, const KernelDeclaration& d);
+
+/// Returns: the outputs read back from `dir`: status ok with out (and lse),
+/// or bad_output with a detail naming the file and what is wrong with it.
+KernelRun read_exchange(const std::filesystem::path& dir, const ReceivedCase& c, const KernelDeclaration& d);
+
+}  // namespace headroom
