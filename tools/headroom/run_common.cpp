@@ -1,0 +1,132 @@
+// headroom — shared plumbing of qualify, hunt and replay (run_common.h).
+#include "run_common.h"
+
+#include <unistd.h>
+
+#include <filesystem>
+#include <iostream>
+#include <thread>
+
+#include "headroom/bundled_registry.h"
+#include "headroom/input_error.h"
+
+namespace headroom::cli {
+
+void add_run_flags(CLI::App* cmd, RunFlags& f) {
+  cmd->add_option("--kernel", f.kernel, "bundled kernel name (see `headroom kernels`) or path to a plug-in .so");
+  cmd->add_option("--kernel-cmd", f.kernel_cmd, "external kernel program, e.g. 'python3 my_kernel.py'");
+  cmd->add_option("--budget", f.budget, "budget file (TOML; docs/budget-format.md); default: built-in budgets");
+  cmd->add_option("--json", f.json, "write the result record (docs/result-schema.md) here");
+  cmd->add_option("--markdown", f.markdown, "write a review report in Markdown here");
+  cmd->add_option("--html", f.html, "write a self-contained HTML report here");
+  cmd->add_option("--junit", f.junit, "write JUnit XML here (one test per family x format)");
+  cmd->add_option("--shard", f.shard, "run only slice i of n (1-based), e.g. 2/4; join with `headroom merge`");
+  cmd->add_flag("--resume", f.resume, "continue an interrupted run from its journal");
+  cmd->add_option("--journal", f.journal, "journal of finished cases (default: <json>.journal)");
+  cmd->add_option("--time-limit", f.time_limit, "seconds one kernel call may take before it is a timeout")
+      ->check(CLI::PositiveNumber);
+  cmd->add_flag("--no-isolation", f.no_isolation, "run the kernel in-process (faster; a crash ends headroom)");
+  cmd->add_option("--threads", f.threads, "reference threads (default: all cores)");
+  cmd->add_option("--determinism-runs", f.determinism_runs, "identical runs compared for non-determinism (>= 2 checks)")
+      ->check(CLI::Range(1, 100));
+  cmd->add_flag("--quiet", f.quiet, "print only the verdict line");
+}
+
+namespace {
+
+bool same_reception(const KernelDeclaration& a, const KernelDeclaration& b) {
+  return a.level == b.level && a.input_format == b.input_format && a.output_format == b.output_format &&
+         a.q_quant == b.q_quant && a.k_quant == b.k_quant && a.v_quant == b.v_quant;
+}
+
+// The plain kernel a ratio is taken to: the bundled textbook kernel of the same
+// formats, else the first sound bundled kernel that receives inputs the same way.
+std::unique_ptr<AttachedKernel> plain_for(const KernelDeclaration& d) {
+  const BundledKernel* best = nullptr;
+  for (const auto& b : bundled_kernels()) {
+    if (b.flawed || !same_reception(b.declaration, d)) continue;
+    if (!best || (b.declaration.name.find("textbook") != std::string::npos &&
+                  best->declaration.name.find("textbook") == std::string::npos))
+      best = &b;
+  }
+  return best ? attach_in_process(best->kernel) : nullptr;
+}
+
+std::string journal_path(const RunFlags& f, const std::string& command) {
+  if (!f.journal.empty()) return f.journal;
+  if (!f.json.empty()) return f.json + ".journal";
+  return "headroom-" + command + ".journal";
+}
+
+}  // namespace
+
+std::string setup_identity(const RunFlags& f) {
+  return "kernel " + (f.kernel.empty() ? "cmd " + f.kernel_cmd : f.kernel) + " budget " + f.budget + " isolation " +
+         (f.no_isolation ? "off" : "on") + " determinism " + std::to_string(f.determinism_runs);
+}
+
+RunSetup open_run(const RunFlags& f, const std::string& command, const std::string& identity) {
+  RunSetup s;
+  if (f.kernel.empty() == f.kernel_cmd.empty())
+    throw InputError("command line", "--kernel / --kernel-cmd", "give exactly one of them",
+                     "name a bundled kernel or a plug-in with --kernel, or a program with --kernel-cmd");
+  if (!f.kernel_cmd.empty()) {
+    s.kernel = attach_program(f.kernel_cmd, f.time_limit);
+    s.spec = f.kernel_cmd;
+  } else {
+    s.kernel = attach_kernel(f.kernel);
+    s.spec = f.kernel;
+  }
+  s.plain = plain_for(s.kernel->declaration());
+  s.budget = f.budget.empty() ? Budget{} : load_budget(f.budget);
+
+  RunnerOptions& r = s.runner;
+  r.judge.detect.run.isolate = !f.no_isolation;
+  r.judge.detect.run.time_limit_s = f.time_limit;
+  r.judge.detect.determinism_runs = f.determinism_runs;
+  r.judge.detect.reference.threads = f.threads ? f.threads : std::max(1u, std::thread::hardware_concurrency());
+  r.judge.plain = s.plain.get();
+  r.shard = parse_shard(f.shard);
+  r.kernel_spec = s.spec;
+  r.apply_budget = budget_applier(s.budget.for_kernel(s.kernel->declaration()));
+  s.journal = std::make_unique<Journal>(journal_path(f, command), command + " " + identity + " shard " + r.shard.text(),
+                                        f.resume);
+  r.journal = s.journal.get();
+  if (!f.quiet && ::isatty(STDERR_FILENO)) {
+    r.progress = [](std::size_t done, std::size_t total, const CaseRecord& c) {
+      std::cerr << "\r\033[K[" << done << "/" << total << "] " << c.name << std::flush;
+      if (done == total) std::cerr << "\r\033[K";
+    };
+  }
+  return s;
+}
+
+int finish_run(RunRecord& record, const RunFlags& f, const RunSetup& setup) {
+  record.budget = setup.budget.source;
+  if (!f.json.empty()) write_run_record(record, f.json);
+  // The record is safe on disk: the journal has done its job.
+  if (setup.journal) {
+    std::error_code ec;
+    std::filesystem::remove(setup.journal->path(), ec);
+  }
+  const std::string verdict = record.verdict();
+  if (!f.quiet) {
+    double worst_ulp = 0, worst_scaled = 0;
+    for (const auto& c : record.cases) {
+      worst_ulp = std::max(worst_ulp, c.figures.max_ulp);
+      worst_scaled = std::max(worst_scaled, c.figures.max_scaled_error);
+    }
+    std::cout << record.kernel << " (" << record.input_format << " -> " << record.output_format << "): "
+              << record.cases.size() << " cases, " << record.skipped.size() << " skipped, worst ULP " << worst_ulp
+              << ", worst scaled error " << worst_scaled << '\n';
+    for (const auto& [name, n] : record.fault_totals()) std::cout << "  fault " << name << ": " << n << " case(s)\n";
+    for (const auto& c : record.cases)
+      if (!c.within_budget)
+        std::cout << "FAIL kernel=" << record.kernel << " family=" << c.family << " seed=" << c.seed << " case=" << c.name
+                  << (c.reasons.empty() ? "" : " reason=\"" + c.reasons.front() + "\"") << " replay: " << c.replay << '\n';
+  }
+  std::cout << "verdict: " << verdict << " (evidence over the cases tried, not a proof)\n";
+  return verdict == "pass" ? 0 : 1;
+}
+
+}  // namespace headroom::cli

@@ -1,0 +1,57 @@
+// headroom — the options and plumbing that qualify, hunt and replay share.
+#pragma once
+
+#include <memory>
+#include <string>
+
+#include <CLI/CLI.hpp>
+
+#include "headroom/attach.h"
+#include "headroom/budget.h"
+#include "headroom/journal.h"
+#include "headroom/qualify.h"
+#include "headroom/record.h"
+
+namespace headroom::cli {
+
+struct RunFlags {
+  std::string kernel;        ///< --kernel: a bundled name or a shared library path
+  std::string kernel_cmd;    ///< --kernel-cmd: an external program
+  std::string budget;        ///< --budget FILE
+  std::string json;          ///< --json OUT
+  std::string markdown, html, junit;
+  std::string shard = "1/1";
+  bool resume = false;
+  std::string journal;       ///< --journal FILE (default: <json>.journal, or headroom-<command>.journal)
+  double time_limit = 20.0;
+  bool no_isolation = false;
+  unsigned threads = 0;      ///< reference threads; 0 = all cores
+  int determinism_runs = 2;
+  bool quiet = false;
+};
+
+/// Adds the shared options to `cmd`, bound to `f`.
+void add_run_flags(CLI::App* cmd, RunFlags& f);
+
+/// Returns: the kernel and options that make two runs the same run (for the journal's identity).
+std::string setup_identity(const RunFlags& f);
+
+/// Everything a run needs, opened from the flags.
+struct RunSetup {
+  std::unique_ptr<AttachedKernel> kernel;
+  std::unique_ptr<AttachedKernel> plain;  ///< the bundled textbook kernel of the same formats, or null
+  std::string spec;                       ///< how the user named the kernel, for replay commands
+  Budget budget;
+  std::unique_ptr<Journal> journal;
+  RunnerOptions runner;
+};
+
+/// Returns: the setup for `command` ("qualify", "hunt", "replay"); `identity`
+/// identifies the run for the journal. Throws InputError for bad flags or files.
+RunSetup open_run(const RunFlags& f, const std::string& command, const std::string& identity);
+
+/// Writes the JSON record and the reports the flags ask for, prints the
+/// terminal summary, and returns the exit code: 0 pass, 1 fail.
+int finish_run(RunRecord& record, const RunFlags& f, const RunSetup& setup);
+
+}  // namespace headroom::cli
