@@ -1,0 +1,168 @@
+// headroom — limits as functions of the case shape, and the built-in default budgets (budget.h).
+#include <algorithm>
+#include <cmath>
+#include <cstdio>
+#include <limits>
+#include <stdexcept>
+#include <string>
+
+#include "headroom/budget.h"
+
+namespace headroom {
+namespace {
+
+constexpr double kInf = std::numeric_limits<double>::infinity();
+
+// Precision p of each output format (u = 2^-p; format.h), for working_bits = 0.
+int output_bits(double u_output) { return -std::ilogb(u_output); }
+
+Limit probabilistic(double lambda, int working_bits, std::string origin) {
+  Limit l;
+  l.kind = Limit::Kind::probabilistic;
+  l.lambda = lambda;
+  l.working_bits = working_bits;
+  l.origin = std::move(origin);
+  return l;
+}
+
+Limit fixed(double value, std::string origin) {
+  Limit l;
+  l.kind = Limit::Kind::fixed;
+  l.value = value;
+  l.origin = std::move(origin);
+  return l;
+}
+
+Limit none(std::string origin) {
+  Limit l;
+  l.origin = std::move(origin);
+  return l;
+}
+
+// λ for the maximum over a case. The Higham–Mary bound holds for one sum with
+// probability ≥ 1 − 2n·exp(−λ²(1−u)²/2) under independent mean-zero rounding
+// errors; λ = 4 is a few standard deviations of the observed errors (which
+// typically sit near √n·u with a constant below one), and leaves the γ_n
+// ceiling in charge for n < 16, where a worst case is cheap to allow.
+constexpr double kLambdaMax = 4.0;
+// λ for the RMS: the RMS is a typical error, not an extreme one, so one
+// standard deviation of the model, λ = 1.
+constexpr double kLambdaRms = 1.0;
+// "No worse than k× the plain kernel" is a common rule of thumb; k = 4 with the
+// plain figure floored at correct rounding (PlainRatio) leaves room for a
+// different summation order (√-type noise of the same size) and refuses a
+// kernel that loses two bits against the textbook method.
+constexpr double kPlainRatio = 4.0;
+
+}  // namespace
+
+std::int64_t accumulation_length(const CoreShape& s) {
+  // Dk products summed per score, Tk exponentials summed for the normaliser,
+  // Tk products summed for P·V, and 5 single roundings on the way (scale
+  // multiply, max subtraction, exp counted twice, division). Errors of a chain
+  // add: γ_a + γ_b ≤ γ_{a+b} (Higham 2002, Lemma 3.3).
+  return 2 * s.kv_len + s.key_dim + 5;
+}
+
+std::int64_t accumulation_length(const BlockShape& s) {
+  return accumulation_length(s.core()) + s.model_dim + s.q_heads * s.value_dim;
+}
+
+std::int64_t accumulation_length(const Case& c) {
+  return c.level == Level::core ? accumulation_length(c.core.shape) : accumulation_length(c.block.shape);
+}
+
+double gamma_n(std::int64_t n, double u) {
+  const double nu = static_cast<double>(n) * u;
+  return nu >= 1 ? kInf : nu / (1 - nu);
+}
+
+double gamma_tilde_n(double lambda, std::int64_t n, double u) {
+  const double nd = static_cast<double>(n);
+  return std::expm1(lambda * std::sqrt(nd) * u + nd * u * u / (1 - u));
+}
+
+double Limit::relative_at(std::int64_t n, double u_output) const {
+  switch (kind) {
+    case Kind::none: return kInf;
+    case Kind::fixed: return value;
+    case Kind::probabilistic: {
+      const double u = std::ldexp(1.0, -(working_bits > 0 ? working_bits : output_bits(u_output)));
+      const double prob = gamma_tilde_n(lambda, n, u);
+      return ceiling ? std::min(prob, gamma_n(n, u)) : prob;
+    }
+  }
+  return kInf;
+}
+
+std::string Limit::describe(std::int64_t n, double u_output) const {
+  char buf[160];
+  switch (kind) {
+    case Kind::none: return "none";
+    case Kind::fixed: std::snprintf(buf, sizeof buf, "%.6g", value); return buf;
+    case Kind::probabilistic: {
+      const int bits = working_bits > 0 ? working_bits : output_bits(u_output);
+      const double u = std::ldexp(1.0, -bits);
+      const bool capped = ceiling && gamma_n(n, u) < gamma_tilde_n(lambda, n, u);
+      std::snprintf(buf, sizeof buf, "%s with lambda %g, n = %lld, u = 2^-%d",
+                    capped ? "gamma_n (the worst-case ceiling)" : "the probabilistic bound", lambda,
+                    static_cast<long long>(n), bits);
+      return buf;
+    }
+  }
+  return "?";
+}
+
+bool KernelBudget::tolerates(FaultClass c) const {
+  return std::find(tolerated_faults.begin(), tolerated_faults.end(), c) != tolerated_faults.end();
+}
+
+double KernelBudget::scaled_error_limit(std::int64_t n, Format output_format) const {
+  const double u = unit_roundoff(output_format);
+  if (max_scaled_error.kind != Limit::Kind::probabilistic) return max_scaled_error.relative_at(n, u);
+  return max_scaled_error.relative_at(n, u) / u;
+}
+
+double KernelBudget::rel_rmse_limit(std::int64_t n, const CaseScore& s) const {
+  if (max_rel_rmse.kind != Limit::Kind::probabilistic) return max_rel_rmse.relative_at(n, s.unit_roundoff);
+  const double kappa = s.rms_expected > 0 ? std::max(1.0, s.rms_magnitude / s.rms_expected) : kInf;
+  return max_rel_rmse.relative_at(n, s.unit_roundoff) * kappa;
+}
+
+KernelBudget default_budget(Format input) {
+  const std::string origin = "default for " + std::string(format_name(input));
+  KernelBudget b;
+  // ULP distance punishes cancellation: an output near zero from cancelling
+  // values has a huge ULP error at a tiny scaled error, so no default — the
+  // scaled error is the figure that transfers across shapes (DESIGN.md). Set
+  // max_ulp in a file for suites without cancellation.
+  b.max_ulp = none(origin);
+  b.max_ratio_to_plain = fixed(kPlainRatio, origin);
+  b.tolerated_origin = origin;
+  switch (input) {
+    // float64, float32: the kernel computes in its output format; u_w = u_F.
+    case Format::float64:
+    case Format::float32:
+    // binary16, bfloat16: u_w = u_F covers both a kernel accumulating in the
+    // half format (errors ~√n·u_F) and one accumulating in float32 (errors
+    // ~1 unit, the final rounding). γ_n has no finite value once n·u ≥ 1
+    // (binary16 n ≥ 2048, bfloat16 n ≥ 256): there the λ√n·u bound stands alone.
+    case Format::binary16:
+    case Format::bfloat16:
+      b.max_scaled_error = probabilistic(kLambdaMax, 0, origin);
+      b.max_rel_rmse = probabilistic(kLambdaRms, 0, origin);
+      break;
+    // int8: the output is float32, but an int8 kernel may also quantise the
+    // probabilities to 8-bit codes for an integer P·V (as i8_tokenwise does):
+    // rounding p̃_j to a multiple of max p̃ / 255 costs up to max p̃ / 510 ≈
+    // 2^-9 of the row's largest weight per key. So u_w = 2^-9: the working
+    // precision of such a product, not float32's.
+    case Format::int8:
+      b.max_scaled_error = probabilistic(kLambdaMax, 9, origin);
+      b.max_rel_rmse = probabilistic(kLambdaRms, 9, origin);
+      break;
+  }
+  return b;
+}
+
+}  // namespace headroom

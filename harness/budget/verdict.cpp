@@ -1,0 +1,118 @@
+// headroom — the verdict on one case: scores and faults against a kernel's budget (budget.h).
+#include <cmath>
+#include <cstdio>
+#include <string>
+
+#include "headroom/budget.h"
+
+namespace headroom {
+namespace {
+
+std::string number(double v) {
+  char buf[40];
+  std::snprintf(buf, sizeof buf, "%.4g", v);
+  return buf;
+}
+
+// "max_scaled_error 37.2 exceeds 20.5 (1.81x; <how the limit was set>, <origin>) at <where>".
+VerdictReason over_limit(const std::string& what, double value, double limit, const std::string& how,
+                         const std::string& origin, const std::string& where) {
+  VerdictReason r;
+  r.what = what;
+  r.value = value;
+  r.limit = limit;
+  r.text = what + " " + number(value) + " exceeds " + number(limit);
+  if (limit > 0) r.text += " (" + number(value / limit) + "x the limit)";
+  r.text += "; limit " + how + ", " + origin;
+  if (!where.empty()) r.text += "; worst " + where;
+  return r;
+}
+
+void add_fault(Verdict& v, const KernelBudget& b, FaultClass c, std::int64_t count, const std::string& detail) {
+  const std::string name(fault_class_name(c));
+  if (b.tolerates(c)) {
+    v.notes.push_back("tolerated fault " + name + " (" + b.tolerated_origin + "): " + detail);
+    return;
+  }
+  VerdictReason r;
+  r.what = name;
+  r.value = static_cast<double>(count);
+  r.text = "fault " + name + " (not tolerated; " + b.tolerated_origin + "): " + detail;
+  v.reasons.push_back(std::move(r));
+}
+
+}  // namespace
+
+Verdict judge(const CaseScore* score, const CaseFaults& faults, const KernelBudget& budget, std::int64_t n,
+              const PlainRatio* ratio) {
+  Verdict v;
+  for (const Fault& f : faults.faults) add_fault(v, budget, f.kind, f.count, f.detail);
+  if (faults.bad_output_runs > 0) {
+    VerdictReason r;
+    r.what = "bad_output";
+    r.value = faults.bad_output_runs;
+    r.text = "bad_output: the kernel's output was missing, malformed or mis-shaped in " +
+             std::to_string(faults.bad_output_runs) + " run(s)";
+    v.reasons.push_back(std::move(r));
+  }
+  if (faults.unsupported_runs > 0) v.notes.push_back("the kernel declined the case (unsupported): not scored");
+  for (const std::string& note : faults.notes) v.notes.push_back(note);
+
+  if (score == nullptr) {
+    v.scored = false;
+    v.pass = v.reasons.empty();
+    return v;
+  }
+  const CaseScore& s = *score;
+  // Non-finite outputs are a fault even if no detector ran: never averaged away.
+  if (s.non_finite + s.lse_non_finite > 0 && faults.find(FaultClass::non_finite) == nullptr) {
+    std::string where;
+    for (std::size_t i = 0; i < s.first_non_finite.size(); ++i)
+      where += (i ? "," : "[") + std::to_string(s.first_non_finite[i]);
+    add_fault(v, budget, FaultClass::non_finite, s.non_finite + s.lse_non_finite,
+              std::to_string(s.non_finite) + " non-finite outputs" + (where.empty() ? "" : ", first at " + where + "]"));
+  }
+  if (!s.reference_certified) v.notes.push_back("the reference did not meet its certification target on every element");
+
+  const double scaled_limit = budget.scaled_error_limit(n, s.format);
+  if (s.max_scaled_error > scaled_limit) {
+    v.reasons.push_back(over_limit("max_scaled_error", s.max_scaled_error, scaled_limit,
+                                   budget.max_scaled_error.describe(n, s.unit_roundoff), budget.max_scaled_error.origin,
+                                   describe(s.worst_scaled)));
+  }
+  const double rmse_limit = budget.rel_rmse_limit(n, s);
+  if (s.relative_rmse > rmse_limit) {
+    v.reasons.push_back(over_limit("max_rel_rmse", s.relative_rmse, rmse_limit,
+                                   budget.max_rel_rmse.describe(n, s.unit_roundoff), budget.max_rel_rmse.origin, ""));
+  }
+  const double ulp_limit = budget.max_ulp.relative_at(n, s.unit_roundoff);
+  if (static_cast<double>(s.max_ulp_certain) > ulp_limit) {
+    v.reasons.push_back(over_limit("max_ulp", static_cast<double>(s.max_ulp), ulp_limit,
+                                   budget.max_ulp.describe(n, s.unit_roundoff), budget.max_ulp.origin,
+                                   describe(s.worst_ulp)));
+  } else if (static_cast<double>(s.max_ulp) > ulp_limit) {
+    v.notes.push_back("max_ulp " + std::to_string(s.max_ulp) + " exceeds " + number(ulp_limit) +
+                      " only within the reference's +-1 ULP uncertainty: not counted");
+  }
+  if (budget.max_ratio_to_plain.kind != Limit::Kind::none) {
+    const double limit = budget.max_ratio_to_plain.relative_at(n, s.unit_roundoff);
+    if (ratio == nullptr) {
+      v.notes.push_back("max_ratio_to_plain not checked: no run of the plain kernel on this case");
+    } else {
+      const std::string how = budget.max_ratio_to_plain.describe(n, s.unit_roundoff);
+      if (ratio->max_scaled_error > limit) {
+        v.reasons.push_back(over_limit("max_ratio_to_plain", ratio->max_scaled_error, limit,
+                                       how + " (max scaled error against the plain kernel's)",
+                                       budget.max_ratio_to_plain.origin, ""));
+      }
+      if (ratio->rmse > limit) {
+        v.reasons.push_back(over_limit("max_ratio_to_plain", ratio->rmse, limit,
+                                       how + " (RMSE against the plain kernel's)", budget.max_ratio_to_plain.origin, ""));
+      }
+    }
+  }
+  v.pass = v.reasons.empty();
+  return v;
+}
+
+}  // namespace headroom

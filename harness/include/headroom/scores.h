@@ -1,0 +1,159 @@
+// headroom — error scores of a kernel's output against the certified reference.
+//
+// Every figure is of an obtained output o against the exact value o* (the
+// reference's `out`, certified to |out − o*| ≤ bound + 2^-53·|out|), in the
+// kernel's output format F with unit roundoff u = unit_roundoff(F):
+//   absolute error   |o − o*|
+//   relative error   |o − o*| / |o*|                 (0 when both are 0, +inf when only o* is)
+//   ULP distance     steps between o and round_F(o*)  (see ulp_distance)
+//   scaled error     |o − o*| / max(u·M, η_F)         M = Σ_j p_j |v_j| (reference.magnitude),
+//                                                     η_F = smallest positive subnormal of F
+// A result correctly rounded to F has scaled error ≤ 1: |round_F(x) − x| ≤ u·|x|
+// in the normal range (Higham 2002, Thm 2.2) and ≤ η_F/2 in the subnormal range,
+// and |o*| ≤ M. The η_F floor is the guard for M = 0 (o* = 0 exactly): there a
+// kernel's error is counted in subnormal steps of F, never divided by zero.
+//
+// Excluded from every statistic and counted instead: elements of fully masked
+// rows (judged by the convention detector, faults.h) and non-finite outputs
+// where the reference is finite (a non_finite fault). A fault is never averaged
+// into an error figure.
+#pragma once
+
+#include <array>
+#include <cstdint>
+#include <optional>
+#include <string>
+#include <vector>
+
+#include "headroom/format.h"
+#include "headroom/reference.h"
+#include "headroom/tensor.h"
+
+namespace headroom {
+
+/// Returns: the rank of round_F(x) among the values of F in increasing order,
+/// counted from zero: +0 and −0 are 0, the smallest positive subnormal 1, the
+/// largest finite value M_F, +inf M_F + 1; negative values mirror (rank −k).
+/// For IEEE formats this is the magnitude of the bit pattern, signed.
+/// Preconditions: x is not NaN. Exact (integer arithmetic on exact doubles).
+std::int64_t format_rank(double x, Format f);
+
+/// Returns: |format_rank(a) − format_rank(b)|, the number of steps between
+/// round_F(a) and round_F(b): 0 for equal values (and for +0 against −0), 1 for
+/// neighbours, 2 from the smallest negative subnormal to the smallest positive
+/// one (through zero), 1 from 2^k to its successor and from 2^k to its
+/// predecessor even though those gaps differ by a factor 2.
+/// Preconditions: a and b not NaN.
+std::int64_t ulp_distance(double a, double b, Format f);
+
+/// The error of one output element.
+struct ElementError {
+  double abs = 0;              ///< |o − o*|
+  double rel = 0;              ///< |o − o*| / |o*|
+  double scaled = 0;           ///< |o − o*| / max(u·M, η_F)
+  std::int64_t ulp = 0;        ///< ulp_distance(o, o*, F)
+  bool ulp_uncertain = false;  ///< the certified interval of o* straddles a rounding boundary of F:
+                               ///< the ULP figure may be off by one
+};
+
+/// Returns: the error of o against a reference value `ref` with certified bound
+/// `bound` and magnitude M = `magnitude`, in output format f.
+/// Preconditions: o, ref finite; bound, magnitude ≥ 0.
+ElementError element_error(double o, double ref, double bound, double magnitude, Format f);
+
+/// Upper edges of ulp_histogram's buckets: 0, 0.5, 1, 2, 4, …, 2^20, +inf
+/// (the result record's buckets; ULP distances are integers, so the 0.5 bucket
+/// stays empty).
+std::vector<double> ulp_histogram_edges();
+
+/// One element of the output, located, for a failure line.
+struct WorstElement {
+  std::vector<std::int64_t> index;  ///< (b, h, i, d) core, (b, i, m) block; empty when no element scored
+  double expected = 0;              ///< the reference o* (rounded to double)
+  double expected_in_format = 0;    ///< round_F(o*)
+  double obtained = 0;              ///< o
+  ElementError error;
+};
+
+/// The scores of one output against its reference.
+struct CaseScore {
+  Format format = Format::float32;  ///< the output format F
+  double unit_roundoff = 0;         ///< u_F
+  bool reference_certified = true;  ///< every reference bound met its target
+
+  std::int64_t elements = 0;        ///< elements scored (in every statistic below)
+  std::int64_t masked_rows = 0;     ///< fully masked query rows (excluded)
+  std::int64_t masked_elements = 0; ///< output elements excluded because a row they depend on is fully masked
+  std::int64_t non_finite = 0;      ///< NaN/Inf outputs where the reference is finite (excluded)
+  std::vector<std::int64_t> first_non_finite;  ///< index of the first, empty when none
+
+  std::int64_t max_ulp = 0;
+  std::int64_t max_ulp_certain = 0; ///< max of (ulp − 1 when uncertain, else ulp): certainly reached
+  std::int64_t ulp_uncertain = 0;   ///< elements whose ULP figure is uncertain by one
+  double max_scaled_error = 0;
+  double max_abs_error = 0;
+  double rmse = 0;                  ///< √(mean (o − o*)²)
+  double relative_rmse = 0;         ///< rmse / RMS(o*); 0 when both 0, +inf when only RMS(o*) is
+  double relative_l1 = 0;           ///< Σ|o − o*| / Σ|o*|; 0 when both 0, +inf when only Σ|o*| is
+  double cosine = 1;                ///< Σ o·o* / (‖o‖‖o*‖); 1 when both are zero vectors, 0 when one is
+  double rms_expected = 0;          ///< RMS(o*)
+  double rms_magnitude = 0;         ///< RMS(M): RMS(M)/RMS(o*) ≥ 1 measures the case's cancellation
+  std::optional<double> lse_error;  ///< max |L − L*| over rows not fully masked; absent when no lse given
+  std::int64_t lse_non_finite = 0;  ///< non-finite L where L* is finite (excluded from lse_error)
+
+  WorstElement worst_scaled;        ///< the element of max_scaled_error
+  WorstElement worst_ulp;           ///< the element of max_ulp
+  std::array<std::int64_t, 24> ulp_histogram{};  ///< elements per bucket of ulp_histogram_edges()
+};
+
+/// Returns: the scores of core output `out` [B, Hq, Tq, Dv] (and, when `lse`
+/// is non-null and non-empty, of log-sum-exp [B, Hq, Tq]) against `ref`, in
+/// output format f. Throws std::invalid_argument when shapes differ from the
+/// reference's (a caller's error: attach rejects mis-shaped output as bad_output).
+CaseScore score_core(const Tensor& out, const Tensor* lse, const CoreReference& ref, Format f);
+
+/// Returns: the scores of block output `out` [B, Tq, Dm] against `ref`. A row
+/// Y[b, i, :] is excluded when query i is fully masked in any head of batch b.
+/// Throws std::invalid_argument on a shape mismatch.
+CaseScore score_block(const Tensor& out, const BlockReference& ref, Format f);
+
+/// Returns: "[0,1,5,3] expected 0x1.8p-3 (in format 0x1.8p-3) obtained 0x1.9p-3,
+/// 2 ulp, scaled 3.1": one line, hex floats exact (STYLE.md: failure lines).
+std::string describe(const WorstElement& w);
+/// Returns: x as a C99 hex float ("%a"), e.g. "0x1.8p-3".
+std::string hex_float(double x);
+
+/// Ratios of a kernel's figures to those of the bundled textbook (plain) kernel
+/// of the same output format on the same case.
+struct PlainRatio {
+  double max_scaled_error = 0;  ///< kernel / max(plain, 1): the plain kernel is credited with at
+                                ///< least correct rounding (scaled error 1), so an exact plain result
+                                ///< does not turn a correctly rounded one into an infinite ratio
+  double rmse = 0;              ///< kernel / max(plain, u_F·RMS(o*)), the same floor for RMSE;
+                                ///< 0 when both are 0 and the floor is 0, +inf when only the kernel's is
+};
+
+/// Returns: the ratios of `kernel` to `plain`.
+/// Throws std::invalid_argument when the two are of different output formats.
+PlainRatio ratio_to_plain(const CaseScore& kernel, const CaseScore& plain);
+
+/// A half-precision or int8 kernel's error against the exact result on the
+/// ORIGINAL source values, split into what input rounding/quantisation cost and
+/// what the kernel's own arithmetic cost. The statistics do not add (maxima and
+/// RMS of sums), so all three are given.
+struct QuantSplit {
+  CaseScore total;       ///< kernel output vs reference(source)
+  CaseScore input;       ///< reference(received) vs reference(source): input-quantisation error
+  CaseScore arithmetic;  ///< kernel output vs reference(received): the kernel's arithmetic error
+};
+
+/// Returns: the split for core output `out` (and optional `lse`), with
+/// `of_received` the reference on what the kernel received and `of_source` the
+/// reference on the case's source values (same problem, same mask).
+/// Throws std::invalid_argument on a shape mismatch.
+QuantSplit split_quantisation(const Tensor& out, const Tensor* lse, const CoreReference& of_received,
+                              const CoreReference& of_source, Format f);
+QuantSplit split_quantisation(const Tensor& out, const BlockReference& of_received,
+                              const BlockReference& of_source, Format f);
+
+}  // namespace headroom

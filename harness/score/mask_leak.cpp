@@ -1,0 +1,338 @@
+// headroom — the mask-leak detector: re-runs with poisoned masked keys, compared bit for bit (faults.h).
+//
+// Only keys masked for a row may be poisoned when that row is checked: a key
+// masked for one query may be visible to another (causal masks), and poisoning
+// it changes the other's output legitimately. So probes are sets S of keys,
+// one per distinct "masked set" of a row; a probe checks exactly the rows whose
+// masked set contains S. Key padding has one set per batch (one probe covers
+// every row), causal masks one per query row, dense masks up to one per row.
+#include <algorithm>
+#include <array>
+#include <cmath>
+#include <cstdio>
+#include <cstring>
+#include <map>
+#include <string>
+
+#include "headroom/faults.h"
+#include "headroom/scores.h"
+
+namespace headroom {
+namespace {
+
+enum class Variant : unsigned char { v_only, k_plus, k_minus };
+
+struct Group {
+  std::int64_t b = 0, g = -1;                       // core: batch and kv head; block: g = −1
+  std::vector<std::int64_t> heads;                  // core: the query heads of kv head g; block: {-1}
+  std::vector<std::array<std::int64_t, 2>> rows;    // (h, i)
+  std::vector<std::vector<std::uint8_t>> masked;    // per row: masked[j]
+  std::vector<std::vector<std::int64_t>> patterns;  // distinct non-empty masked sets, largest first
+};
+
+std::vector<Group> build_groups(const ReceivedCase& c) {
+  const bool block = c.received.level == Level::block;
+  const CoreShape s = block ? c.received.block.shape.core() : c.received.core.shape;
+  const Mask& m = block ? c.received.block.mask : c.received.core.mask;
+  std::vector<Group> groups;
+  for (std::int64_t b = 0; b < s.batch; ++b) {
+    for (std::int64_t g = 0; g < (block ? 1 : s.kv_heads); ++g) {
+      Group gr;
+      gr.b = b;
+      gr.g = block ? -1 : g;
+      for (std::int64_t h = 0; h < s.q_heads; ++h)
+        if (block || kv_head_of(s, h) == g) gr.heads.push_back(h);
+      std::map<std::vector<std::uint8_t>, std::size_t> seen;
+      const std::vector<std::int64_t> row_heads = block ? std::vector<std::int64_t>{-1} : gr.heads;
+      for (std::int64_t h : row_heads) {
+        for (std::int64_t i = 0; i < s.q_len; ++i) {
+          std::vector<std::uint8_t> mk(static_cast<std::size_t>(s.kv_len));
+          bool any = false;
+          for (std::int64_t j = 0; j < s.kv_len; ++j) {
+            bool hidden = true;
+            if (block) {
+              for (std::int64_t hh = 0; hh < s.q_heads && hidden; ++hh) hidden = !m.visible(s, b, hh, i, j);
+            } else {
+              hidden = !m.visible(s, b, h, i, j);
+            }
+            mk[static_cast<std::size_t>(j)] = hidden ? 1 : 0;
+            any = any || hidden;
+          }
+          gr.rows.push_back({h, i});
+          if (any && seen.emplace(mk, 0).second) {
+            std::vector<std::int64_t> js;
+            for (std::int64_t j = 0; j < s.kv_len; ++j)
+              if (mk[static_cast<std::size_t>(j)]) js.push_back(j);
+            gr.patterns.push_back(std::move(js));
+          }
+          gr.masked.push_back(std::move(mk));
+        }
+      }
+      std::stable_sort(gr.patterns.begin(), gr.patterns.end(),
+                       [](const auto& x, const auto& y) { return x.size() > y.size(); });
+      groups.push_back(std::move(gr));
+    }
+  }
+  return groups;
+}
+
+// A power of two 2^8 above max|t| (so a leaked poison dominates what it
+// replaced), capped to stay finite in the input format.
+double poison_of(const Tensor& t, Format f) {
+  double m = 0;
+  for (double v : t.values) m = std::max(m, std::fabs(v));
+  const int e = m > 0 ? std::ilogb(m) + 1 : 0;
+  const int cap = f == Format::binary16 ? 15 : f == Format::float64 ? 900 : 100;  // 2^15 < 65504
+  return std::ldexp(1.0, std::min(e + 8, cap));
+}
+
+// int8: the code farthest from the zero point in the wanted direction.
+std::int8_t extreme_code(const QuantizedTensor& q, std::int64_t group, bool positive) {
+  const std::int32_t z = q.zero_points.empty() ? 0 : q.zero_points[static_cast<std::size_t>(group)];
+  const std::int8_t lowest = q.scheme.asymmetric ? -128 : -127;
+  if (positive) return z < 127 ? std::int8_t{127} : lowest;
+  return z > lowest ? lowest : std::int8_t{127};
+}
+
+class Poisoner {
+ public:
+  explicit Poisoner(const ReceivedCase& base) : base_(base) {
+    const bool block = base.received.level == Level::block;
+    const Format f = base.input_format;
+    if (block) {
+      px_ = poison_of(base.received.block_inputs.x_kv, f);
+    } else if (f != Format::int8) {
+      pk_ = poison_of(base.received.core_inputs.k, f);
+      pv_ = poison_of(base.received.core_inputs.v, f);
+    }
+  }
+
+  // Poisons keys `js` of group `gr` in `work` (a copy of the base case).
+  void apply(ReceivedCase& work, const Group& gr, const std::vector<std::int64_t>& js, Variant var) const {
+    if (work.received.level == Level::block) {
+      Tensor& x = work.received.block_inputs.x_kv;
+      const double p = var == Variant::k_minus ? -px_ : px_;
+      for (std::int64_t j : js)
+        for (std::int64_t d = 0; d < x.shape[2]; ++d) x.at(gr.b, j, d) = p;
+      return;
+    }
+    CoreInputs& in = work.received.core_inputs;
+    const bool poison_k = var != Variant::v_only;
+    for (std::int64_t j : js) {
+      for (std::int64_t d = 0; d < in.v.shape[3]; ++d) set(work, false, gr.b, gr.g, j, d, true);
+      if (!poison_k) continue;
+      for (std::int64_t d = 0; d < in.k.shape[3]; ++d) set(work, true, gr.b, gr.g, j, d, var == Variant::k_plus);
+    }
+  }
+
+ private:
+  void set(ReceivedCase& work, bool key, std::int64_t b, std::int64_t g, std::int64_t j, std::int64_t d,
+           bool positive) const {
+    Tensor& t = key ? work.received.core_inputs.k : work.received.core_inputs.v;
+    const std::size_t at = static_cast<std::size_t>(t.offset(b, g, j, d));
+    if (base_.input_format != Format::int8) {
+      t.values[at] = key ? (positive ? pk_ : -pk_) : pv_;
+      return;
+    }
+    QuantizedTensor& q = key ? *work.k8 : *work.v8;
+    const std::int64_t grp = q.group(b, g, j, d);
+    const std::int8_t code = extreme_code(q, grp, positive);
+    q.codes[at] = code;
+    const std::int32_t z = q.zero_points.empty() ? 0 : q.zero_points[static_cast<std::size_t>(grp)];
+    // Exact: |c − z| < 2^9 times a 24-bit scale (quant.h).
+    t.values[at] = static_cast<double>(code - z) * static_cast<double>(q.scales[static_cast<std::size_t>(grp)]);
+  }
+
+  const ReceivedCase& base_;
+  double pk_ = 0, pv_ = 0, px_ = 0;
+};
+
+bool same_or_zero(double a, double b) {
+  if (a == 0 && b == 0) return true;  // ±0: 0·v reads a masked v but leaks no mass
+  return std::memcmp(&a, &b, sizeof a) == 0;
+}
+
+struct RowRef {
+  std::size_t out_begin, width;  // the row's span in out
+  std::int64_t lse_at;           // −1 when none
+};
+
+RowRef row_ref(const ReceivedCase& c, const Group& gr, std::size_t r) {
+  const auto [h, i] = gr.rows[r];
+  if (c.received.level == Level::block) {
+    const BlockShape& s = c.received.block.shape;
+    return {static_cast<std::size_t>((gr.b * s.q_len + i) * s.model_dim), static_cast<std::size_t>(s.model_dim), -1};
+  }
+  const CoreShape& s = c.received.core.shape;
+  const std::int64_t row = (gr.b * s.q_heads + h) * s.q_len + i;
+  return {static_cast<std::size_t>(row * s.value_dim), static_cast<std::size_t>(s.value_dim), row};
+}
+
+bool row_changed(const KernelRun& base, const KernelRun& run, const RowRef& rr) {
+  for (std::size_t k = rr.out_begin; k < rr.out_begin + rr.width; ++k)
+    if (!same_or_zero(base.out.values[k], run.out.values[k])) return true;
+  if (rr.lse_at >= 0 && !base.lse.values.empty()) {
+    const std::size_t k = static_cast<std::size_t>(rr.lse_at);
+    if (!same_or_zero(base.lse.values[k], run.lse.values[k])) return true;
+  }
+  return false;
+}
+
+bool contains(const std::vector<std::uint8_t>& masked, const std::vector<std::int64_t>& js) {
+  for (std::int64_t j : js)
+    if (!masked[static_cast<std::size_t>(j)]) return false;
+  return true;
+}
+
+// Certified lower bound on the mass a changed row leaked (V-only run; faults.h).
+double leaked_mass(const ReceivedCase& base, const ReceivedCase& work, const Group& gr,
+                   const std::vector<std::int64_t>& js, const KernelRun& before, const KernelRun& after,
+                   const RowRef& rr) {
+  const Tensor& v0 = base.received.core_inputs.v;
+  const Tensor& v1 = work.received.core_inputs.v;
+  double mass = 0;
+  for (std::size_t d = 0; d < rr.width; ++d) {
+    double den = 0;
+    for (std::int64_t j : js) {
+      const auto dd = static_cast<std::int64_t>(d);
+      den = std::max(den, std::fabs(v1.at(gr.b, gr.g, j, dd) - v0.at(gr.b, gr.g, j, dd)));
+    }
+    const double delta = std::fabs(after.out.values[rr.out_begin + d] - before.out.values[rr.out_begin + d]);
+    if (den > 0 && std::isfinite(delta)) mass = std::max(mass, delta / den);
+  }
+  return mass;
+}
+
+std::string variant_text(Variant v, bool block) {
+  if (block) return v == Variant::k_minus ? "masked X_kv rows set to -P" : "masked X_kv rows set to +P";
+  switch (v) {
+    case Variant::v_only: return "masked V set to P_V";
+    case Variant::k_plus: return "masked K set to +P_K (V to P_V)";
+    case Variant::k_minus: return "masked K set to -P_K (V to P_V)";
+  }
+  return "";
+}
+
+}  // namespace
+
+std::optional<Fault> detect_mask_leak(AttachedKernel& kernel, const ReceivedCase& c, const KernelRun& baseline,
+                                      const DetectorOptions& opt, int* runs, std::vector<std::string>* notes) {
+  const bool block = c.received.level == Level::block;
+  const std::vector<Group> groups = build_groups(c);
+  std::size_t most = 0;
+  for (const Group& g : groups) most = std::max(most, g.patterns.size());
+  if (most == 0 || opt.max_leak_patterns < 1) return std::nullopt;
+  const std::size_t probes = std::min(most, static_cast<std::size_t>(opt.max_leak_patterns));
+  if (probes < most && notes != nullptr) {
+    notes->push_back("mask_leak: probed " + std::to_string(probes) + " of " + std::to_string(most) +
+                     " distinct masked-key sets, evenly spread");
+  }
+  const Poisoner poisoner(c);
+  const std::vector<Variant> variants =
+      block ? std::vector<Variant>{Variant::k_plus, Variant::k_minus}
+            : std::vector<Variant>{Variant::v_only, Variant::k_plus, Variant::k_minus};
+
+  // The pattern of group `gr` probed at step t, or −1.
+  auto pattern_at = [&](const Group& gr, std::size_t t) -> std::ptrdiff_t {
+    const std::size_t n = gr.patterns.size();
+    if (n <= probes) return t < n ? static_cast<std::ptrdiff_t>(t) : -1;
+    if (probes == 1) return 0;
+    return static_cast<std::ptrdiff_t>((t * (n - 1) + (probes - 1) / 2) / (probes - 1));
+  };
+  auto call = [&](const ReceivedCase& work) {
+    KernelRun r = kernel.run(work, opt.run);
+    if (runs != nullptr) ++*runs;
+    return r;
+  };
+  auto broken = [&](const KernelRun& r, Variant var) -> std::optional<Fault> {
+    if (r.status == RunStatus::ok && r.out.shape == baseline.out.shape && r.lse.shape == baseline.lse.shape) {
+      return std::nullopt;
+    }
+    Fault f;
+    f.kind = FaultClass::mask_leak;
+    f.count = 1;
+    f.detail = "with " + variant_text(var, block) + " the run ended " + run_status_name(r.status) +
+               (r.detail.empty() ? "" : ": " + r.detail) + " (run 1: ok)";
+    return f;
+  };
+
+  for (std::size_t t = 0; t < probes; ++t) {
+    for (Variant var : variants) {
+      ReceivedCase work = c;
+      for (const Group& gr : groups) {
+        const std::ptrdiff_t p = pattern_at(gr, t);
+        if (p >= 0) poisoner.apply(work, gr, gr.patterns[static_cast<std::size_t>(p)], var);
+      }
+      const KernelRun run = call(work);
+      if (auto f = broken(run, var)) return f;
+
+      std::int64_t changed = 0;
+      const Group* first_group = nullptr;
+      std::size_t first_row = 0;
+      double mass = 0;
+      for (const Group& gr : groups) {
+        const std::ptrdiff_t p = pattern_at(gr, t);
+        if (p < 0) continue;
+        const std::vector<std::int64_t>& js = gr.patterns[static_cast<std::size_t>(p)];
+        for (std::size_t r = 0; r < gr.rows.size(); ++r) {
+          if (!contains(gr.masked[r], js)) continue;
+          const RowRef rr = row_ref(c, gr, r);
+          if (!row_changed(baseline, run, rr)) continue;
+          if (changed++ == 0) first_group = &gr, first_row = r;
+          if (var == Variant::v_only) mass = std::max(mass, leaked_mass(c, work, gr, js, baseline, run, rr));
+        }
+      }
+      if (changed == 0) continue;
+
+      // Bisect the probe set on the first changed row, poisoning its group only.
+      const Group& gr = *first_group;
+      const RowRef rr = row_ref(c, gr, first_row);
+      std::vector<std::int64_t> cand = gr.patterns[static_cast<std::size_t>(pattern_at(gr, t))];
+      while (cand.size() > 1) {
+        const auto half = static_cast<std::ptrdiff_t>(cand.size() / 2);
+        std::vector<std::int64_t> lower(cand.begin(), cand.begin() + half), upper(cand.begin() + half, cand.end());
+        bool found = false;
+        for (auto* part : {&lower, &upper}) {
+          ReceivedCase work2 = c;
+          poisoner.apply(work2, gr, *part, var);
+          const KernelRun r2 = call(work2);
+          if (r2.status == RunStatus::ok && r2.out.shape == baseline.out.shape && r2.lse.shape == baseline.lse.shape &&
+              row_changed(baseline, r2, rr)) {
+            cand = *part;
+            found = true;
+            break;
+          }
+        }
+        if (!found) break;  // only several keys together move the row
+      }
+
+      Fault f;
+      f.kind = FaultClass::mask_leak;
+      f.count = changed;
+      const auto [h, i] = gr.rows[first_row];
+      std::string row_text = block ? "(b=" + std::to_string(gr.b) + ", i=" + std::to_string(i) + ")"
+                                   : "(b=" + std::to_string(gr.b) + ", h=" + std::to_string(h) + ", i=" + std::to_string(i) + ")";
+      f.where = block ? std::vector<std::int64_t>{gr.b, i} : std::vector<std::int64_t>{gr.b, h, i};
+      if (cand.size() == 1) {
+        f.where.push_back(cand[0]);
+        f.detail = "masked key j=" + std::to_string(cand[0]) + " changes row " + row_text;
+      } else {
+        f.detail = "masked keys (" + std::to_string(cand.size()) + " together) change row " + row_text;
+      }
+      f.detail += " with " + variant_text(var, block);
+      if (var == Variant::v_only) {
+        f.leaked_mass = mass;
+        char buf[64];
+        std::snprintf(buf, sizeof buf, "; leaked mass >= %.3g", mass);
+        f.detail += buf;
+      } else if (!block) {
+        f.detail += "; masked scores enter the max or the normaliser";
+      }
+      f.detail += "; " + std::to_string(changed) + " rows changed";
+      return f;
+    }
+  }
+  return std::nullopt;
+}
+
+}  // namespace headroom
