@@ -1,0 +1,316 @@
+// Tests of the fault detectors through the attach API, with test-only kernels that each carry one defect:
+// every defect must be caught by its class and by no other, and the sound kernel by none.
+#include <gtest/gtest.h>
+
+#include <cmath>
+#include <limits>
+#include <random>
+#include <string>
+
+#include "headroom/attach.h"
+#include "headroom/faults.h"
+#include "headroom/reference.h"
+
+namespace headroom {
+namespace {
+
+constexpr double kNaN = std::numeric_limits<double>::quiet_NaN();
+
+enum class Defect { none, leak_next_key, nondeterministic, nan_masked_rows, flip_causal, inf_first, status };
+
+// Attention in double on the received values, rounded to float32, with one
+// optional defect. For int8 it reads the codes (k8, v8), not the dequantised
+// tensors, as a real int8 kernel would.
+class TestKernel : public AttachedKernel {
+ public:
+  TestKernel(Defect d, Format in = Format::float32, RunStatus status = RunStatus::ok) : defect_(d), status_(status) {
+    decl_.name = "test_kernel";
+    decl_.input_format = in;
+    decl_.output_format = Format::float32;
+    decl_.mask_kinds = 0x3F;  // every HR_MASK_* bit
+    decl_.masked_row = MaskedRowConvention::zeros;
+    if (in == Format::int8) {
+      decl_.q_quant = decl_.k_quant = decl_.v_quant = QuantScheme{Granularity::per_token, false};
+    }
+  }
+  const KernelDeclaration& declaration() const override { return decl_; }
+
+  KernelRun run(const ReceivedCase& c, const RunOptions&) override {
+    ++calls_;
+    KernelRun r;
+    r.status = status_;
+    if (status_ != RunStatus::ok) {
+      r.detail = "test status";
+      return r;
+    }
+    const CoreShape& s = c.received.core.shape;
+    Mask mask = c.received.core.mask;
+    if (defect_ == Defect::flip_causal) {
+      mask.kind = mask.kind == MaskKind::causal_top_left ? MaskKind::causal_bottom_right : MaskKind::causal_top_left;
+    }
+    const Tensor& q = c.received.core_inputs.q;
+    const Tensor k = c.k8 ? dequantize(*c.k8) : c.received.core_inputs.k;
+    const Tensor v = c.v8 ? dequantize(*c.v8) : c.received.core_inputs.v;
+    r.out = Tensor({s.batch, s.q_heads, s.q_len, s.value_dim});
+    for (std::int64_t b = 0; b < s.batch; ++b)
+      for (std::int64_t h = 0; h < s.q_heads; ++h)
+        for (std::int64_t i = 0; i < s.q_len; ++i) {
+          const std::int64_t g = kv_head_of(s, h);
+          std::vector<double> z(static_cast<std::size_t>(s.kv_len), -INFINITY);
+          double m = -INFINITY;
+          for (std::int64_t j = 0; j < s.kv_len; ++j) {
+            bool vis = mask.visible(s, b, h, i, j);
+            // The leak: the first masked key after a visible one is attended too.
+            if (defect_ == Defect::leak_next_key && !vis && j > 0 && mask.visible(s, b, h, i, j - 1)) vis = true;
+            if (!vis) continue;
+            double dot = 0;
+            for (std::int64_t d = 0; d < s.key_dim; ++d) dot += q.at(b, h, i, d) * k.at(b, g, j, d);
+            z[static_cast<std::size_t>(j)] = c.received.core.scale * dot + mask.bias_at(b, h, i, j);
+            m = std::max(m, z[static_cast<std::size_t>(j)]);
+          }
+          for (std::int64_t d = 0; d < s.value_dim; ++d) {
+            if (m == -INFINITY) {
+              r.out.at(b, h, i, d) = defect_ == Defect::nan_masked_rows ? kNaN : 0.0;
+              continue;
+            }
+            double num = 0, den = 0;
+            for (std::int64_t j = 0; j < s.kv_len; ++j) {
+              if (z[static_cast<std::size_t>(j)] == -INFINITY) continue;
+              const double e = std::exp(z[static_cast<std::size_t>(j)] - m);
+              num += e * v.at(b, g, j, d);
+              den += e;
+            }
+            r.out.at(b, h, i, d) = static_cast<float>(num / den);
+          }
+        }
+    if (defect_ == Defect::nondeterministic && calls_ % 2 == 0) {
+      r.out.values[1] = std::nextafter(static_cast<float>(r.out.values[1]), 10.0f);
+    }
+    if (defect_ == Defect::inf_first) r.out.values[0] = INFINITY;
+    return r;
+  }
+
+ private:
+  KernelDeclaration decl_;
+  Defect defect_;
+  RunStatus status_;
+  int calls_ = 0;
+};
+
+Tensor gaussian(std::vector<std::int64_t> shape, std::mt19937_64& gen) {
+  Tensor t(std::move(shape));
+  std::normal_distribution<double> n(0.0, 1.0);
+  for (double& x : t.values) x = static_cast<float>(n(gen));
+  return t;
+}
+
+Case core_case(CoreShape s, Mask m, std::uint64_t seed) {
+  std::mt19937_64 gen(seed);
+  Case c;
+  c.name = "faults_test_" + std::to_string(seed);
+  c.core.shape = s;
+  c.core.scale = 0.5f;
+  c.core.mask = std::move(m);
+  c.core_inputs.q = gaussian({s.batch, s.q_heads, s.q_len, s.key_dim}, gen);
+  c.core_inputs.k = gaussian({s.batch, s.kv_heads, s.kv_len, s.key_dim}, gen);
+  c.core_inputs.v = gaussian({s.batch, s.kv_heads, s.kv_len, s.value_dim}, gen);
+  return c;
+}
+
+Mask mask_of(MaskKind k) {
+  Mask m;
+  m.kind = k;
+  return m;
+}
+
+Mask padding(std::vector<std::int64_t> lengths) {
+  Mask m;
+  m.kind = MaskKind::key_padding;
+  m.key_lengths = std::move(lengths);
+  return m;
+}
+
+// B = 2, GQA 2:1, key padding 6 and 4 of 9 keys.
+Case padding_case() { return core_case({2, 2, 1, 5, 9, 4, 3}, padding({6, 4}), 1); }
+
+struct Outcome {
+  CaseFaults faults;
+  KernelRun first;
+  CoreReference ref;
+};
+
+Outcome judge(TestKernel& k, const Case& c) {
+  const ReceivedCase rc = receive(c, k.declaration());
+  Outcome o;
+  o.first = k.run(rc, RunOptions{});
+  o.ref = reference_core(rc.received.core, rc.received.core_inputs);
+  o.faults = detect_faults(k, rc, o.first, o.ref);
+  return o;
+}
+
+std::string classes(const CaseFaults& f) {
+  std::string t;
+  for (const Fault& x : f.faults) t += std::string(fault_class_name(x.kind)) + ": " + x.detail + "\n";
+  return t;
+}
+
+void expect_only(const CaseFaults& f, FaultClass c) {
+  ASSERT_EQ(f.faults.size(), 1u) << classes(f);
+  EXPECT_EQ(f.faults[0].kind, c) << classes(f);
+}
+
+std::vector<Case> varied_cases() {
+  std::vector<Case> cases;
+  cases.push_back(padding_case());
+  cases.push_back(core_case({1, 2, 2, 8, 8, 5, 4}, mask_of(MaskKind::causal_top_left), 2));
+  cases.push_back(core_case({1, 1, 1, 4, 7, 3, 2}, mask_of(MaskKind::causal_bottom_right), 3));
+  cases.push_back(core_case({1, 1, 1, 7, 4, 3, 2}, mask_of(MaskKind::causal_top_left), 4));
+  cases.push_back(core_case({1, 1, 1, 7, 4, 3, 2}, mask_of(MaskKind::causal_bottom_right), 5));
+  cases.push_back(core_case({2, 1, 1, 3, 5, 2, 2}, padding({0, 5}), 6));  // batch 0 fully masked
+  Mask dense;
+  dense.kind = MaskKind::dense;
+  dense.allowed = Tensor({1, 2, 4, 6});
+  std::mt19937_64 gen(9);
+  for (double& a : dense.allowed.values) a = (gen() % 3) != 0 ? 1.0 : 0.0;
+  for (std::int64_t j = 0; j < 6; ++j) dense.allowed.at(0, 1, 2, j) = 0.0;  // one fully masked row
+  cases.push_back(core_case({1, 2, 1, 4, 6, 3, 2}, dense, 7));
+  Mask bias;
+  bias.kind = MaskKind::bias;
+  bias.bias = Tensor({1, 1, 3, 5});
+  for (double& x : bias.bias.values) x = (gen() % 4) == 0 ? -INFINITY : static_cast<float>((gen() % 100) / 50.0);
+  cases.push_back(core_case({1, 1, 1, 3, 5, 2, 3}, bias, 8));
+  cases.push_back(core_case({1, 1, 1, 3, 5, 2, 3}, mask_of(MaskKind::none), 10));
+  return cases;
+}
+
+TEST(Detectors, SoundKernelIsCaughtByNone) {
+  for (const Case& c : varied_cases()) {
+    TestKernel k(Defect::none);
+    const Outcome o = judge(k, c);
+    EXPECT_TRUE(o.faults.faults.empty()) << c.name << "\n" << classes(o.faults);
+    EXPECT_GT(o.faults.runs, 0) << c.name;  // the detectors did re-run it
+  }
+}
+
+TEST(Detectors, LeakedKeyIsMaskLeakWithKeyAndMass) {
+  TestKernel k(Defect::leak_next_key);
+  const Case c = padding_case();
+  const Outcome o = judge(k, c);
+  expect_only(o.faults, FaultClass::mask_leak);
+  const Fault& f = o.faults.faults[0];
+  // The first leaking row is (b=0, h=0, i=0) and its key j = 6 (length 6).
+  EXPECT_EQ(f.where, (std::vector<std::int64_t>{0, 0, 0, 6})) << f.detail;
+  // The true leaked weight of key 6 in each row of batch 0, as the kernel computes it.
+  const ReceivedCase rc = receive(c, k.declaration());
+  const CoreShape& s = c.core.shape;
+  double most = 0;
+  for (std::int64_t h = 0; h < s.q_heads; ++h)
+    for (std::int64_t i = 0; i < s.q_len; ++i) {
+      std::vector<double> z;
+      for (std::int64_t j = 0; j <= 6; ++j) {
+        double dot = 0;
+        for (std::int64_t d = 0; d < s.key_dim; ++d)
+          dot += rc.received.core_inputs.q.at(0, h, i, d) * rc.received.core_inputs.k.at(0, 0, j, d);
+        z.push_back(0.5 * dot);
+      }
+      double den = 0;
+      for (double x : z) den += std::exp(x);
+      most = std::max(most, std::exp(z[6]) / den);
+    }
+  // A certified lower bound (faults.h): never above the true weight, and near
+  // it because the poison is 2^8 times the largest |v|.
+  EXPECT_LE(f.leaked_mass, most * (1 + 1e-6)) << f.detail;
+  EXPECT_GE(f.leaked_mass, most * 0.95) << f.detail;
+}
+
+TEST(Detectors, CausalOffByOneIsMaskLeakAtTheNextKey) {
+  TestKernel k(Defect::leak_next_key);
+  const Outcome o = judge(k, core_case({1, 2, 2, 8, 8, 5, 4}, mask_of(MaskKind::causal_top_left), 2));
+  expect_only(o.faults, FaultClass::mask_leak);
+  EXPECT_EQ(o.faults.faults[0].where, (std::vector<std::int64_t>{0, 0, 0, 1})) << o.faults.faults[0].detail;
+}
+
+TEST(Detectors, DenseMaskLeakIsFound) {
+  TestKernel k(Defect::leak_next_key);
+  const Outcome o = judge(k, varied_cases()[6]);
+  expect_only(o.faults, FaultClass::mask_leak);
+}
+
+TEST(Detectors, Int8CodesArePoisoned) {
+  // The kernel reads only the codes: a leak is visible only if the codes change.
+  TestKernel leaky(Defect::leak_next_key, Format::int8);
+  expect_only(judge(leaky, padding_case()).faults, FaultClass::mask_leak);
+  TestKernel sound(Defect::none, Format::int8);
+  const Outcome o = judge(sound, padding_case());
+  EXPECT_TRUE(o.faults.faults.empty()) << classes(o.faults);
+}
+
+TEST(Detectors, CounterDrivenKernelIsNondeterministic) {
+  TestKernel k(Defect::nondeterministic);
+  const Outcome o = judge(k, padding_case());
+  expect_only(o.faults, FaultClass::nondeterministic);
+  EXPECT_EQ(o.faults.faults[0].where, (std::vector<std::int64_t>{0, 0, 0, 1}));
+  EXPECT_EQ(o.faults.faults[0].count, 1);
+  ASSERT_FALSE(o.faults.notes.empty());  // the leak probe is skipped, and says so
+}
+
+TEST(Detectors, NaNOnMaskedRowsDeclaredZerosIsConvention) {
+  TestKernel k(Defect::nan_masked_rows);
+  const Outcome o = judge(k, core_case({2, 1, 1, 3, 5, 2, 2}, padding({0, 5}), 6));
+  expect_only(o.faults, FaultClass::convention);
+  EXPECT_EQ(o.faults.faults[0].count, 3);  // the three rows of batch 0
+  EXPECT_EQ(o.faults.faults[0].where, (std::vector<std::int64_t>{0, 0, 0, 0}));
+}
+
+TEST(Detectors, FlippedCausalAlignmentIsConventionOnly) {
+  // Tq < Tk, declared bottom-right, computed top-left: fewer keys seen, no leak.
+  // Tq > Tk, declared top-left, computed bottom-right: the first rows come out zero.
+  // Tq > Tk, declared bottom-right, computed top-left: masked rows get values and
+  // masked keys are read — one convention fault explains both.
+  for (const Case& c : {varied_cases()[2], varied_cases()[3], varied_cases()[4]}) {
+    TestKernel k(Defect::flip_causal);
+    const Outcome o = judge(k, c);
+    expect_only(o.faults, FaultClass::convention);
+    EXPECT_NE(o.faults.faults[0].detail.find("causal alignment opposite"), std::string::npos) << o.faults.faults[0].detail;
+  }
+  // Square: the alignments agree, nothing to find.
+  TestKernel k(Defect::flip_causal);
+  EXPECT_TRUE(judge(k, varied_cases()[1]).faults.faults.empty());
+}
+
+TEST(Detectors, NonFiniteOutputIsNonFiniteOnly) {
+  TestKernel k(Defect::inf_first);
+  const Outcome o = judge(k, padding_case());
+  expect_only(o.faults, FaultClass::non_finite);
+  EXPECT_EQ(o.faults.faults[0].count, 1);
+  EXPECT_EQ(o.faults.faults[0].where, (std::vector<std::int64_t>{0, 0, 0, 0}));
+}
+
+TEST(Detectors, IsolationStatusesMapToTheirClasses) {
+  for (auto [status, cls] : {std::pair{RunStatus::crash, FaultClass::crash}, std::pair{RunStatus::oob_read, FaultClass::oob_read},
+                             std::pair{RunStatus::oob_write, FaultClass::oob_write},
+                             std::pair{RunStatus::timeout, FaultClass::timeout}}) {
+    TestKernel k(Defect::none, Format::float32, status);
+    const Outcome o = judge(k, padding_case());
+    expect_only(o.faults, cls);
+    EXPECT_EQ(o.faults.runs, 0);  // nothing to re-run without an output
+  }
+  TestKernel declined(Defect::none, Format::float32, RunStatus::unsupported);
+  const Outcome u = judge(declined, padding_case());
+  EXPECT_TRUE(u.faults.faults.empty());
+  EXPECT_EQ(u.faults.unsupported_runs, 1);
+  TestKernel bad(Defect::none, Format::float32, RunStatus::bad_output);
+  EXPECT_EQ(judge(bad, padding_case()).faults.bad_output_runs, 1);
+}
+
+TEST(FaultClassNames, RoundTripAndStatusMapping) {
+  for (FaultClass c : kAllFaultClasses) EXPECT_EQ(parse_fault_class(fault_class_name(c)), c);
+  EXPECT_EQ(fault_class_name(FaultClass::mask_leak), "mask_leak");
+  EXPECT_FALSE(parse_fault_class("bad_output"));
+  EXPECT_FALSE(fault_of(RunStatus::ok));
+  EXPECT_FALSE(fault_of(RunStatus::unsupported));
+  EXPECT_FALSE(fault_of(RunStatus::bad_output));
+}
+
+}  // namespace
+}  // namespace headroom
