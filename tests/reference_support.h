@@ -38,6 +38,35 @@ inline CoreCase random_core(const CoreShape& s, std::uint64_t seed, double sigma
   return c;
 }
 
+struct BlockCase {
+  BlockProblem problem;
+  BlockInputs inputs;
+};
+
+/// A block case of the given shape with Gaussian float32 inputs and weights
+/// scaled by 1/sqrt(Dm), biases when `biases`, unmasked, scale 1/sqrt(Dk).
+inline BlockCase random_block(const BlockShape& s, std::uint64_t seed, bool biases) {
+  std::mt19937_64 rng(seed);
+  BlockCase c;
+  c.problem.shape = s;
+  c.problem.scale = static_cast<float>(1.0 / std::sqrt(static_cast<double>(s.key_dim)));
+  const double w = 1.0 / std::sqrt(static_cast<double>(s.model_dim));
+  BlockInputs& in = c.inputs;
+  in.x_q = gaussian({s.batch, s.q_len, s.model_dim}, rng);
+  in.x_kv = gaussian({s.batch, s.kv_len, s.model_dim}, rng);
+  in.w_q = gaussian({s.model_dim, s.q_heads * s.key_dim}, rng, w);
+  in.w_k = gaussian({s.model_dim, s.kv_heads * s.key_dim}, rng, w);
+  in.w_v = gaussian({s.model_dim, s.kv_heads * s.value_dim}, rng, w);
+  in.w_o = gaussian({s.q_heads * s.value_dim, s.model_dim}, rng, w);
+  if (biases) {
+    in.b_q = gaussian({s.q_heads * s.key_dim}, rng, 0.1);
+    in.b_k = gaussian({s.kv_heads * s.key_dim}, rng, 0.1);
+    in.b_v = gaussian({s.kv_heads * s.value_dim}, rng, 0.1);
+    in.b_o = gaussian({s.model_dim}, rng, 0.1);
+  }
+  return c;
+}
+
 /// Returns: whether |a − b| ≤ bound_a + bound_b + 2^-53(|a| + |b|) for every
 /// element (the two double outputs enclose the same exact value), NaN only
 /// where both are NaN; `worst` receives the largest ratio of difference to

@@ -1,0 +1,139 @@
+// headroom — tests of the certified block reference (reference_block in reference.h).
+#include <gtest/gtest.h>
+#include <rapidcheck/gtest.h>
+
+#include <cmath>
+#include <cstdio>
+
+#include "headroom/input_error.h"
+#include "headroom/reference.h"
+#include "reference_support.h"
+
+namespace headroom {
+namespace {
+
+using testing::enclose_same;
+using testing::random_block;
+
+BlockShape block_shape(std::int64_t dm, std::int64_t hq, std::int64_t hkv, std::int64_t tq, std::int64_t tk,
+                       std::int64_t dk, std::int64_t dv) {
+  BlockShape s;
+  s.batch = 1;
+  s.model_dim = dm;
+  s.q_heads = hq;
+  s.kv_heads = hkv;
+  s.q_len = tq;
+  s.kv_len = tk;
+  s.key_dim = dk;
+  s.value_dim = dv;
+  return s;
+}
+
+Tensor identity(std::int64_t n) {
+  Tensor t({n, n});
+  for (std::int64_t i = 0; i < n; ++i) t.values[static_cast<std::size_t>(i * n + i)] = 1.0;
+  return t;
+}
+
+void expect_within_target(const BlockReference& r, int target_log2) {
+  double worst = 0;
+  for (std::size_t i = 0; i < r.out.values.size(); ++i) {
+    if (std::isnan(r.out.values[i])) continue;
+    ASSERT_LE(r.bound.values[i], std::ldexp(r.magnitude.values[i], target_log2) * (1 + 0x1p-30)) << i;
+    if (r.magnitude.values[i] > 0) worst = std::max(worst, r.bound.values[i] / r.magnitude.values[i]);
+  }
+  std::printf("block: worst bound / magnitude = %a (target 2^%d)\n", worst, target_log2);
+}
+
+// With identity projections and no biases, head h of the block sees columns
+// [h·Dk, (h+1)·Dk) of X as its queries/keys (problem.h), and Y is the
+// concatenation of the head outputs: the block must agree with reference_core
+// on the rearranged tensors (here Dk = Dv, Hkv = Hq, Dm = Hq·Dk).
+TEST(ReferenceBlock, IdentityProjectionsReduceToCoreAttention) {
+  const std::int64_t hq = 2, d = 3, dm = hq * d, tq = 4, tk = 5;
+  auto c = random_block(block_shape(dm, hq, hq, tq, tk, d, d), 21, false);
+  c.inputs.w_q = c.inputs.w_k = c.inputs.w_v = c.inputs.w_o = identity(dm);
+  const BlockReference y = reference_block(c.problem, c.inputs);
+  ASSERT_TRUE(y.certified);
+
+  CoreProblem cp;
+  cp.shape = c.problem.shape.core();
+  cp.scale = c.problem.scale;
+  CoreInputs ci;
+  ci.q = Tensor({1, hq, tq, d});
+  ci.k = Tensor({1, hq, tk, d});
+  ci.v = Tensor({1, hq, tk, d});
+  for (std::int64_t h = 0; h < hq; ++h)
+    for (std::int64_t e = 0; e < d; ++e) {
+      for (std::int64_t i = 0; i < tq; ++i) ci.q.at(0, h, i, e) = c.inputs.x_q.at(0, i, h * d + e);
+      for (std::int64_t j = 0; j < tk; ++j) ci.k.at(0, h, j, e) = ci.v.at(0, h, j, e) = c.inputs.x_kv.at(0, j, h * d + e);
+    }
+  const CoreReference o = reference_core(cp, ci);
+  Tensor as_block({1, tq, dm}), bound_block({1, tq, dm});
+  for (std::int64_t h = 0; h < hq; ++h)
+    for (std::int64_t i = 0; i < tq; ++i)
+      for (std::int64_t e = 0; e < d; ++e) {
+        as_block.at(0, i, h * d + e) = o.out.at(0, h, i, e);
+        bound_block.at(0, i, h * d + e) = o.bound.at(0, h, i, e);
+      }
+  double worst = 0;
+  EXPECT_TRUE(enclose_same(y.out, y.bound, as_block, bound_block, &worst));
+  std::printf("identity block vs core: worst |diff| / allowance = %.3g\n", worst);
+}
+
+TEST(ReferenceBlock, CausalBlockWithBiasesIsCertified) {
+  auto c = random_block(block_shape(16, 4, 2, 6, 9, 4, 3), 5, true);
+  c.problem.shape.batch = 1;
+  c.problem.mask.kind = MaskKind::causal_bottom_right;
+  const BlockReference r = reference_block(c.problem, c.inputs);
+  EXPECT_TRUE(r.certified);
+  expect_within_target(r, -80);
+  for (auto f : r.fully_masked) EXPECT_EQ(f, 0);
+}
+
+TEST(ReferenceBlock, FullyMaskedQueryRowsAreNaN) {
+  auto c = random_block(block_shape(8, 2, 1, 3, 4, 4, 4), 9, true);
+  c.problem.mask.kind = MaskKind::key_padding;
+  c.problem.mask.key_lengths = {0};
+  const BlockReference r = reference_block(c.problem, c.inputs);
+  for (double x : r.out.values) EXPECT_TRUE(std::isnan(x));
+  for (auto f : r.fully_masked) EXPECT_EQ(f, 1);
+}
+
+TEST(ReferenceBlock, RejectsMisshapenWeights) {
+  auto c = random_block(block_shape(8, 2, 1, 3, 4, 4, 4), 9, false);
+  c.inputs.w_o = Tensor({8, 7});
+  EXPECT_THROW(reference_block(c.problem, c.inputs), InputError);
+}
+
+testing::BlockCase draw_block() {
+  const auto hkv = *rc::gen::inRange<std::int64_t>(1, 3);
+  const auto hq = hkv * *rc::gen::inRange<std::int64_t>(1, 3);
+  const auto dm = *rc::gen::inRange<std::int64_t>(1, 7);
+  const auto tq = *rc::gen::inRange<std::int64_t>(1, 5);
+  const auto tk = *rc::gen::inRange<std::int64_t>(1, 5);
+  const auto dk = *rc::gen::inRange<std::int64_t>(1, 4);
+  const auto dv = *rc::gen::inRange<std::int64_t>(1, 4);
+  const bool biases = *rc::gen::arbitrary<bool>();
+  return random_block(block_shape(dm, hq, hkv, tq, tk, dk, dv), *rc::gen::arbitrary<std::uint64_t>(), biases);
+}
+
+RC_GTEST_PROP(ReferenceBlockProperties, MpfrAndBinFloatAgreeWithinTheirBounds, ()) {
+  const auto c = draw_block();
+  ReferenceOptions bin;
+  bin.backend = ReferenceBackend::cpp_bin_float;
+  const BlockReference a = reference_block(c.problem, c.inputs), b = reference_block(c.problem, c.inputs, bin);
+  RC_ASSERT(a.certified && b.certified);
+  RC_ASSERT(enclose_same(a.out, a.bound, b.out, b.bound));
+}
+
+RC_GTEST_PROP(ReferenceBlockProperties, ThreadCountChangesNoBit, ()) {
+  const auto c = draw_block();
+  ReferenceOptions many;
+  many.threads = *rc::gen::inRange(2u, 5u);
+  const BlockReference a = reference_block(c.problem, c.inputs), b = reference_block(c.problem, c.inputs, many);
+  RC_ASSERT(bit_identical(a.out, b.out) && bit_identical(a.bound, b.bound) && bit_identical(a.magnitude, b.magnitude));
+}
+
+}  // namespace
+}  // namespace headroom
