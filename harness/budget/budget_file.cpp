@@ -3,7 +3,9 @@
 // Every error names the file, the line and column toml++ records for the
 // offending node, and the fix; nothing in a budget file is ignored silently.
 #include <cmath>
+#include <cstdio>
 #include <fstream>
+#include <map>
 #include <sstream>
 #include <string>
 
@@ -67,7 +69,9 @@ class Reader {
     }
     if (std::isnan(v)) fail(n.source(), key + " is nan", "give a number >= 0, or \"none\" for no limit");
     if (v < 0) {
-      fail(n.source(), key + " is negative (" + std::to_string(v) + ")", "give a limit >= 0, or \"none\" for no limit");
+      char text[40];
+      std::snprintf(text, sizeof text, "%g", v);
+      fail(n.source(), key + " is negative (" + text + ")", "give a limit >= 0, or \"none\" for no limit");
     }
     return v;
   }
@@ -190,15 +194,21 @@ class Reader {
       } else if (key == "format") {
         auto t = v.as_table();
         if (!t) fail(v.source(), "format must be a table of [format.<name>] sections", "write [format.float32] sections");
+        // toml++ iterates keys in sorted order; a duplicate is cited where it comes later in the file.
+        std::map<Format, const toml::key*> seen;
         for (auto&& [fk, fv] : *t) {
           const std::string name(fk.str());
           auto f = parse_format(name);
           if (!f) fail(fk.source(), "unknown format \"" + name + "\"", std::string("use one of ") + kFormats);
-          const std::string title = "format." + name;
-          if (!b.formats.emplace(*f, section(title, fv)).second) {
-            fail(fk.source(), "format " + std::string(format_name(*f)) + " is given twice (\"" + name + "\" names it too)",
+          if (auto [at, fresh] = seen.emplace(*f, &fk); !fresh) {
+            const toml::key& first = *at->second;
+            const bool later = fk.source().begin.line > first.source().begin.line;
+            const toml::key& again = later ? fk : first;
+            fail(again.source(), "format " + std::string(format_name(*f)) + " is given twice (as \"" +
+                                     std::string(first.str()) + "\" and \"" + name + "\")",
                  "merge the two sections into one");
           }
+          b.formats.emplace(*f, section("format." + name, fv));
         }
       } else if (key == "kernel") {
         auto t = v.as_table();
