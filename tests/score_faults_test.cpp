@@ -303,6 +303,66 @@ TEST(Detectors, IsolationStatusesMapToTheirClasses) {
   EXPECT_EQ(judge(bad, padding_case()).faults.bad_output_runs, 1);
 }
 
+// Block level: Y[b, i, m] = Σ over visible keys j of X_kv[b, j, m] — not attention, but
+// it reads X_kv exactly where attention would, which is all the leak probe looks at.
+class BlockSumKernel : public AttachedKernel {
+ public:
+  explicit BlockSumKernel(bool leaky) : leaky_(leaky) {
+    decl_.name = "block_sum";
+    decl_.level = Level::block;
+    decl_.mask_kinds = 0x3F;
+  }
+  const KernelDeclaration& declaration() const override { return decl_; }
+  KernelRun run(const ReceivedCase& c, const RunOptions&) override {
+    const BlockShape& s = c.received.block.shape;
+    const CoreShape cs = s.core();
+    const Mask& m = c.received.block.mask;
+    KernelRun r;
+    r.out = Tensor({s.batch, s.q_len, s.model_dim});
+    for (std::int64_t b = 0; b < s.batch; ++b)
+      for (std::int64_t i = 0; i < s.q_len; ++i)
+        for (std::int64_t j = 0; j < s.kv_len; ++j) {
+          // The leak: key padding's first masked key is read as well.
+          const bool vis = m.visible(cs, b, 0, i, j) || (leaky_ && j == m.key_lengths[static_cast<std::size_t>(b)]);
+          if (!vis) continue;
+          for (std::int64_t d = 0; d < s.model_dim; ++d) r.out.at(b, i, d) += c.received.block_inputs.x_kv.at(b, j, d);
+        }
+    return r;
+  }
+
+ private:
+  KernelDeclaration decl_;
+  bool leaky_;
+};
+
+TEST(Detectors, BlockLevelLeakIsFoundThroughXkv) {
+  std::mt19937_64 gen(3);
+  Case c;
+  c.name = "block_leak";
+  c.level = Level::block;
+  c.block.shape = BlockShape{2, 3, 6, 4, 2, 1, 2, 2};
+  c.block.mask = padding({4, 6});
+  BlockInputs& in = c.block_inputs;
+  in.x_q = gaussian({2, 3, 4}, gen);
+  in.x_kv = gaussian({2, 6, 4}, gen);
+  in.w_q = gaussian({4, 4}, gen);
+  in.w_k = gaussian({4, 2}, gen);
+  in.w_v = gaussian({4, 2}, gen);
+  in.w_o = gaussian({4, 4}, gen);
+  for (bool leaky : {false, true}) {
+    BlockSumKernel k(leaky);
+    const ReceivedCase rc = receive(c, k.declaration());
+    const KernelRun first = k.run(rc, RunOptions{});
+    const std::optional<Fault> f = detect_mask_leak(k, rc, first, DetectorOptions{});
+    ASSERT_EQ(f.has_value(), leaky);
+    if (leaky) {
+      EXPECT_EQ(f->kind, FaultClass::mask_leak);
+      EXPECT_EQ(f->where, (std::vector<std::int64_t>{0, 0, 4})) << f->detail;  // (b, i, j)
+      EXPECT_EQ(f->count, 3);  // the three queries of batch 0 (batch 1 has no masked key)
+    }
+  }
+}
+
 TEST(FaultClassNames, RoundTripAndStatusMapping) {
   for (FaultClass c : kAllFaultClasses) EXPECT_EQ(parse_fault_class(fault_class_name(c)), c);
   EXPECT_EQ(fault_class_name(FaultClass::mask_leak), "mask_leak");
