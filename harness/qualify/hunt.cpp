@@ -18,7 +18,7 @@ Judgement judge_with_budget(AttachedKernel& k, const Case& c, const RunnerOption
 }
 
 std::string replay_of(const CaseRequest& req, const std::string& spec, const std::string& name) {
-  const std::string dir = "case-" + name;
+  const std::string dir = "case-" + case_folder_name(name);
   return case_command(req, dir) + " && headroom replay --kernel " + spec + " " + dir;
 }
 
@@ -122,7 +122,8 @@ HuntResult hunt(AttachedKernel& k, const HuntOptions& opt) {
       }
       finding.shrunk = c.name;
       if (!opt.save.empty()) {
-        finding.saved = opt.save / c.name;
+        finding.saved = opt.save / case_folder_name(c.name);
+        std::filesystem::create_directories(opt.save);
         write_case(c, finding.saved);
         j.record.replay = "headroom replay --kernel " + spec + " " + finding.saved.string();
       }

@@ -20,14 +20,6 @@ std::uint64_t stable_hash(const std::string& s) {
   return h;
 }
 
-// Folder names from case names: keep [A-Za-z0-9._-], replace the rest.
-std::string folder_name(const std::string& name) {
-  std::string out = name;
-  for (char& ch : out)
-    if (!(std::isalnum(static_cast<unsigned char>(ch)) || ch == '.' || ch == '_' || ch == '-')) ch = '_';
-  return out.empty() ? "case" : out;
-}
-
 std::string quote(const std::string& s) {
   if (s.find_first_of(" \t'\"$\\;&|<>()*?") == std::string::npos) return s;
   std::string out = "'";
@@ -36,6 +28,15 @@ std::string quote(const std::string& s) {
 }
 
 }  // namespace
+
+std::string case_folder_name(const std::string& name) {
+  std::string out = name;
+  for (char& ch : out)
+    if (!(std::isalnum(static_cast<unsigned char>(ch)) || ch == '.' || ch == '_' || ch == '-')) ch = '_';
+  // "." and ".." (and names made only of dots) would name the folder itself or its parent.
+  if (out.find_first_not_of('.') == std::string::npos) out = "case" + out;
+  return out;
+}
 
 std::string Shard::text() const { return std::to_string(index + 1) + "/" + std::to_string(count); }
 
@@ -96,7 +97,7 @@ RunRecord run_cases(AttachedKernel& k, const std::vector<PlannedCase>& cases, co
     const std::string spec = quote(opt.kernel_spec.empty() ? d.name : opt.kernel_spec);
     std::string replay;
     if (p->request) {
-      const std::string dir = "case-" + folder_name(p->c.name);
+      const std::string dir = "case-" + case_folder_name(p->c.name);
       replay = case_command(*p->request, dir) + " && headroom replay --kernel " + spec + " " + dir;
     } else {
       replay = "headroom replay --kernel " + spec + " " + quote(p->folder.string());
@@ -111,7 +112,8 @@ RunRecord run_cases(AttachedKernel& k, const std::vector<PlannedCase>& cases, co
     }
     if (opt.apply_budget) opt.apply_budget(j.record, j, p->c);
     if (!j.record.within_budget && !opt.save_failures.empty()) {
-      const auto folder = opt.save_failures / folder_name(p->c.name);
+      const auto folder = opt.save_failures / case_folder_name(p->c.name);
+      std::filesystem::create_directories(opt.save_failures);
       write_case(p->c, folder);
       j.record.replay = "headroom replay --kernel " + spec + " " + quote(folder.string());
     }

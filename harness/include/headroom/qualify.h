@@ -39,6 +39,11 @@ Shard parse_shard(const std::string& text);
 /// modulo the count, so every case lands in exactly one shard whatever the order.
 bool in_shard(const std::string& name, const Shard& s);
 
+/// Returns: a folder name for case `name` that cannot leave the folder it is
+/// put in: characters other than [A-Za-z0-9._-] become '_', and a name of dots
+/// alone ("", ".", "..") is prefixed with "case".
+std::string case_folder_name(const std::string& name);
+
 /// One case to run, and the request that recreates it from nothing (absent for a case read from a folder).
 struct PlannedCase {
   Case c;
