@@ -1,0 +1,127 @@
+// headroom — the built-in suites (suite.h): families × shapes × masks × seeds.
+#include "headroom/suite.h"
+
+#include <string>
+
+#include "headroom/families.h"
+#include "headroom/input_error.h"
+
+namespace headroom {
+namespace {
+
+constexpr MaskKind kAllMasks[] = {MaskKind::none,        MaskKind::causal_top_left, MaskKind::causal_bottom_right,
+                                  MaskKind::key_padding, MaskKind::dense,           MaskKind::bias};
+
+// Sections draw seeds from disjoint ranges so no two requests of a suite can
+// produce the same case.
+class Builder {
+ public:
+  void add(std::string_view family, std::uint64_t seed, int size, std::optional<CoreShape> shape = std::nullopt,
+           std::optional<MaskKind> mask = std::nullopt, std::optional<std::int64_t> model_dim = std::nullopt) {
+    CaseRequest r;
+    r.family = std::string(family);
+    r.seed = seed;
+    r.size = size;
+    r.shape = shape;
+    r.mask = mask;
+    r.model_dim = model_dim;
+    out_.push_back(std::move(r));
+  }
+  std::vector<CaseRequest> take() { return std::move(out_); }
+
+ private:
+  std::vector<CaseRequest> out_;
+};
+
+CoreShape shape(std::int64_t b, std::int64_t hq, std::int64_t hkv, std::int64_t tq, std::int64_t tk, std::int64_t dk,
+                std::int64_t dv) {
+  return CoreShape{b, hq, hkv, tq, tk, dk, dv};
+}
+
+// Every family at `seeds` seeds, sizes cycling through `sizes`.
+void every_family(Builder& b, std::uint64_t base, int seeds, std::initializer_list<int> sizes) {
+  for (const FamilyInfo& f : kFamilies)
+    for (int s = 0; s < seeds; ++s)
+      b.add(f.name, base + static_cast<std::uint64_t>(s), sizes.begin()[static_cast<std::size_t>(s) % sizes.size()]);
+}
+
+// Tq ≠ Tk both ways under both causal alignments: bottom-right with Tq > Tk
+// leaves leading rows fully masked; top-left with Tq < Tk never shows trailing keys.
+void ragged_causal(Builder& b, std::uint64_t base, int seeds) {
+  for (int s = 0; s < seeds; ++s)
+    for (MaskKind m : {MaskKind::causal_top_left, MaskKind::causal_bottom_right}) {
+      const std::uint64_t seed = base + static_cast<std::uint64_t>(s);
+      b.add("ragged", seed, 30, shape(1, 2, 1, 12, 7, 16, 16), m);
+      b.add("ragged", seed, 30, shape(1, 2, 2, 5, 19, 16, 8), m);
+    }
+}
+
+std::vector<CaseRequest> quick() {
+  Builder b;
+  every_family(b, 1, 2, {20});
+  for (MaskKind m : kAllMasks) b.add("masks", 101, 20, std::nullopt, m);
+  ragged_causal(b, 201, 1);
+  b.add("gaussian", 301, 20, shape(2, 4, 2, 16, 16, 16, 16));
+  b.add("gaussian", 302, 20, shape(1, 4, 1, 8, 24, 32, 32), MaskKind::causal_bottom_right);
+  b.add("large_logits", 303, 20, shape(1, 4, 2, 8, 8, 16, 16), MaskKind::causal_top_left);
+  for (std::int64_t tk : {63, 65, 127, 129})
+    b.add("tile_edges", 401, 100, shape(1, 1, 1, tk < 100 ? 17 : 15, tk, 17, 15));
+  b.add("long_sequence", 501, 0);
+  b.add("block_gaussian", 601, 20, shape(1, 4, 2, 8, 8, 8, 8));
+  return b.take();
+}
+
+std::vector<CaseRequest> standard() {
+  Builder b;
+  every_family(b, 1, 10, {10, 30, 50, 70, 100});
+  for (MaskKind m : kAllMasks)
+    for (std::uint64_t s = 0; s < 4; ++s) b.add("masks", 101 + s, 30, std::nullopt, m);
+  ragged_causal(b, 201, 3);
+  std::uint64_t seed = 301;
+  for (auto [hq, hkv] : {std::pair{4, 2}, {4, 1}, {2, 1}, {8, 2}})
+    for (MaskKind m : {MaskKind::none, MaskKind::causal_top_left, MaskKind::causal_bottom_right, MaskKind::key_padding})
+      b.add("gaussian", seed++, 30, shape(1, hq, hkv, 12, 20, 16, 16), m);
+  for (std::int64_t tk : {1, 15, 16, 17, 31, 32, 33, 63, 64, 65, 127, 128, 129, 255, 257})
+    for (std::int64_t tq : {1, 17}) b.add("tile_edges", 401, 100, shape(1, 1, 1, tq, tk, 33, 17));
+  for (std::uint64_t s = 0; s < 5; ++s) b.add("long_sequence", 501 + s, static_cast<int>(s * 10));
+  for (std::uint64_t s = 0; s < 5; ++s) {
+    b.add("block_gaussian", 601 + s, 30, shape(1, 4, 2, 8, 12, 8, 8), MaskKind::causal_bottom_right);
+    b.add("block_gaussian", 611 + s, 30, shape(2, 2, 1, 10, 10, 6, 5), std::nullopt, 17);
+  }
+  for (const FamilyInfo& f : kFamilies) b.add(f.name, 701, 30, std::nullopt, MaskKind::causal_bottom_right);
+  return b.take();
+}
+
+std::vector<CaseRequest> deep() {
+  Builder b;
+  every_family(b, 1, 40, {10, 30, 50, 70, 100, 150});
+  for (MaskKind m : kAllMasks)
+    for (std::uint64_t s = 0; s < 16; ++s) b.add("masks", 101 + s, 50, std::nullopt, m);
+  ragged_causal(b, 201, 10);
+  std::uint64_t seed = 301;
+  for (auto [hq, hkv] : {std::pair{4, 2}, {4, 1}, {2, 1}, {8, 2}})
+    for (MaskKind m : {MaskKind::none, MaskKind::causal_top_left, MaskKind::causal_bottom_right, MaskKind::key_padding})
+      for (int s = 0; s < 4; ++s) b.add("gaussian", seed++, 50, shape(1, hq, hkv, 12 + 4 * s, 20 + 8 * s, 16, 16), m);
+  for (std::int64_t tk : {1, 15, 16, 17, 31, 32, 33, 63, 64, 65, 127, 128, 129, 255, 257})
+    for (std::int64_t tq : {1, 17, 33, 65}) b.add("tile_edges", 401, 100, shape(1, 1, 1, tq, tk, 65, 33));
+  for (std::uint64_t s = 0; s < 20; ++s) b.add("long_sequence", 501 + s, static_cast<int>(s * 5));
+  for (std::uint64_t s = 0; s < 20; ++s) {
+    b.add("block_gaussian", 601 + s, 50, shape(1, 4, 2, 8, 12, 8, 8), MaskKind::causal_bottom_right);
+    b.add("block_gaussian", 701 + s, 50, shape(2, 2, 1, 10, 10, 6, 5), std::nullopt, 17);
+  }
+  for (const FamilyInfo& f : kFamilies)
+    for (MaskKind m : kAllMasks) b.add(f.name, 801, 30, std::nullopt, m);
+  return b.take();
+}
+
+}  // namespace
+
+std::vector<CaseRequest> suite_requests(std::string_view name) {
+  if (name == "quick") return quick();
+  if (name == "standard") return standard();
+  if (name == "deep") return deep();
+  throw InputError("command line", "--suite", "unknown suite \"" + std::string(name) + "\"",
+                   "use quick, standard or deep");
+}
+
+}  // namespace headroom

@@ -1,0 +1,85 @@
+// headroom — the built-in suites: deterministic, unique names, covering every family and mask kind, quick stays small.
+#include <gtest/gtest.h>
+
+#include <algorithm>
+#include <cmath>
+#include <limits>
+#include <set>
+#include <string>
+
+#include "generate_support.h"
+#include "headroom/suite.h"
+
+namespace headroom {
+namespace {
+
+using namespace headroom::test;
+
+// ---------------------------------------------------------------- suites
+
+TEST(GenerateSuites, DeterministicUniqueAndCovering) {
+  std::size_t quick_size = 0;
+  for (const SuiteInfo& info : kSuites) {
+    const std::vector<CaseRequest> a = suite_requests(info.name), b = suite_requests(info.name);
+    ASSERT_EQ(a.size(), b.size());
+    std::set<std::string> names, families_seen;
+    std::set<MaskKind> masks;
+    bool gqa_2 = false, gqa_1 = false, ragged_tl = false, ragged_br = false, fully_masked = false, block = false;
+    for (std::size_t i = 0; i < a.size(); ++i) {
+      const Case c = make_case(a[i]);
+      if (i < 40 || info.name == "quick") {
+        EXPECT_TRUE(identical(c, make_case(b[i]))) << c.name;
+      }
+      EXPECT_TRUE(names.insert(c.name).second) << info.name << ": " << c.name;
+      families_seen.insert(c.provenance.family);
+      if (c.level == Level::block) {
+        block = true;
+        continue;
+      }
+      const CoreShape& s = c.core.shape;
+      masks.insert(c.core.mask.kind);
+      gqa_2 |= s.q_heads == 4 && s.kv_heads == 2;
+      gqa_1 |= s.q_heads == 4 && s.kv_heads == 1;
+      ragged_tl |= s.q_len != s.kv_len && c.core.mask.kind == MaskKind::causal_top_left;
+      ragged_br |= s.q_len != s.kv_len && c.core.mask.kind == MaskKind::causal_bottom_right;
+      fully_masked |= row_kinds(c).fully_masked > 0;
+    }
+    SCOPED_TRACE(std::string(info.name));
+    EXPECT_EQ(families_seen.size(), std::size(kFamilies));
+    EXPECT_EQ(masks.size(), 6u);
+    EXPECT_TRUE(gqa_2 && gqa_1 && ragged_tl && ragged_br && fully_masked && block);
+    if (info.name == "quick") {
+      quick_size = a.size();
+      EXPECT_GE(a.size(), 40u);
+      EXPECT_LE(a.size(), 80u);
+    } else if (info.name == "standard") {
+      EXPECT_NEAR(static_cast<double>(a.size()) / static_cast<double>(quick_size), 5.0, 1.5);
+    } else {
+      EXPECT_NEAR(static_cast<double>(a.size()) / static_cast<double>(quick_size), 20.0, 5.0);
+    }
+  }
+  EXPECT_EQ(input_error_place([] { suite_requests("huge"); }), "--suite");
+}
+
+TEST(GenerateSuites, QuickStaysSmall) {
+  // The work of an exact reference grows with B·Hq·Tq·Tk·(Dk + Dv); the quick
+  // suite must run in seconds, so most cases keep Tk ≤ 32 and all ≤ 129.
+  std::int64_t work = 0, long_ones = 0;
+  const auto reqs = suite_requests("quick");
+  for (const CaseRequest& r : reqs) {
+    const Case c = make_case(r);
+    const CoreShape s = c.level == Level::core ? c.core.shape : c.block.shape.core();
+    work += s.batch * s.q_heads * s.q_len * s.kv_len * (s.key_dim + s.value_dim);
+    long_ones += s.kv_len > 32;
+    if (r.family != "long_sequence") {
+      EXPECT_LE(s.kv_len, 129) << c.name;
+    }
+  }
+  EXPECT_LE(long_ones, 8);
+  EXPECT_LE(work, 2'000'000);
+  std::printf("quick suite: %zu cases, %lld multiply-adds of attention work, %lld with Tk > 32\n", reqs.size(),
+              static_cast<long long>(work), static_cast<long long>(long_ones));
+}
+
+}  // namespace
+}  // namespace headroom
