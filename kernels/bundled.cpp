@@ -1,10 +1,41 @@
 // headroom — the table of bundled kernels (bundled.h). One row per kernel file.
 #include "bundled.h"
 
+#include "kernel_list.h"
+
 namespace {
+
+using namespace hr_kernels;
+
 const hr_bundled_kernel kTable[] = {
+    // Sound kernels: no expected fault.
+    {&f32_textbook, 0, nullptr, nullptr},
+    {&f32_tiled_16, 0, nullptr, nullptr},
+    {&f32_tiled_64, 0, nullptr, nullptr},
+    {&f16_f32acc, 0, nullptr, nullptr},
+    {&f16_f16acc, 0, nullptr, nullptr},
+    {&bf16_f32acc, 0, nullptr, nullptr},
+    {&i8_tokenwise, 0, nullptr, nullptr},
+    {&gqa_f32, 0, nullptr, nullptr},
+    {&block_f32, 0, nullptr, nullptr},
+    // Flawed specimens (kernels/flawed/): one deliberate defect each.
+    {&no_max_shift, 1, "non_finite", "exp of the raw scores, no max shift: overflows past logit 88.7"},
+    {&mask_tail_off_by_one, 1, "mask_leak",
+     "tail key tile tests j <= end for causal/key padding: one masked key attended"},
+    {&nan_masked_rows, 1, "convention", "no guard for fully masked rows: writes 0/0 = NaN while declaring zeros"},
+    {&causal_flipped, 1, "convention", "declares bottom-right causal only, applies top-left (j <= i)"},
+    {&oob_read_tail, 1, "oob_read", "copies 16 K rows for a partial tail tile: reads past the end of K unless 16 | Tk"},
+    {&oob_write_row, 1, "oob_write", "per-head clearing loop runs to i <= Tq: one row of zeros past the end of O"},
+    {&racy_reduction, 1, "nondeterministic",
+     "PV chunk sums added by 4 threads with atomic float adds: order, hence bits, follow thread timing"},
+    {&block_heads_swapped, 1, "error", "block concatenates head h into the columns of head Hq-1-h"},
+    {&hang_on_shape, 1, "timeout", "tuned key-tile table gives tile 0 for Tk == 33: the key loop never advances"},
+    {&crash_one_token, 1, "crash", "score buffer is null when Tk == 1: SIGSEGV on the first row"},
+    {&f16_late_scale, 1, "non_finite",
+     "binary16 QK^T formed before the scale: raw dot overflows 65504 while the logit is in range"},
     {nullptr, 0, nullptr, nullptr},  // sentinel, not counted
 };
+
 }  // namespace
 
 extern "C" const hr_bundled_kernel* headroom_bundled_kernels(size_t* count) {

@@ -1,0 +1,87 @@
+// headroom kernels — f16_f16acc: binary16 storage and binary16 arithmetic for both products.
+//
+// Method: every multiply and add of QKᵀ and PV is done in float32 on binary16
+// values and rounded straight back to binary16, which makes each one correctly
+// rounded binary16 arithmetic (24 ≥ 2·11 + 2, Figueroa 1995). The scale is
+// folded into Q before QKᵀ (q'_d = fl16(s·q_d)), so scores stay in the range of
+// the logits rather than of the raw dot products (Dk^½ larger, typically). The
+// softmax statistics (maximum, exp, normaliser) are float32, as half-precision
+// kernels keep them; p_j is rounded to binary16 for the PV product; O = acc / l
+// is rounded once. Masked keys are never read; a fully masked row gets zeros
+// and log-sum-exp −inf.
+//
+// Error: a binary16 sum of n terms is off by up to γ_n·Σ|terms| (Higham 2002,
+// §3.1), u = 2^-11; so the score error is ≲ Dk·u·Σ_d|q'_d k_d| and the PV error
+// ≲ Tk·u·Σ_j p_j|v_j| in the worst case, about √n·u typically (Higham & Mary 2019).
+#include <cmath>
+#include <vector>
+
+#include "common.h"
+#include "kernel_list.h"
+
+namespace hr_kernels {
+namespace {
+
+std::int32_t run(const hr_core_problem* p) {
+  const MaskView mask(p->mask, p->q_len, p->kv_len);
+  if (!formats_are(*p, HR_FORMAT_BINARY16, HR_FORMAT_BINARY16) || !mask.known()) return HR_UNSUPPORTED;
+  std::vector<float> q(p->key_dim), k(p->key_dim), v(p->value_dim), z(p->kv_len), acc(p->value_dim);
+  for (std::int64_t b = 0; b < p->batch; ++b) {
+    for (std::int64_t h = 0; h < p->q_heads; ++h) {
+      const std::int64_t g = kv_head(h, p->q_heads, p->kv_heads);
+      for (std::int64_t i = 0; i < p->q_len; ++i) {
+        load_row(p->q, b, h, i, p->key_dim, q.data());
+        for (float& x : q) x = round_binary16(p->scale * x);  // scale before QKᵀ
+        float m = kNegInf;
+        for (std::int64_t j = 0; j < p->kv_len; ++j) {
+          z[j] = kNegInf;
+          if (!mask.visible(b, h, i, j)) continue;
+          load_row(p->k, b, g, j, p->key_dim, k.data());
+          float s = 0.0f;
+          for (std::int64_t d = 0; d < p->key_dim; ++d) s = round_binary16(s + round_binary16(q[d] * k[d]));
+          z[j] = round_binary16(s + mask.bias(b, h, i, j));
+          m = std::max(m, z[j]);
+        }
+        if (!(m > kNegInf)) {
+          write_masked_row(*p, b, h, i);
+          continue;
+        }
+        float l = 0.0f;
+        std::fill(acc.begin(), acc.end(), 0.0f);
+        for (std::int64_t j = 0; j < p->kv_len; ++j) {
+          const float e = std::exp(z[j] - m);
+          if (e == 0.0f) continue;
+          l += e;
+          const float e16 = round_binary16(e);
+          load_row(p->v, b, g, j, p->value_dim, v.data());
+          for (std::int64_t d = 0; d < p->value_dim; ++d) acc[d] = round_binary16(acc[d] + round_binary16(e16 * v[d]));
+        }
+        write_row(*p, b, h, i, acc.data(), m, l);
+      }
+    }
+  }
+  return HR_OK;
+}
+
+}  // namespace
+
+const hr_kernel f16_f16acc = {
+    .abi_version = HEADROOM_ABI_VERSION,
+    .name = "f16_f16acc",
+    .description = "binary16 storage, QK^T and PV accumulated in binary16 (scale folded into Q), float32 softmax",
+    .level = HR_LEVEL_CORE,
+    .input_format = HR_FORMAT_BINARY16,
+    .output_format = HR_FORMAT_BINARY16,
+    .q_quant = {},
+    .k_quant = {},
+    .v_quant = {},
+    .mask_kinds = kAllMasks,
+    .masked_row = HR_MASKED_ROW_ZEROS,
+    .returns_lse = 1,
+    .layouts = kStridedLayouts,
+    .max_kv_len = 0,
+    .run_core = run,
+    .run_block = nullptr,
+};
+
+}  // namespace hr_kernels

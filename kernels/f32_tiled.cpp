@@ -1,0 +1,114 @@
+// headroom kernels — f32_tiled_<t>: tiled online softmax in float32, t×t tiles.
+//
+// Method: the online normaliser of Milakov & Gimelshein 2018 ("Online normalizer
+// calculation for softmax", alg. 3) applied tile by tile as in Dao et al. 2022
+// (FlashAttention, alg. 1). Queries are taken t rows at a time; for each tile
+// of t keys the kernel forms the t×t score tile, and each row keeps a running
+// maximum m, normaliser l and accumulator acc. A new tile with row maximum
+// m' > m rescales l and acc by exp(m − m') before adding its own terms, so the
+// scores are never all held at once. Key tiles past the last visible key of
+// every row of the query tile (causal, key padding) are skipped, as
+// FlashAttention does. Masked keys are never used; fully masked rows get zeros
+// and log-sum-exp −inf. Registered with t = 16 and t = 64.
+#include <cmath>
+#include <vector>
+
+#include "common.h"
+#include "kernel_list.h"
+
+namespace hr_kernels {
+namespace {
+
+template <std::int64_t kTile>
+std::int32_t run(const hr_core_problem* p) {
+  const MaskView mask(p->mask, p->q_len, p->kv_len);
+  if (!formats_are(*p, HR_FORMAT_FLOAT32, HR_FORMAT_FLOAT32) || !mask.known()) return HR_UNSUPPORTED;
+  const std::int64_t dk = p->key_dim, dv = p->value_dim;
+  std::vector<float> q(kTile * dk), k(kTile * dk), v(kTile * dv), s(kTile * kTile);
+  std::vector<float> m(kTile), l(kTile), acc(kTile * dv);
+  for (std::int64_t b = 0; b < p->batch; ++b) {
+    for (std::int64_t h = 0; h < p->q_heads; ++h) {
+      const std::int64_t g = kv_head(h, p->q_heads, p->kv_heads);
+      for (std::int64_t i0 = 0; i0 < p->q_len; i0 += kTile) {
+        const std::int64_t rows = std::min(kTile, p->q_len - i0);
+        std::int64_t key_end = 0;  // no row of this query tile sees a key at or past it
+        for (std::int64_t r = 0; r < rows; ++r) {
+          load_row(p->q, b, h, i0 + r, dk, &q[r * dk]);
+          key_end = std::max(key_end, mask.key_end(b, i0 + r));
+        }
+        std::fill(m.begin(), m.end(), kNegInf);
+        std::fill(l.begin(), l.end(), 0.0f);
+        std::fill(acc.begin(), acc.end(), 0.0f);
+        for (std::int64_t j0 = 0; j0 < key_end; j0 += kTile) {
+          const std::int64_t cols = std::min(kTile, p->kv_len - j0);
+          for (std::int64_t c = 0; c < cols; ++c) {
+            load_row(p->k, b, g, j0 + c, dk, &k[c * dk]);
+            load_row(p->v, b, g, j0 + c, dv, &v[c * dv]);
+          }
+          for (std::int64_t r = 0; r < rows; ++r) {
+            const std::int64_t i = i0 + r;
+            float tile_max = kNegInf;
+            for (std::int64_t c = 0; c < cols; ++c) {
+              const std::int64_t j = j0 + c;
+              float& z = s[r * kTile + c];
+              z = mask.visible(b, h, i, j) ? p->scale * dot(&q[r * dk], &k[c * dk], dk) + mask.bias(b, h, i, j)
+                                           : kNegInf;
+              tile_max = std::max(tile_max, z);
+            }
+            const float m_new = std::max(m[r], tile_max);
+            if (!(m_new > kNegInf)) continue;            // nothing visible to this row yet
+            const float alpha = std::exp(m[r] - m_new);  // 0 on the first visible tile
+            float* a = &acc[r * dv];
+            l[r] *= alpha;
+            for (std::int64_t d = 0; d < dv; ++d) a[d] *= alpha;
+            for (std::int64_t c = 0; c < cols; ++c) {
+              const float e = std::exp(s[r * kTile + c] - m_new);
+              if (e == 0.0f) continue;  // masked: its V row, possibly garbage, is not used
+              l[r] += e;
+              for (std::int64_t d = 0; d < dv; ++d) a[d] += e * v[c * dv + d];
+            }
+            m[r] = m_new;
+          }
+        }
+        for (std::int64_t r = 0; r < rows; ++r) {
+          if (!(m[r] > kNegInf)) {
+            write_masked_row(*p, b, h, i0 + r);
+          } else {
+            write_row(*p, b, h, i0 + r, &acc[r * dv], m[r], l[r]);
+          }
+        }
+      }
+    }
+  }
+  return HR_OK;
+}
+
+constexpr hr_kernel declare(const char* name, const char* description, std::int32_t (*fn)(const hr_core_problem*)) {
+  return {
+      .abi_version = HEADROOM_ABI_VERSION,
+      .name = name,
+      .description = description,
+      .level = HR_LEVEL_CORE,
+      .input_format = HR_FORMAT_FLOAT32,
+      .output_format = HR_FORMAT_FLOAT32,
+      .q_quant = {},
+      .k_quant = {},
+      .v_quant = {},
+      .mask_kinds = kAllMasks,
+      .masked_row = HR_MASKED_ROW_ZEROS,
+      .returns_lse = 1,
+      .layouts = kStridedLayouts,
+      .max_kv_len = 0,
+      .run_core = fn,
+      .run_block = nullptr,
+  };
+}
+
+}  // namespace
+
+const hr_kernel f32_tiled_16 =
+    declare("f32_tiled_16", "float32 tiled online softmax (FlashAttention-style), 16x16 tiles", run<16>);
+const hr_kernel f32_tiled_64 =
+    declare("f32_tiled_64", "float32 tiled online softmax (FlashAttention-style), 64x64 tiles", run<64>);
+
+}  // namespace hr_kernels

@@ -1,0 +1,34 @@
+// headroom kernels — the declaration of every bundled kernel, one object per
+// kernel file, so bundled.cpp can list them and one kernel can call another
+// through the ABI (the block kernels use f32_textbook for their heads).
+#pragma once
+
+#include "headroom/kernel_abi.h"
+
+namespace hr_kernels {
+
+// Sound kernels (kernels/*.cpp).
+extern const hr_kernel f32_textbook;
+extern const hr_kernel f32_tiled_16;
+extern const hr_kernel f32_tiled_64;
+extern const hr_kernel f16_f32acc;
+extern const hr_kernel f16_f16acc;
+extern const hr_kernel bf16_f32acc;
+extern const hr_kernel i8_tokenwise;
+extern const hr_kernel block_f32;
+extern const hr_kernel gqa_f32;
+
+// Flawed specimens (kernels/flawed/*.cpp), one deliberate defect each.
+extern const hr_kernel no_max_shift;
+extern const hr_kernel mask_tail_off_by_one;
+extern const hr_kernel nan_masked_rows;
+extern const hr_kernel causal_flipped;
+extern const hr_kernel oob_read_tail;
+extern const hr_kernel oob_write_row;
+extern const hr_kernel racy_reduction;
+extern const hr_kernel block_heads_swapped;
+extern const hr_kernel hang_on_shape;
+extern const hr_kernel crash_one_token;
+extern const hr_kernel f16_late_scale;
+
+}  // namespace hr_kernels
