@@ -62,6 +62,44 @@ TEST(RunRecord, RoundTripsThroughJsonWithNonFiniteFigures) {
   EXPECT_EQ(back.fault_totals().at("mask_leak"), 2);
 }
 
+TEST(RunRecord, LimitsAndToleratedFaultsRoundTrip) {
+  RunRecord r;
+  r.tolerated_faults = {"nondeterministic"};
+  r.skipped = {"masks-s3: kernel declares no dense mask"};
+  CaseRecord c = sample_case("a", true);
+  c.limits.max_ulp = INFINITY;
+  c.limits.max_scaled_error = 12.5;
+  c.limits.max_rel_rmse = 0x1p-20;
+  r.cases = {c};
+  const RunRecord back = run_record_from_json(to_json(r), "r.json");
+  EXPECT_EQ(back.tolerated_faults, r.tolerated_faults);
+  ASSERT_EQ(back.skipped.size(), 1u);
+  EXPECT_EQ(back.skipped[0], "masks-s3: kernel declares no dense mask");
+  EXPECT_TRUE(std::isinf(back.cases[0].limits.max_ulp));
+  EXPECT_EQ(back.cases[0].limits.max_scaled_error, 12.5);
+  EXPECT_EQ(back.cases[0].limits.max_rel_rmse, 0x1p-20);
+  EXPECT_TRUE(std::isnan(back.cases[0].limits.max_ratio_to_plain));  // not recorded
+  EXPECT_EQ(to_json(back), to_json(r));
+}
+
+TEST(RunRecord, RecordWithoutTheLaterOptionalFieldsStillReads) {
+  RunRecord r;
+  r.cases = {sample_case("a", true)};
+  auto j = to_json(r);
+  j.erase("tolerated_faults");
+  j["cases"][0].erase("limits");
+  const RunRecord back = run_record_from_json(j, "old.json");
+  EXPECT_TRUE(back.tolerated_faults.empty());
+  EXPECT_TRUE(std::isnan(back.cases[0].limits.max_scaled_error));
+  j["cases"][0]["limits"] = {{"max_ulp", 1}};  // present but incomplete: named, not ignored
+  try {
+    run_record_from_json(j, "old.json");
+    FAIL() << "accepted limits without max_scaled_error";
+  } catch (const InputError& e) {
+    EXPECT_NE(std::string(e.what()).find("cases[0] limits field \"max_scaled_error\""), std::string::npos) << e.what();
+  }
+}
+
 TEST(RunRecord, SyntaxErrorNamesLineAndColumn) {
   const auto dir = fresh_dir("syntax");
   std::ofstream(dir / "bad.json") << "{\n  \"schema\": 1,\n  \"tool\": oops\n}\n";

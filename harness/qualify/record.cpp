@@ -84,6 +84,7 @@ class Reader {
     }
     return out;
   }
+  bool has(const std::string& key) const { return j_.contains(key); }
   const json& raw() const { return j_; }
   const std::string& file() const { return file_; }
   const std::string& place() const { return place_; }
@@ -129,6 +130,22 @@ CaseFigures figures_from(const Reader& r) {
   f.worst_expected = r.num("worst_expected");
   f.worst_obtained = r.num("worst_obtained");
   return f;
+}
+
+json limits_json(const CaseLimits& l) {
+  return {{"max_ulp", number(l.max_ulp)},
+          {"max_scaled_error", number(l.max_scaled_error)},
+          {"max_rel_rmse", number(l.max_rel_rmse)},
+          {"max_ratio_to_plain", number(l.max_ratio_to_plain)}};
+}
+
+CaseLimits limits_from(const Reader& r) {
+  CaseLimits l;
+  l.max_ulp = r.num("max_ulp");
+  l.max_scaled_error = r.num("max_scaled_error");
+  l.max_rel_rmse = r.num("max_rel_rmse");
+  l.max_ratio_to_plain = r.num("max_ratio_to_plain");
+  return l;
 }
 
 // Returns: "line L, column C" of byte offset `byte` in `text` (1-based).
@@ -177,7 +194,8 @@ json to_json(const CaseRecord& c) {
           {"within_budget", c.within_budget},
           {"reasons", c.reasons},
           {"replay", c.replay},
-          {"ulp_histogram", c.ulp_histogram}};
+          {"ulp_histogram", c.ulp_histogram},
+          {"limits", limits_json(c.limits)}};
 }
 
 json to_json(const RunRecord& r) {
@@ -195,6 +213,7 @@ json to_json(const RunRecord& r) {
           {"shard", r.shard},
           {"verdict", r.verdict()},
           {"faults", r.fault_totals()},
+          {"tolerated_faults", r.tolerated_faults},
           {"cases", cases},
           {"skipped", r.skipped}};
 }
@@ -225,6 +244,8 @@ CaseRecord case_record_from_json(const json& j, const std::string& file, const s
   c.reasons = r.strings("reasons");
   c.replay = r.str("replay");
   c.ulp_histogram = r.numbers("ulp_histogram");
+  // Added after schema 1 was first written: records without it still read.
+  if (r.has("limits")) c.limits = limits_from(Reader(r.field("limits"), file, place + " limits"));
   return c;
 }
 
@@ -249,6 +270,8 @@ RunRecord run_record_from_json(const json& j, const std::string& file) {
   for (std::size_t i = 0; i < cases.size(); ++i)
     rec.cases.push_back(case_record_from_json(cases[i], file, "cases[" + std::to_string(i) + "]"));
   rec.skipped = r.strings("skipped");
+  // Added after schema 1 was first written: records without it still read (as none).
+  if (r.has("tolerated_faults")) rec.tolerated_faults = r.strings("tolerated_faults");
   return rec;
 }
 

@@ -9,6 +9,7 @@
 
 #include <cstdint>
 #include <filesystem>
+#include <limits>
 #include <map>
 #include <string>
 #include <vector>
@@ -38,6 +39,16 @@ struct CaseFigures {
   double worst_obtained = 0;        ///< o there
 };
 
+/// The limits a case was judged against (budget.h), resolved at the case's
+/// shape: +inf where the budget sets none, NaN where the record does not say
+/// (a record written before limits were recorded, or a case never judged).
+struct CaseLimits {
+  double max_ulp = std::numeric_limits<double>::quiet_NaN();
+  double max_scaled_error = std::numeric_limits<double>::quiet_NaN();  ///< in output rounding units
+  double max_rel_rmse = std::numeric_limits<double>::quiet_NaN();      ///< RMSE / RMS(o*)
+  double max_ratio_to_plain = std::numeric_limits<double>::quiet_NaN();
+};
+
 struct CaseRecord {
   std::string name;         ///< unique within a run; deterministic
   std::string family;
@@ -56,6 +67,7 @@ struct CaseRecord {
   std::vector<std::string> reasons;       ///< why not within budget
   std::string replay;                     ///< the one command that reproduces this case
   std::vector<double> ulp_histogram;      ///< elements per bucket of ulp_histogram_edges() (scores.h)
+  CaseLimits limits;                      ///< JSON "limits"; optional on read (absent: all NaN)
 };
 
 struct RunRecord {
@@ -70,6 +82,7 @@ struct RunRecord {
   std::string shard = "1/1";  ///< "i/n" (1-based); merged records say "merged"
   std::vector<CaseRecord> cases;
   std::vector<std::string> skipped;  ///< "name: reason" for cases that do not fit the kernel's declaration
+  std::vector<std::string> tolerated_faults;  ///< fault classes the budget tolerates; optional on read (absent: none)
 
   /// Returns: "pass" when every case is within budget, else "fail".
   std::string verdict() const;
