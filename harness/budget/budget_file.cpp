@@ -18,7 +18,8 @@ namespace headroom {
 namespace {
 
 constexpr const char* kFormats = "float64, float32, binary16, bfloat16, int8";
-constexpr const char* kKeys = "max_ulp, max_scaled_error, max_rel_rmse, max_ratio_to_plain, tolerated_faults";
+constexpr const char* kKeys =
+    "max_ulp, max_scaled_error, max_rel_rmse, max_ratio_to_plain, tolerated_faults, score_bits";
 
 std::string place(const toml::source_region& r) {
   return "line " + std::to_string(r.begin.line) + ", column " + std::to_string(r.begin.column);
@@ -172,6 +173,14 @@ class Reader {
       } else if (key == "tolerated_faults") {
         s.tolerated_faults = faults(v);
         s.tolerated_origin = origin(v);
+      } else if (key == "score_bits") {
+        auto i = v.as_integer();
+        if (!i || i->get() < 2 || i->get() > 64) {
+          fail(v.source(), "score_bits must be an integer from 2 to 64, found " + type_text(v),
+               "give the precision p of the arithmetic the kernel forms scores in, e.g. score_bits = 11");
+        }
+        s.score_bits = static_cast<int>(i->get());
+        s.score_bits_origin = origin(v);
       } else {
         fail(k.source(), "unknown key \"" + key + "\" in [" + title + "]",
              key == "max_rmse" ? "the RMSE limit is relative: write max_rel_rmse" : std::string("use ") + kKeys);
@@ -242,6 +251,10 @@ void apply(KernelBudget& b, const BudgetSection& s) {
   if (s.tolerated_faults) {
     b.tolerated_faults = *s.tolerated_faults;
     b.tolerated_origin = s.tolerated_origin;
+  }
+  if (s.score_bits) {
+    b.score_bits = *s.score_bits;
+    b.score_bits_origin = s.score_bits_origin;
   }
 }
 

@@ -123,10 +123,25 @@ double KernelBudget::scaled_error_limit(std::int64_t n, Format output_format) co
   return max_scaled_error.relative_at(n, u) / u;
 }
 
+double KernelBudget::score_conditioning(const CaseScore& s, double lambda) const {
+  if (s.score_terms <= 0) return 0.0;
+  const double us = std::ldexp(1.0, -score_bits);
+  return 2.0 * std::min(gamma_tilde_n(lambda, s.score_terms, us), gamma_n(s.score_terms, us)) / s.unit_roundoff;
+}
+
+double KernelBudget::row_scaled_error_limit(std::int64_t n, const CaseScore& s, std::size_t r) const {
+  const double base = scaled_error_limit(n, s.format);
+  if (max_scaled_error.kind != Limit::Kind::probabilistic || r >= s.row_score_magnitude.size()) return base;
+  return base + score_conditioning(s, max_scaled_error.lambda) * s.row_score_magnitude[r];
+}
+
 double KernelBudget::rel_rmse_limit(std::int64_t n, const CaseScore& s) const {
   if (max_rel_rmse.kind != Limit::Kind::probabilistic) return max_rel_rmse.relative_at(n, s.unit_roundoff);
   const double kappa = s.rms_expected > 0 ? std::max(1.0, s.rms_magnitude / s.rms_expected) : kInf;
-  return max_rel_rmse.relative_at(n, s.unit_roundoff) * kappa;
+  double z_max = 0;
+  for (double z : s.row_score_magnitude) z_max = std::max(z_max, z);
+  const double conditioning = score_conditioning(s, max_rel_rmse.lambda) * s.unit_roundoff * z_max;
+  return (max_rel_rmse.relative_at(n, s.unit_roundoff) + conditioning) * kappa;
 }
 
 KernelBudget default_budget(Format input) {
@@ -139,6 +154,13 @@ KernelBudget default_budget(Format input) {
   b.max_ulp = none(origin);
   b.max_ratio_to_plain = fixed(kPlainRatio, origin);
   b.tolerated_origin = origin;
+  // Scores formed in float32 (float64 for float64 inputs): float32 kernels;
+  // half-precision kernels accumulating QKᵀ in float32, as tensor-core kernels
+  // do (common practice); int8 kernels, whose int32 dot products are exact and
+  // are scaled in float32. A kernel forming scores in binary16 sets
+  // score_bits = 11 in its budget section.
+  b.score_bits = input == Format::float64 ? 53 : 24;
+  b.score_bits_origin = origin;
   switch (input) {
     // float64, float32: the kernel computes in its output format; u_w = u_F.
     case Format::float64:

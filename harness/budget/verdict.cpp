@@ -74,11 +74,28 @@ Verdict judge(const CaseScore* score, const CaseFaults& faults, const KernelBudg
   }
   if (!s.reference_certified) v.notes.push_back("the reference did not meet its certification target on every element");
 
-  const double scaled_limit = budget.scaled_error_limit(n, s.format);
-  if (s.max_scaled_error > scaled_limit) {
-    v.reasons.push_back(over_limit("max_scaled_error", s.max_scaled_error, scaled_limit,
-                                   budget.max_scaled_error.describe(n, s.unit_roundoff), budget.max_scaled_error.origin,
-                                   describe(s.worst_scaled)));
+  // Each row against its own limit: a row of large scores may lose what forming
+  // them costs (score conditioning), a row of small ones may not.
+  double worst_excess = 0, worst_value = s.max_scaled_error, worst_limit = budget.scaled_error_limit(n, s.format);
+  std::size_t worst_row = s.row_max_scaled.size();
+  for (std::size_t r = 0; r < s.row_max_scaled.size(); ++r) {
+    const double limit = budget.row_scaled_error_limit(n, s, r);
+    const double excess = limit > 0 ? s.row_max_scaled[r] / limit : (s.row_max_scaled[r] > 0 ? INFINITY : 0.0);
+    if (excess > worst_excess) {
+      worst_excess = excess;
+      worst_value = s.row_max_scaled[r];
+      worst_limit = limit;
+      worst_row = r;
+    }
+  }
+  if (s.row_max_scaled.empty() ? s.max_scaled_error > worst_limit : worst_excess > 1.0) {
+    std::string how = budget.max_scaled_error.describe(n, s.unit_roundoff);
+    if (worst_row < s.row_score_magnitude.size() && budget.max_scaled_error.kind == Limit::Kind::probabilistic)
+      how += ", plus score conditioning at Z = " + number(s.row_score_magnitude[worst_row]) + ", u_s = 2^-" +
+             std::to_string(budget.score_bits) + " (" + budget.score_bits_origin + ")";
+    v.reasons.push_back(over_limit("max_scaled_error", worst_value, worst_limit, how, budget.max_scaled_error.origin,
+                                   worst_value == s.max_scaled_error ? describe(s.worst_scaled)
+                                                                     : "row " + std::to_string(worst_row)));
   }
   const double rmse_limit = budget.rel_rmse_limit(n, s);
   if (s.relative_rmse > rmse_limit) {

@@ -198,6 +198,7 @@ Judgement judge_case(AttachedKernel& k, const Case& c, const JudgeOptions& opt, 
 
   const AnyReference ref = reference_of(rc.received, opt.detect.reference);
   j.score = score_of(first, ref, d.output_format);
+  condition_on_scores(*j.score, rc.received);
   fill_figures(rec.figures, *j.score);
   rec.ulp_histogram.assign(j.score->ulp_histogram.begin(), j.score->ulp_histogram.end());
   if (!j.score->reference_certified)

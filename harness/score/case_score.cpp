@@ -97,6 +97,7 @@ CaseScore score(const Tensor& out, const RefView& r, Format f) {
   const std::int64_t rows = width == 0 ? 0 : n / width;
   const std::vector<std::uint8_t> excluded = excluded_rows(r, rows);
   std::vector<std::uint8_t> scored(static_cast<std::size_t>(n), 0);
+  s.row_max_scaled.assign(static_cast<std::size_t>(rows), 0.0);
 
   // Pass 1: per-element errors, maxima, counts. Sums of squares wait for pass 2
   // so they can be scaled by the maxima and never overflow (float64 outputs
@@ -118,6 +119,8 @@ CaseScore score(const Tensor& out, const RefView& r, Format f) {
     ++s.elements;
     const ElementError e = element_error(o, y, r.bound.values[u], r.magnitude.values[u], f);
     if (e.ulp_uncertain) ++s.ulp_uncertain;
+    double& row_worst = s.row_max_scaled[static_cast<std::size_t>(k / width)];
+    row_worst = std::max(row_worst, e.scaled);
     s.max_ulp_certain = std::max(s.max_ulp_certain, e.ulp_uncertain && e.ulp > 0 ? e.ulp - 1 : e.ulp);
     ++s.ulp_histogram[histogram_bucket(e.ulp)];
     if (s.elements == 1 || e.scaled > s.max_scaled_error) {

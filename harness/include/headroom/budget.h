@@ -68,15 +68,29 @@ struct KernelBudget {
   Limit max_ulp, max_scaled_error, max_rel_rmse, max_ratio_to_plain;
   std::vector<FaultClass> tolerated_faults;
   std::string tolerated_origin;
+  /// Precision p_s of the arithmetic the kernel forms scores in (u_s = 2^-p_s).
+  /// Probabilistic limits add, per output row r, the error that forming scores
+  /// of magnitude Z_r costs whatever the rest of the kernel does (scores.h,
+  /// row_score_magnitude): 2·min(γ̃_m(λ, u_s), γ_m(u_s))·Z_r in units of Σ p|v|.
+  int score_bits = 24;
+  std::string score_bits_origin;
 
   bool tolerates(FaultClass c) const;
   /// Returns: the max_scaled_error limit at accumulation length n (fixed: as
   /// given; probabilistic: relative_at(n, u_F) / u_F).
   double scaled_error_limit(std::int64_t n, Format output_format) const;
+  /// Returns: the scaled-error limit of output row r: scaled_error_limit(n, F)
+  /// plus, for a probabilistic max_scaled_error, score_conditioning(s, λ)·Z_r
+  /// (Z_r = s.row_score_magnitude[r], 0 when not filled).
+  double row_scaled_error_limit(std::int64_t n, const CaseScore& s, std::size_t r) const;
+  /// Returns: 2·min(γ̃_m(λ, u_s), γ_m(u_s)) / u_F, m = s.score_terms: the scaled
+  /// error per unit of score magnitude that forming the scores may cost.
+  double score_conditioning(const CaseScore& s, double lambda) const;
   /// Returns: the max_rel_rmse limit: fixed as given; probabilistic
   /// relative_at(n, u_F) · κ with κ = RMS(Σp|v|)/RMS(o*) ≥ 1 the case's
   /// cancellation factor (+inf when RMS(o*) = 0), so that on cancelling rows the
-  /// default bounds RMSE against the row magnitudes, as max_scaled_error does.
+  /// default bounds RMSE against the row magnitudes, as max_scaled_error does;
+  /// plus the score-conditioning term at the case's largest Z, times u_F·κ.
   double rel_rmse_limit(std::int64_t n, const CaseScore& s) const;
 };
 
@@ -89,6 +103,8 @@ struct BudgetSection {
   std::optional<Limit> max_ulp, max_scaled_error, max_rel_rmse, max_ratio_to_plain;
   std::optional<std::vector<FaultClass>> tolerated_faults;
   std::string tolerated_origin;
+  std::optional<int> score_bits;
+  std::string score_bits_origin;
 };
 
 struct Budget {

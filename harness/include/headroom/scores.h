@@ -25,6 +25,7 @@
 #include <string>
 #include <vector>
 
+#include "headroom/case.h"
 #include "headroom/format.h"
 #include "headroom/reference.h"
 #include "headroom/tensor.h"
@@ -101,6 +102,16 @@ struct CaseScore {
   std::optional<double> lse_error;  ///< max |L − L*| over rows not fully masked; absent when no lse given
   std::int64_t lse_non_finite = 0;  ///< non-finite L where L* is finite (excluded from lse_error)
 
+  std::vector<double> row_max_scaled;  ///< max scaled error per output row (core (b,h,i), block (b,i)); 0 if none scored
+  /// Per output row, the score magnitude Z_r = max over visible keys j of
+  /// |s|·Σ_d |q_d||k_jd| + |bias_j| (block: over every head, with |q|, |k| the
+  /// projections' absolute sums): a score formed in arithmetic of unit roundoff
+  /// u_s is off by up to about γ_m(u_s)·Z_r, and softmax carries that error to
+  /// the output as up to 2·γ_m(u_s)·Z_r·Σ_j p_j|v_j| — conditioning no kernel
+  /// escapes. Empty until condition_on_scores fills it.
+  std::vector<double> row_score_magnitude;
+  std::int64_t score_terms = 0;      ///< m: roundings in forming one score (Dk + 1; block + Dm)
+
   WorstElement worst_scaled;        ///< the element of max_scaled_error
   WorstElement worst_ulp;           ///< the element of max_ulp
   std::array<std::int64_t, 24> ulp_histogram{};  ///< elements per bucket of ulp_histogram_edges()
@@ -116,6 +127,11 @@ CaseScore score_core(const Tensor& out, const Tensor* lse, const CoreReference& 
 /// Y[b, i, :] is excluded when query i is fully masked in any head of batch b.
 /// Throws std::invalid_argument on a shape mismatch.
 CaseScore score_block(const Tensor& out, const BlockReference& ref, Format f);
+
+/// Fills s.row_score_magnitude and s.score_terms from the values the kernel
+/// received (double arithmetic: a budget coordinate, relative error ≤ 2^-50).
+/// Preconditions: s scores the output of `received`.
+void condition_on_scores(CaseScore& s, const Case& received);
 
 /// Returns: "[0,1,5,3] expected 0x1.8p-3 (in format 0x1.8p-3) obtained 0x1.9p-3,
 /// 2 ulp, scaled 3.1": one line, hex floats exact (STYLE.md: failure lines).

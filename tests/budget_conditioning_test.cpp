@@ -1,0 +1,80 @@
+// Tests of the score-conditioning term of budgets (budget.h score_bits; scores.h row_score_magnitude).
+#include <gtest/gtest.h>
+
+#include <cmath>
+
+#include "headroom/budget.h"
+#include "headroom/scores.h"
+
+namespace headroom {
+namespace {
+
+CaseScore two_rows(double z0, double z1, double e0, double e1) {
+  CaseScore s;
+  s.format = Format::float32;
+  s.unit_roundoff = unit_roundoff(Format::float32);
+  s.elements = 2;
+  s.row_max_scaled = {e0, e1};
+  s.row_score_magnitude = {z0, z1};
+  s.score_terms = 9;
+  s.max_scaled_error = std::max(e0, e1);
+  s.rms_expected = 1;
+  s.rms_magnitude = 1;
+  return s;
+}
+
+TEST(ScoreConditioning, MagnitudeIsTheLargestAbsoluteScoreSumOverVisibleKeys) {
+  Case c;
+  c.core.shape = {1, 1, 1, 2, 2, 2, 1};
+  c.core.scale = 0.5f;
+  c.core.mask.kind = MaskKind::causal_top_left;
+  c.core_inputs.q = Tensor({1, 1, 2, 2});
+  c.core_inputs.q.values = {1, 2, -1, 0};
+  c.core_inputs.k = Tensor({1, 1, 2, 2});
+  c.core_inputs.k.values = {3, -4, 10, 10};
+  c.core_inputs.v = Tensor({1, 1, 2, 1});
+  CaseScore s;
+  condition_on_scores(s, c);
+  ASSERT_EQ(s.row_score_magnitude.size(), 2u);
+  // Row 0 sees key 0 only: 0.5·(|1·3| + |2·(−4)|) = 5.5, although the score itself is −2.5.
+  EXPECT_EQ(s.row_score_magnitude[0], 5.5);
+  // Row 1 sees both keys: max(0.5·3, 0.5·10) = 5.
+  EXPECT_EQ(s.row_score_magnitude[1], 5.0);
+  EXPECT_EQ(s.score_terms, 3);
+}
+
+TEST(ScoreConditioning, EachRowIsJudgedAgainstItsOwnLimit) {
+  const KernelBudget b = default_budget(Format::float32);
+  const std::int64_t n = 30;
+  const double base = b.scaled_error_limit(n, Format::float32);
+  // A row of huge scores may lose far more than λ√n units, a row of small scores may not.
+  const CaseScore loud_ok = two_rows(0, 1e4, base / 2, base * 100);
+  EXPECT_TRUE(judge(&loud_ok, CaseFaults{}, b, n).pass);
+  const CaseScore quiet_bad = two_rows(0, 1e4, base * 2, base * 100);
+  const Verdict v = judge(&quiet_bad, CaseFaults{}, b, n);
+  ASSERT_FALSE(v.pass);
+  EXPECT_NE(v.reasons.front().text.find("row 0"), std::string::npos) << v.reasons.front().text;
+}
+
+TEST(ScoreConditioning, TermIsTwiceTheScoreErrorBoundInOutputUnits) {
+  KernelBudget b = default_budget(Format::binary16);
+  CaseScore s = two_rows(0, 0, 0, 0);
+  s.format = Format::binary16;
+  s.unit_roundoff = unit_roundoff(Format::binary16);
+  // Scores in float32 cost binary16 outputs 2·γ̃_9(4, 2^-24)/2^-11 per unit of Z.
+  const double us = std::ldexp(1.0, -24);
+  EXPECT_DOUBLE_EQ(b.score_conditioning(s, 4.0),
+                   2 * std::min(gamma_tilde_n(4.0, 9, us), gamma_n(9, us)) / std::ldexp(1.0, -11));
+  b.score_bits = 11;  // a kernel forming scores in binary16 pays 2^13 times more
+  EXPECT_GT(b.score_conditioning(s, 4.0), 1000 * 2 * gamma_tilde_n(4.0, 9, us) / std::ldexp(1.0, -11));
+}
+
+TEST(ScoreConditioning, BudgetFileSetsScoreBits) {
+  const Budget b = parse_budget("version = 1\n[kernel.k]\nscore_bits = 11\n", "b.toml");
+  EXPECT_EQ(b.for_kernel("k", Format::binary16).score_bits, 11);
+  EXPECT_EQ(b.for_kernel("other", Format::binary16).score_bits, 24);
+  EXPECT_THROW(parse_budget("version = 1\n[kernel.k]\nscore_bits = 1\n", "b.toml"), std::exception);
+}
+
+}  // namespace
+}  // namespace headroom
