@@ -1,18 +1,18 @@
-// headroom kernels — f16_f16acc: binary16 storage and binary16 arithmetic for both products.
+// headroom kernels — f16_f16acc: binary16 storage, binary16 accumulation of PV.
 //
-// Method: every multiply and add of QKᵀ and PV is done in float32 on binary16
-// values and rounded straight back to binary16, which makes each one correctly
-// rounded binary16 arithmetic (24 ≥ 2·11 + 2, Figueroa 1995). The scale is
-// folded into Q before QKᵀ (q'_d = fl16(s·q_d)), so scores stay in the range of
-// the logits rather than of the raw dot products (Dk^½ larger, typically). The
-// softmax statistics (maximum, exp, normaliser) are float32, as half-precision
-// kernels keep them; p_j is rounded to binary16 for the PV product; O = acc / l
-// is rounded once. Masked keys are never read; a fully masked row gets zeros
-// and log-sum-exp −inf.
+// Method: QKᵀ is accumulated in float32 on the binary16 inputs (as tensor-core
+// kernels do) and scaled, z_j = s·(q·k_j) + bias_j, so scores cannot overflow
+// binary16's 65504. The softmax statistics (maximum, exp, normaliser) are
+// float32, as half-precision kernels keep them. PV is where binary16 shows:
+// p_j is rounded to binary16 and every multiply and add of PV is done in
+// float32 on binary16 values and rounded straight back to binary16, which makes
+// each one correctly rounded binary16 arithmetic (24 ≥ 2·11 + 2, Figueroa
+// 1995). O = acc / l is rounded once. Masked keys are never read; a fully
+// masked row gets zeros and log-sum-exp −inf.
 //
 // Error: a binary16 sum of n terms is off by up to γ_n·Σ|terms| (Higham 2002,
-// §3.1), u = 2^-11; so the score error is ≲ Dk·u·Σ_d|q'_d k_d| and the PV error
-// ≲ Tk·u·Σ_j p_j|v_j| in the worst case, about √n·u typically (Higham & Mary 2019).
+// §3.1), u = 2^-11; so the PV error is ≲ Tk·u·Σ_j p_j|v_j| in the worst case,
+// about √Tk·u typically (Higham & Mary 2019).
 #include <cmath>
 #include <vector>
 
@@ -31,15 +31,14 @@ std::int32_t run(const hr_core_problem* p) {
       const std::int64_t g = kv_head(h, p->q_heads, p->kv_heads);
       for (std::int64_t i = 0; i < p->q_len; ++i) {
         load_row(p->q, b, h, i, p->key_dim, q.data());
-        for (float& x : q) x = round_binary16(p->scale * x);  // scale before QKᵀ
         float m = kNegInf;
         for (std::int64_t j = 0; j < p->kv_len; ++j) {
           z[j] = kNegInf;
           if (!mask.visible(b, h, i, j)) continue;
           load_row(p->k, b, g, j, p->key_dim, k.data());
           float s = 0.0f;
-          for (std::int64_t d = 0; d < p->key_dim; ++d) s = round_binary16(s + round_binary16(q[d] * k[d]));
-          z[j] = round_binary16(s + mask.bias(b, h, i, j));
+          for (std::int64_t d = 0; d < p->key_dim; ++d) s += q[d] * k[d];
+          z[j] = p->scale * s + mask.bias(b, h, i, j);
           m = std::max(m, z[j]);
         }
         if (!(m > kNegInf)) {
@@ -68,7 +67,7 @@ std::int32_t run(const hr_core_problem* p) {
 const hr_kernel f16_f16acc = {
     .abi_version = HEADROOM_ABI_VERSION,
     .name = "f16_f16acc",
-    .description = "binary16 storage, QK^T and PV accumulated in binary16 (scale folded into Q), float32 softmax",
+    .description = "binary16 storage, float32 QK^T and softmax, PV accumulated in binary16",
     .level = HR_LEVEL_CORE,
     .input_format = HR_FORMAT_BINARY16,
     .output_format = HR_FORMAT_BINARY16,
