@@ -138,7 +138,10 @@ class ProgramKernel final : public AttachedKernel {
     ExchangeDir dir;
     write_exchange(dir.path(), c, declaration_);
     const std::string line = command_ + " run " + attach_detail::shell_quote(dir.path().string());
-    attach_detail::ProcessResult p = attach_detail::run_shell(line, opt.time_limit_s, opt.memory_limit_bytes);
+    // No address-space limit here: GPU runtimes and sanitizer builds reserve
+    // terabytes of address space they never touch, and the program's memory
+    // cannot corrupt headroom's. The time limit still applies.
+    attach_detail::ProcessResult p = attach_detail::run_shell(line, opt.time_limit_s, 0);
     KernelRun r;
     if (p.timed_out) {
       r.status = RunStatus::timeout;

@@ -186,6 +186,12 @@ std::string describe_end(const ProcessResult& r, double time_limit_s) {
     s = "killed by " + signal_text(r.signo);
   } else {
     s = "exit code " + std::to_string(r.exit_code);
+    // A shell reports a child killed by signal N as exit status 128 + N (POSIX
+    // Shell Command Language, §2.8.2): say which signal that was.
+    if (r.exit_code > 128 && r.exit_code < 128 + 65 && sigabbrev_np(r.exit_code - 128) != nullptr) {
+      s += " (128 + " + std::to_string(r.exit_code - 128) + ": as a shell reports a process killed by " +
+           signal_text(r.exit_code - 128) + ")";
+    }
   }
   std::string tail = r.err_tail;
   while (!tail.empty() && (tail.back() == '\n' || tail.back() == ' ')) tail.pop_back();

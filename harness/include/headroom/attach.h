@@ -66,10 +66,13 @@ const char* run_status_name(RunStatus s);
 /// and is read-only; every output has 64 canary bytes before and after it
 /// and a guard page after that; outputs are prefilled with a quiet-NaN
 /// pattern, so an element left unwritten reads as NaN. The child has no core
-/// dumps and RLIMIT_AS = its address space at fork + memory_limit_bytes.
+/// dumps, its stdout goes to stderr (headroom's stdout stays headroom's), and
+/// RLIMIT_AS = its address space at fork + memory_limit_bytes.
 /// In-process (isolate = false): same buffers, guard pages left accessible
 /// and checked like canaries afterwards; no time or memory limit.
-/// External programs always run in their own process group; isolate is moot.
+/// External programs always run in their own process group, under the time
+/// limit but with no address-space limit (GPU runtimes and sanitizer builds
+/// reserve terabytes they never touch); isolate is moot for them.
 struct RunOptions {
   bool isolate = true;          ///< run in a child process (guard pages, canaries, limits)
   double time_limit_s = 20.0;   ///< wall clock, seconds; the child is SIGKILLed past it

@@ -16,6 +16,12 @@
  * Unused leading extents are 1. Inputs are read-only; a kernel must write every
  * element of every output, and nothing outside them.
  *
+ * What headroom guarantees about the buffers (and checks): the byte after an
+ * input's last element is the first of an inaccessible page, so an input's
+ * start is aligned only to its element size — use unaligned loads; outputs
+ * arrive filled with a quiet NaN, so an element left unwritten reads as NaN,
+ * and are fenced by canary bytes on both sides.
+ *
  * No C++ here, no harness internals: this header stands alone.
  */
 #ifndef HEADROOM_KERNEL_ABI_H
@@ -104,8 +110,10 @@ typedef struct hr_mask {
   const int64_t* key_lengths; /* HR_MASK_KEY_PADDING: [batch] */
   const uint8_t* allowed;     /* HR_MASK_DENSE: extents [B, Hm, Tq, Tk], Hm 1 or Hq */
   const float* bias;          /* HR_MASK_BIAS: extents [B, Hm, Tq, Tk] */
-  int64_t extents[4];         /* of allowed or bias */
-  int64_t strides[4];         /* of allowed or bias, in elements; stride 0 broadcasts */
+  int64_t extents[4];         /* of allowed or bias; extents[1] is Hm (1 or Hq) */
+  int64_t strides[4];         /* of allowed or bias, in elements; stride 0 broadcasts:
+                                 when Hm is 1, strides[1] is 0, so [b, h, i, j] reads
+                                 the right entry for every query head h */
 } hr_mask;
 
 /* Core attention: O[b,h,i,:] = softmax_j(scale * Q[b,h,i,:].K[b,g,j,:] + bias) V[b,g,j,:]
