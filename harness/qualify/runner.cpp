@@ -64,6 +64,19 @@ std::function<void(CaseRecord&, const Judgement&, const Case&)> budget_applier(K
     const Verdict v = judge(j.score ? &*j.score : nullptr, j.faults, budget, accumulation_length(c),
                             j.ratio ? &*j.ratio : nullptr);
     rec.within_budget = v.pass;
+    if (j.score) {
+      // The limits at this case's shape; the scaled-error one at the row holding the worst error.
+      const CaseScore& s = *j.score;
+      const std::int64_t n = accumulation_length(c);
+      const auto worst = std::max_element(s.row_max_scaled.begin(), s.row_max_scaled.end());
+      rec.limits.max_scaled_error =
+          worst == s.row_max_scaled.end()
+              ? budget.scaled_error_limit(n, s.format)
+              : budget.row_scaled_error_limit(n, s, static_cast<std::size_t>(worst - s.row_max_scaled.begin()));
+      rec.limits.max_rel_rmse = budget.rel_rmse_limit(n, s);
+      rec.limits.max_ulp = budget.max_ulp.relative_at(n, s.unit_roundoff);
+      rec.limits.max_ratio_to_plain = budget.max_ratio_to_plain.relative_at(n, s.unit_roundoff);
+    }
     rec.reasons.clear();
     for (const auto& r : v.reasons) rec.reasons.push_back(r.text);
     for (const auto& n : v.notes) rec.fault_details.push_back("note: " + n);
