@@ -140,6 +140,15 @@ json parse_json(std::string_view text, const std::string& file) {
     if (at != std::string::npos) reason = reason.substr(at + 2);
     const std::size_t offset = e.byte == 0 ? 0 : e.byte - 1;
     throw InputError(file, line_column(text, offset), "not valid JSON: " + reason, "correct the JSON syntax at that place");
+  } catch (const json::out_of_range& e) {
+    // A number beyond double's range (1e400): nlohmann throws out_of_range.406
+    // "number overflow parsing '<token>'" without a position; locate the token.
+    std::string token = e.what();
+    const auto open = token.find("parsing '");
+    token = open == std::string::npos ? std::string() : token.substr(open + 9, token.rfind('\'') - open - 9);
+    const std::size_t at = token.empty() ? std::string_view::npos : text.find(token);
+    throw InputError(file, at == std::string_view::npos ? "a number" : line_column(text, at),
+                     "number " + token + " is beyond the range of a double", "write a number of plausible size");
   }
   if (!repeated.empty())
     throw InputError(file, "field \"" + repeated + "\"", "the key appears more than once", "keep one of them");

@@ -5,11 +5,14 @@
 // little-endian uint16 (1.0) or uint32 (2.0, 3.0), the header, the data.
 #include "headroom/npy.h"
 
+#include <unistd.h>
+
 #include <algorithm>
 #include <array>
 #include <cerrno>
 #include <cstring>
 #include <fstream>
+#include <new>
 #include <stdexcept>
 #include <system_error>
 
@@ -66,6 +69,17 @@ Prelude read_prelude(const unsigned char* b, std::size_t n, std::uint64_t file_s
   return p;
 }
 
+// The most data one array may hold: the machine's physical memory (sysconf,
+// POSIX _SC_PHYS_PAGES), or 2^40 bytes where that is unknown.
+std::uint64_t memory_cap() {
+  static const std::uint64_t cap = [] {
+    const long pages = ::sysconf(_SC_PHYS_PAGES), page = ::sysconf(_SC_PAGESIZE);
+    return pages > 0 && page > 0 ? static_cast<std::uint64_t>(pages) * static_cast<std::uint64_t>(page)
+                                 : std::uint64_t{1} << 40;
+  }();
+  return cap;
+}
+
 struct Layout {
   npy_detail::NpyHeader header;
   std::size_t data_offset = 0;
@@ -120,6 +134,12 @@ Layout check_layout(const Prelude& p, std::string_view header_text, std::uint64_
                      std::to_string(available - bytes) + " bytes after the data that shape " + shape_text(h.shape) +
                          " of '" + h.descr + "' describes",
                      "the header's shape does not match the file; " + std::string(kRewriteFix));
+  // A file can be sparse: its length is no proof its data fits in memory.
+  if (bytes > memory_cap())
+    throw InputError(file, "data",
+                     "shape " + shape_text(h.shape) + " of '" + h.descr + "' needs " + std::to_string(bytes) +
+                         " bytes, more than this machine's memory (" + std::to_string(memory_cap()) + " bytes)",
+                     "the header is wrong, or the array is too large for headroom; " + std::string(kRewriteFix));
   l.data_size = static_cast<std::size_t>(bytes);
   return l;
 }
@@ -188,7 +208,12 @@ NpyArray read_npy(const std::filesystem::path& path) {
 
   const std::size_t offset = l.data_offset, n = l.data_size;
   NpyArray a = make_array(std::move(l));
-  a.bytes.resize(n);  // n ≤ the file's size: checked by check_layout
+  try {
+    a.bytes.resize(n);  // n ≤ the file's size and ≤ physical memory: checked by check_layout
+  } catch (const std::bad_alloc&) {
+    throw InputError(file, "data", "cannot allocate " + std::to_string(n) + " bytes for the data",
+                     "free memory, or split the array");
+  }
   in.read(reinterpret_cast<char*>(a.bytes.data()), static_cast<std::streamsize>(n));
   if (static_cast<std::size_t>(in.gcount()) != n)
     throw InputError(file, "data", "read failed after " + std::to_string(in.gcount()) + " of " + std::to_string(n) + " bytes",

@@ -8,8 +8,10 @@
 // raw data. headroom reads and writes only little-endian, C-order data of the
 // dtypes below; anything else is refused with an InputError naming the file,
 // the place ("header", "byte 57", "data") and the fix. Sizes are checked
-// against the file's length before any buffer for the data is allocated, so a
-// corrupt header cannot make the reader allocate what the file does not hold.
+// against the file's length — and against the machine's physical memory, since a
+// sparse file can be long without holding anything — before any buffer for the
+// data is allocated, so a corrupt header cannot make the reader allocate what
+// the file does not hold.
 //
 //   descr  meaning                          Tensor values
 //   '<f8'  float64                          exact
@@ -55,7 +57,8 @@ std::optional<std::size_t> npy_item_size(std::string_view descr);
 /// an unknown version, a header that is not a Python dict literal with exactly
 /// the three keys, fortran_order True, a big-endian or unknown dtype, a
 /// negative extent, more than 32 axes, a size that overflows, data shorter or
-/// longer than the shape says, or a bool byte other than 0 and 1.
+/// longer than the shape says, data larger than physical memory, or a bool
+/// byte other than 0 and 1.
 NpyArray read_npy(const std::filesystem::path& file);
 
 /// Returns: the array held in `data`, as read_npy would read it from a file
