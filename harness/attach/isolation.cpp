@@ -105,6 +105,9 @@ void on_child_exit(int status, void*) {
     rlimit as{as_limit, as_limit};
     setrlimit(RLIMIT_AS, &as);
   }
+  // headroom's stdout may carry a JSON record: whatever the kernel prints
+  // goes to stderr instead, where it is still seen but corrupts nothing.
+  dup2(STDERR_FILENO, STDOUT_FILENO);
   on_exit(on_child_exit, nullptr);
   int rc = 0;
   try {

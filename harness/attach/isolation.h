@@ -3,7 +3,8 @@
 // Internal to the attach stage. The child inherits the MAP_SHARED buffers of a
 // GuardedArena, installs a SIGSEGV/SIGBUS handler (SA_SIGINFO, on its own
 // stack) that records the faulting address in a shared control page, sets
-// RLIMIT_CORE = 0 and RLIMIT_AS, makes the call and _exits. The parent waits on
+// RLIMIT_CORE = 0 and RLIMIT_AS, points its stdout at stderr (so kernel output
+// cannot corrupt what headroom prints), makes the call and _exits. The parent waits on
 // a pidfd with the time limit, SIGKILLs the child past it, and always reaps
 // it: no zombie, no descriptor is left behind.
 #pragma once
