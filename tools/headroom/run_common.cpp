@@ -9,6 +9,9 @@
 
 #include "headroom/bundled_registry.h"
 #include "headroom/input_error.h"
+#include "headroom/progress_bar.h"
+#include "headroom/reports.h"
+#include "headroom/terminal_report.h"
 
 namespace headroom::cli {
 
@@ -92,10 +95,13 @@ RunSetup open_run(const RunFlags& f, const std::string& command, const std::stri
   s.journal = std::make_unique<Journal>(journal_path(f, command), command + " " + identity + " shard " + r.shard.text(),
                                         f.resume);
   r.journal = s.journal.get();
-  if (!f.quiet && ::isatty(STDERR_FILENO)) {
-    r.progress = [](std::size_t done, std::size_t total, const CaseRecord& c) {
-      std::cerr << "\r\033[K[" << done << "/" << total << "] " << c.name << std::flush;
-      if (done == total) std::cerr << "\r\033[K";
+  if (!f.quiet) {
+    // The bar draws only when stderr is a terminal; its total is known at the first case.
+    auto bar = std::make_shared<std::unique_ptr<ProgressBar>>();
+    r.progress = [bar](std::size_t done, std::size_t total, const CaseRecord& c) {
+      if (!*bar) *bar = std::make_unique<ProgressBar>(total);
+      (*bar)->update(done, c.name);
+      if (done == total) (*bar)->finish();
     };
   }
   return s;
@@ -109,23 +115,14 @@ int finish_run(RunRecord& record, const RunFlags& f, const RunSetup& setup) {
     std::error_code ec;
     std::filesystem::remove(setup.journal->path(), ec);
   }
+  write_reports(record, ReportOptions{f.markdown, f.html, f.junit});
   const std::string verdict = record.verdict();
-  if (!f.quiet) {
-    double worst_ulp = 0, worst_scaled = 0;
-    for (const auto& c : record.cases) {
-      worst_ulp = std::max(worst_ulp, c.figures.max_ulp);
-      worst_scaled = std::max(worst_scaled, c.figures.max_scaled_error);
-    }
-    std::cout << record.kernel << " (" << record.input_format << " -> " << record.output_format << "): "
-              << record.cases.size() << " cases, " << record.skipped.size() << " skipped, worst ULP " << worst_ulp
-              << ", worst scaled error " << worst_scaled << '\n';
-    for (const auto& [name, n] : record.fault_totals()) std::cout << "  fault " << name << ": " << n << " case(s)\n";
-    for (const auto& c : record.cases)
-      if (!c.within_budget)
-        std::cout << "FAIL kernel=" << record.kernel << " family=" << c.family << " seed=" << c.seed << " case=" << c.name
-                  << (c.reasons.empty() ? "" : " reason=\"" + c.reasons.front() + "\"") << " replay: " << c.replay << '\n';
+  if (f.quiet) {
+    std::cout << "verdict: " << verdict << " (evidence over the cases tried, not a proof)\n";
+  } else {
+    std::cout.flush();
+    print_summary(stdout, record);
   }
-  std::cout << "verdict: " << verdict << " (evidence over the cases tried, not a proof)\n";
   return verdict == "pass" ? 0 : 1;
 }
 
