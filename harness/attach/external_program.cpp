@@ -46,7 +46,16 @@ class ExchangeDir {
   fs::path path_;
 };
 
-void put(const fs::path& dir, const std::string& file, const NpyArray& a) { write_npy(dir / file, a); }
+// Plain writes, not write_npy's flushed atomic rename: the folder is private,
+// short-lived and read only after this process has closed every file, so
+// durability would cost an fsync per tensor for nothing.
+void put(const fs::path& dir, const std::string& file, const NpyArray& a) {
+  const std::vector<unsigned char> bytes = npy_file_bytes(a);
+  std::ofstream f(dir / file, std::ios::binary);
+  f.write(reinterpret_cast<const char*>(bytes.data()), static_cast<std::streamsize>(bytes.size()));
+  f.close();
+  if (!f) throw std::runtime_error("cannot write " + (dir / file).string());
+}
 
 NpyArray raw_array(std::vector<std::int64_t> shape, const char* descr, const void* data, std::size_t bytes) {
   NpyArray a;

@@ -69,7 +69,9 @@ const char* run_status_name(RunStatus s);
 /// dumps, its stdout goes to stderr (headroom's stdout stays headroom's), and
 /// RLIMIT_AS = its address space at fork + memory_limit_bytes.
 /// In-process (isolate = false): same buffers, guard pages left accessible
-/// and checked like canaries afterwards; no time or memory limit.
+/// and checked like canaries afterwards; no time or memory limit, and a
+/// kernel that crashes or calls exit() ends headroom with it (for speed on
+/// kernels already known to behave).
 /// External programs always run in their own process group, under the time
 /// limit but with no address-space limit (GPU runtimes and sanitizer builds
 /// reserve terabytes they never touch); isolate is moot for them.
@@ -82,8 +84,9 @@ struct RunOptions {
 struct KernelRun {
   RunStatus status = RunStatus::ok;
   std::string detail;  ///< human-readable reason when status != ok
-  Tensor out;          ///< core [B, Hq, Tq, Dv] or block [B, Tq, Dm], output-format values as doubles
-  Tensor lse;          ///< [B, Hq, Tq] when the kernel returns log-sum-exp, else empty
+  Tensor out;          ///< core [B, Hq, Tq, Dv] or block [B, Tq, Dm], output-format values as doubles;
+                       ///< filled only when status is ok (unwritten elements read as NaN)
+  Tensor lse;          ///< [B, Hq, Tq] when ok and the kernel returns log-sum-exp, else empty
 };
 
 class AttachedKernel {
