@@ -8,6 +8,7 @@
 #include <fstream>
 #include <vector>
 
+#include "headroom/atomic_file.h"
 #include "headroom/input_error.h"
 
 namespace headroom {
@@ -33,7 +34,7 @@ Journal::Journal(std::filesystem::path path, const std::string& identity, bool r
       nlohmann::json head;
       try {
         head = nlohmann::json::parse(lines[0]);
-      } catch (const nlohmann::json::parse_error&) {
+      } catch (const nlohmann::json::exception&) {  // parse_error, or out_of_range for a number like 1e400
         throw InputError(file, "line 1", "is not a journal identity line", "remove the journal to start afresh");
       }
       if (head != id_line)
@@ -44,17 +45,18 @@ Journal::Journal(std::filesystem::path path, const std::string& identity, bool r
         try {
           auto c = case_record_from_json(nlohmann::json::parse(lines[i]), file, place);
           done_[c.name] = std::move(c);
-        } catch (const nlohmann::json::parse_error&) {
+        } catch (const nlohmann::json::exception&) {  // parse_error, or out_of_range for a number like 1e400
           // Only the last line can be a write cut short by a kill; anything else is damage.
           if (i + 1 != lines.size())
             throw InputError(file, place, "is not a valid case record", "remove the journal to start afresh");
         }
       }
       if (!lines.back().empty() && done_.size() + 1 < lines.size()) {
-        // Rewrite without the torn last line so appends start on a clean line.
-        std::ofstream out(path_, std::ios::trunc);
-        out << lines[0] << '\n';
-        for (std::size_t i = 1; i + 1 < lines.size(); ++i) out << lines[i] << '\n';
+        // Rewrite without the torn last line so appends start on a clean line;
+        // atomically, so a full disk cannot cost the cases already journalled.
+        std::string kept = lines[0] + '\n';
+        for (std::size_t i = 1; i + 1 < lines.size(); ++i) kept += lines[i] + '\n';
+        write_file_atomically(path_, kept);
       }
     }
   }
@@ -62,9 +64,12 @@ Journal::Journal(std::filesystem::path path, const std::string& identity, bool r
   if (!file_)
     throw InputError(file, "file", std::string("cannot be opened for writing: ") + std::strerror(errno),
                      "choose a writable folder for the journal");
-  if (fresh) {
-    std::fputs((id_line.dump() + "\n").c_str(), file_);
-    std::fflush(file_);
+  if (fresh && (std::fputs((id_line.dump() + "\n").c_str(), file_) < 0 || std::fflush(file_) != 0)) {
+    const std::string reason = std::strerror(errno);
+    std::fclose(file_);
+    file_ = nullptr;
+    throw InputError(file, "line 1", "cannot write the journal's identity line: " + reason,
+                     "free disk space or choose another folder for the journal");
   }
 }
 

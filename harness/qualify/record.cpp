@@ -288,6 +288,9 @@ RunRecord read_run_record(const std::filesystem::path& path) {
   } catch (const json::parse_error& e) {
     throw InputError(file, line_column(text, e.byte == 0 ? 0 : e.byte - 1), "not valid JSON",
                      "give a record written by headroom --json");
+  } catch (const json::out_of_range& e) {
+    // A number beyond double's range (1e400) has no byte position in nlohmann's error.
+    throw InputError(file, "a number", std::string("not valid JSON: ") + e.what(), "give a record written by headroom --json");
   }
   return run_record_from_json(j, file);
 }

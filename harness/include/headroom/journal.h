@@ -22,8 +22,9 @@ class Journal {
   /// Opens `path` for appending. With `resume`, reads the cases already there
   /// (an unreadable last line — a write cut short by a kill — is dropped);
   /// without it, starts the file afresh. Throws InputError when the journal
-  /// belongs to another run (its identity line differs from `identity`), or
-  /// when a line other than the last is corrupt.
+  /// belongs to another run (its identity line differs from `identity`),
+  /// when a line other than the last is corrupt, or when it cannot be written
+  /// (a full disk: the journal on disk is then left as it was).
   Journal(std::filesystem::path path, const std::string& identity, bool resume);
   ~Journal();
   Journal(const Journal&) = delete;
