@@ -11,8 +11,10 @@ namespace headroom {
 namespace {
 
 // Judges one case and applies the budget, as run_cases does.
-Judgement judge_with_budget(AttachedKernel& k, const Case& c, const RunnerOptions& opt, const std::string& replay) {
+Judgement judge_with_budget(AttachedKernel& k, const Case& c, const CaseRequest& req, const RunnerOptions& opt,
+                            const std::string& replay) {
   Judgement j = judge_case(k, c, opt.judge, replay);
+  j.record.size = req.size;
   if (!j.unfit && opt.apply_budget) opt.apply_budget(j.record, j, c);
   return j;
 }
@@ -89,7 +91,7 @@ HuntResult hunt(AttachedKernel& k, const HuntOptions& opt) {
         continue;
       }
     }
-    Judgement j = judge_with_budget(k, c, run, replay_of(req, spec, c.name));
+    Judgement j = judge_with_budget(k, c, req, run, replay_of(req, spec, c.name));
     if (j.unfit) {
       record.skipped.push_back(c.name + ": " + *j.unfit);
       if (run.progress) run.progress(++done, reqs.size(), j.record);
@@ -109,7 +111,7 @@ HuntResult hunt(AttachedKernel& k, const HuntOptions& opt) {
           const Case candidate = it->value();
           CaseRequest cand_req = current_req;
           cand_req.shrink_path.push_back(index);
-          Judgement cj = judge_with_budget(k, candidate, run, replay_of(cand_req, spec, candidate.name));
+          Judgement cj = judge_with_budget(k, candidate, cand_req, run, replay_of(cand_req, spec, candidate.name));
           if (!cj.unfit && failure_signature(cj.record) == signature) {
             current = *it;
             current_req = std::move(cand_req);

@@ -116,6 +116,7 @@ RunRecord run_cases(AttachedKernel& k, const std::vector<PlannedCase>& cases, co
       replay = "headroom replay --kernel " + spec + " " + quote(p->folder.string());
     }
     Judgement j = judge_case(k, p->c, opt.judge, replay);
+    if (p->request) j.record.size = p->request->size;
     if (j.unfit) {
       const std::string line = p->c.name + ": " + *j.unfit;
       record.skipped.push_back(line);

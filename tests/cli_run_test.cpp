@@ -1,0 +1,107 @@
+// End-to-end tests of the command line: exit codes, an interrupted run resumed
+// from its journal, and shards merged into the unsharded record.
+#include <gtest/gtest.h>
+
+#include <signal.h>
+#include <sys/wait.h>
+#include <unistd.h>
+
+#include <chrono>
+#include <cstdlib>
+#include <filesystem>
+#include <fstream>
+#include <string>
+#include <thread>
+
+#include "headroom/record.h"
+
+namespace headroom {
+namespace {
+
+namespace fs = std::filesystem;
+
+const std::string kTool = std::string(HEADROOM_BINARY_DIR) + "/tools/headroom";
+const std::string kSource = HEADROOM_SOURCE_DIR;
+
+fs::path fresh_dir(const std::string& name) {
+  fs::path d = fs::temp_directory_path() / ("headroom_cli_test_" + name + "_" + std::to_string(::getpid()));
+  fs::remove_all(d);
+  fs::create_directories(d);
+  return d;
+}
+
+int run(const std::string& args) {
+  const int status = std::system((kTool + " " + args + " >/dev/null 2>&1").c_str());
+  return WIFEXITED(status) ? WEXITSTATUS(status) : -1;
+}
+
+std::size_t lines_in(const fs::path& p) {
+  std::ifstream in(p);
+  std::size_t n = 0;
+  for (std::string line; std::getline(in, line);) ++n;
+  return n;
+}
+
+TEST(Cli, ExitCodesSayPassFailAndBadInput) {
+  const auto dir = fresh_dir("codes");
+  EXPECT_EQ(run("qualify --kernel f32_textbook --budget " + kSource + "/budgets/bundled.toml --json " +
+                (dir / "a.json").string()),
+            0);
+  EXPECT_EQ(run("replay --kernel oob_write_row " + kSource + "/corpora/oob_write_row --json " + (dir / "b.json").string()), 1);
+  EXPECT_EQ(run("qualify --kernel no_such_kernel"), 2);
+  EXPECT_EQ(run("replay --kernel f32_textbook " + (dir / "missing").string()), 2);
+  EXPECT_EQ(run("qualify --kernel f32_textbook --shard 4/3"), 2);
+  EXPECT_EQ(run("qualify --kernel f32_textbook --budget " + (dir / "none.toml").string()), 2);
+  EXPECT_EQ(run("frobnicate"), 2);
+}
+
+TEST(Cli, KilledRunResumesToTheUninterruptedRecord) {
+  const auto dir = fresh_dir("resume");
+  const std::string common = "qualify --kernel f32_tiled_16 --suite standard --no-isolation --determinism-runs 1 ";
+  ASSERT_EQ(run(common + "--json " + (dir / "whole.json").string()), 0);
+
+  const fs::path out = dir / "cut.json", journal = dir / "cut.json.journal";
+  const pid_t pid = fork();
+  ASSERT_GE(pid, 0);
+  if (pid == 0) {
+    const std::string cmd = "exec " + kTool + " " + common + "--json " + out.string() + " >/dev/null 2>&1";
+    ::execl("/bin/sh", "sh", "-c", cmd.c_str(), static_cast<char*>(nullptr));
+    _exit(127);
+  }
+  // Kill it (SIGKILL: nothing gets to clean up) once a few cases are journaled.
+  const auto deadline = std::chrono::steady_clock::now() + std::chrono::seconds(120);
+  while (lines_in(journal) < 6 && std::chrono::steady_clock::now() < deadline)
+    std::this_thread::sleep_for(std::chrono::milliseconds(20));
+  ::kill(pid, SIGKILL);
+  int status = 0;
+  ::waitpid(pid, &status, 0);
+  ASSERT_GE(lines_in(journal), 6u) << "the run did not journal cases in time";
+  ASSERT_FALSE(fs::exists(out)) << "the run finished before it could be killed";
+
+  ASSERT_EQ(run(common + "--resume --json " + out.string()), 0);
+  const RunRecord whole = read_run_record(dir / "whole.json");
+  const RunRecord resumed = read_run_record(out);
+  EXPECT_EQ(to_json(resumed), to_json(whole));
+  EXPECT_FALSE(fs::exists(journal)) << "a finished run leaves no journal";
+}
+
+TEST(Cli, ThreeShardsMergeToTheUnshardedRecord) {
+  const auto dir = fresh_dir("shards");
+  const std::string common = "qualify --kernel f16_f32acc --no-isolation --determinism-runs 1 ";
+  ASSERT_EQ(run(common + "--json " + (dir / "all.json").string()), 0);
+  std::string parts;
+  for (int i = 1; i <= 3; ++i) {
+    const auto part = dir / ("part" + std::to_string(i) + ".json");
+    ASSERT_EQ(run(common + "--shard " + std::to_string(i) + "/3 --json " + part.string()), 0);
+    parts += " " + part.string();
+  }
+  ASSERT_EQ(run("merge" + parts + " --json " + (dir / "merged.json").string()), 0);
+  const RunRecord all = read_run_record(dir / "all.json");
+  const RunRecord merged = read_run_record(dir / "merged.json");
+  ASSERT_EQ(merged.cases.size(), all.cases.size());
+  EXPECT_EQ(to_json(merged)["cases"], to_json(all)["cases"]);
+  EXPECT_EQ(merged.verdict(), all.verdict());
+}
+
+}  // namespace
+}  // namespace headroom
