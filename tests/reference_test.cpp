@@ -60,7 +60,10 @@ TEST(ReferenceCore, SoftmaxOfOneTwoThree) {
   in.k.values = {1.0, 2.0, 3.0};
   in.v = Tensor({1, 1, 3, 3});
   in.v.values = {1, 0, 0, 0, 1, 0, 0, 0, 1};
-  const CoreReference r = reference_core(p, in);
+  for (ReferenceMethod method : {ReferenceMethod::fast, ReferenceMethod::multiprecision}) {
+  ReferenceOptions opt;
+  opt.method = method;
+  const CoreReference r = reference_core(p, in, opt);
   const double expected[3] = {0.0900305732, 0.2447284711, 0.6652409558};
   for (int d = 0; d < 3; ++d) {
     EXPECT_NEAR(r.out.values[d], expected[d], 5e-11) << d;
@@ -73,6 +76,7 @@ TEST(ReferenceCore, SoftmaxOfOneTwoThree) {
   EXPECT_LE(r.lse_bound.values[0], 0x1p-80);
   EXPECT_TRUE(r.certified);
   EXPECT_EQ(r.fully_masked[0], 0);
+  }
 }
 
 // Equal scores (q = 0): every p_j = 1/n, lse = log n, out = mean of v.
@@ -266,9 +270,10 @@ RC_GTEST_PROP(ReferenceProperties, MaskedKeysCannotInfluenceTheOutput, ()) {
 
 RC_GTEST_PROP(ReferenceProperties, MpfrAndBinFloatAgreeWithinTheirBounds, ()) {
   auto [c, seed] = draw_case(true);
-  ReferenceOptions bin;
+  ReferenceOptions mpfr, bin;
+  mpfr.method = bin.method = ReferenceMethod::multiprecision;  // both backends on every row
   bin.backend = ReferenceBackend::cpp_bin_float;
-  const CoreReference a = reference_core(c.problem, c.inputs), b = reference_core(c.problem, c.inputs, bin);
+  const CoreReference a = reference_core(c.problem, c.inputs, mpfr), b = reference_core(c.problem, c.inputs, bin);
   RC_ASSERT(a.certified && b.certified);
   RC_ASSERT(enclose_same(a.out, a.bound, b.out, b.bound));
   RC_ASSERT(enclose_same(a.lse, a.lse_bound, b.lse, b.lse_bound));
@@ -276,10 +281,10 @@ RC_GTEST_PROP(ReferenceProperties, MpfrAndBinFloatAgreeWithinTheirBounds, ()) {
 
 RC_GTEST_PROP(ReferenceProperties, ThreadCountChangesNoBit, ()) {
   auto [c, seed] = draw_case(true);
-  c.problem.shape.batch = 1;
-  ReferenceOptions many;
+  ReferenceOptions one, many;
+  one.method = many.method = ReferenceMethod::multiprecision;  // the fast path has its own test
   many.threads = *rc::gen::inRange(2u, 6u);
-  const CoreReference a = reference_core(c.problem, c.inputs), b = reference_core(c.problem, c.inputs, many);
+  const CoreReference a = reference_core(c.problem, c.inputs, one), b = reference_core(c.problem, c.inputs, many);
   RC_ASSERT(bit_identical(a.out, b.out) && bit_identical(a.bound, b.bound) && bit_identical(a.magnitude, b.magnitude));
   RC_ASSERT(bit_identical(a.lse, b.lse) && bit_identical(a.lse_bound, b.lse_bound));
 }

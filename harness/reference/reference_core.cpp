@@ -1,8 +1,17 @@
 // headroom — reference_core: every query row of a core problem, certified.
+//
+// Method fast: each row on the double-double fast path (fast_core.h), the
+// elements that miss the target recomputed in multiprecision; method
+// multiprecision: each row in multiprecision (mp_core.h). Rows are
+// independent and each is computed the same way whichever worker takes it,
+// so the result does not depend on the thread count.
+#include <algorithm>
 #include <cstdint>
 #include <memory>
+#include <optional>
 #include <vector>
 
+#include "fast_core.h"
 #include "headroom/reference.h"
 #include "input_check.h"
 #include "mp_core.h"
@@ -22,14 +31,39 @@ CoreReference reference_core(const CoreProblem& p, const CoreInputs& in, const R
   const std::int64_t rows = s.batch * s.q_heads * s.q_len;
   ref.fully_masked.assign(static_cast<std::size_t>(rows), 0);
 
-  std::vector<std::uint8_t> row_ok(static_cast<std::size_t>(rows), 1);
   const unsigned workers = detail::worker_count(rows, opt.threads);
-  std::vector<std::unique_ptr<detail::MpCoreRows>> scratch(workers);
-  detail::parallel_for(rows, workers, [&](std::int64_t row, unsigned w) {
-    if (!scratch[w]) scratch[w] = std::make_unique<detail::MpCoreRows>(p, in, opt);
-    row_ok[static_cast<std::size_t>(row)] = scratch[w]->run(row, ref, nullptr, true) ? 1 : 0;
+  std::optional<detail::FastCore> fast;
+  if (opt.method == ReferenceMethod::fast) fast.emplace(p, in, opt, workers);
+  // Work items: groups of query rows on the fast path, single rows otherwise.
+  const std::int64_t items = fast ? fast->groups() : rows;
+
+  struct Worker {
+    std::unique_ptr<detail::MpCoreRows> mp;
+    detail::FastCore::Scratch scratch;
+    ReferenceStats stats;
+  };
+  std::vector<Worker> pool(workers);
+  std::vector<std::uint8_t> item_ok(static_cast<std::size_t>(items), 1);
+  detail::parallel_for(items, workers, [&](std::int64_t item, unsigned w) {
+    Worker& me = pool[w];
+    if (!me.mp) me.mp = std::make_unique<detail::MpCoreRows>(p, in, opt);
+    bool ok;
+    if (fast) {
+      ok = fast->run_group(item, ref, me.scratch, *me.mp, me.stats);
+    } else {
+      ok = me.mp->run(item, ref, nullptr, true);
+      if (ref.fully_masked[static_cast<std::size_t>(item)] == 0) ++me.stats.rows;
+    }
+    item_ok[static_cast<std::size_t>(item)] = ok ? 1 : 0;
   });
-  for (std::uint8_t ok : row_ok) ref.certified = ref.certified && ok != 0;
+  for (std::uint8_t ok : item_ok) ref.certified = ref.certified && ok != 0;
+  for (const Worker& w : pool) {
+    ref.stats.rows += w.stats.rows;
+    ref.stats.escalated_rows += w.stats.escalated_rows;
+    ref.stats.escalated_elements += w.stats.escalated_elements;
+    ref.stats.escalated_lse += w.stats.escalated_lse;
+    if (w.mp) ref.stats.max_precision = std::max(ref.stats.max_precision, w.mp->max_precision_used());
+  }
   return ref;
 }
 

@@ -7,8 +7,19 @@
 // scale exactly as the float32 value passed. The double `out` adds at most
 // 2^-53·|out| more: |out − o_exact| ≤ bound + 2^-53·|out|.
 // Fully masked rows have no value: they are flagged, out/bound are NaN there.
+// |out − o_exact| ≤ bound + 2^-53·|out|, plus 2^-1074 where out is subnormal.
 // Rows are streamed one query at a time: O(Tk + Dv) multiprecision numbers per
-// thread; no Tq×Tk matrix of them ever exists.
+// thread; no Tq×Tk matrix of them ever exists; memory O((Tq + Tk)·D) overall.
+//
+// Two methods give the same guarantee:
+//   fast            double-double arithmetic with error-free transformations
+//                   and an a-posteriori bound per element (fast_row.h); the
+//                   elements whose bound misses the target, and the lse if
+//                   it does, are recomputed on the multiprecision path.
+//   multiprecision  every row on the multiprecision path (mp_row.h): MPFR at a
+//                   precision chosen per row and raised until the target is
+//                   met — the straightforward baseline.
+// The error derivations sit beside the code in harness/reference/.
 #pragma once
 
 #include <cstdint>
@@ -24,10 +35,25 @@ enum class ReferenceBackend : unsigned char {
   cpp_bin_float  ///< Boost's own cpp_bin_float: an independent implementation, for cross-checks
 };
 
+enum class ReferenceMethod : unsigned char {
+  fast,           ///< double-double fast path, escalating to multiprecision per element (the default)
+  multiprecision  ///< every row in multiprecision (the naive baseline)
+};
+
 struct ReferenceOptions {
-  int target_log2 = -80;  ///< certified bound target, relative to Σ_j p_j |v_j|
-  ReferenceBackend backend = ReferenceBackend::mpfr;
-  unsigned threads = 1;   ///< results are bit-identical for every thread count
+  int target_log2 = -80;  ///< certified bound target, relative to Σ_j p_j |v_j|; lse: absolute
+  ReferenceBackend backend = ReferenceBackend::mpfr;  ///< the multiprecision path's arithmetic
+  ReferenceMethod method = ReferenceMethod::fast;     ///< core level; the block is multiprecision throughout
+  unsigned threads = 1;   ///< 0: one per hardware thread; results are bit-identical for every count
+};
+
+/// How the work was done (for benchmarks and tests; not part of the result).
+struct ReferenceStats {
+  std::int64_t rows = 0;                ///< query rows with a visible key
+  std::int64_t escalated_rows = 0;      ///< rows of which something was recomputed in multiprecision
+  std::int64_t escalated_elements = 0;  ///< output elements recomputed in multiprecision
+  std::int64_t escalated_lse = 0;       ///< lse values recomputed in multiprecision
+  long max_precision = 0;               ///< highest multiprecision precision used (bits; 0 if none)
 };
 
 struct CoreReference {
@@ -37,23 +63,25 @@ struct CoreReference {
   Tensor lse;        ///< [B, Hq, Tq] natural log of Σ_j exp(z_j), rounded to double; NaN when fully masked
   Tensor lse_bound;  ///< [B, Hq, Tq] certified |lse_ref − lse_exact|
   std::vector<std::uint8_t> fully_masked;  ///< [B·Hq·Tq] 1 where no key is visible
-  bool certified = true;  ///< every bound met the target
+  bool certified = true;  ///< every bound met the target (elements relative to magnitude; lse absolute)
+  ReferenceStats stats;
 };
 
-/// Returns: the certified reference of a core problem.
-/// Preconditions: validate(p, in) is empty; inputs finite.
+/// Returns: the certified reference of a core problem. Throws InputError when
+/// validate(p, in) finds anything or an input is not finite.
 CoreReference reference_core(const CoreProblem& p, const CoreInputs& in, const ReferenceOptions& opt = {});
 
 struct BlockReference {
   Tensor out;        ///< [B, Tq, Dm]
   Tensor bound;      ///< [B, Tq, Dm] certified |y_ref − y_exact|
   Tensor magnitude;  ///< [B, Tq, Dm] Σ_c |concat_c| |W_o[c, m]| + |b_o[m]|, the scaled-error unit
-  std::vector<std::uint8_t> fully_masked;  ///< [B·Hq·Tq]
+  std::vector<std::uint8_t> fully_masked;  ///< [B·Hq·Tq]; a Y row is NaN when any head's row is masked
   bool certified = true;
 };
 
 /// Returns: the certified reference of a block problem (projections, attention
-/// per head, concatenation, output projection, all exact to the bound).
+/// per head, concatenation, output projection, all exact to the bound), on the
+/// multiprecision path. Throws InputError as reference_core.
 BlockReference reference_block(const BlockProblem& p, const BlockInputs& in, const ReferenceOptions& opt = {});
 
 }  // namespace headroom

@@ -1,0 +1,93 @@
+// headroom — the fast path's row kernel: double-double attention of one query row.
+//
+// The kernel (fast_row.inc) is compiled twice — for AVX2+FMA and for the
+// baseline instruction set — and chosen at run time; both perform the same
+// IEEE 754 operations in the same order, so they return the same bits. It
+// computes values and the raw error quantities; fast_core.cpp turns those
+// into certified bounds (the derivations are split the same way: what
+// happens inside an operation sequence is argued in fast_row.inc, how the
+// pieces combine in fast_core.cpp).
+#pragma once
+
+#include <cstdint>
+
+namespace headroom::detail {
+
+/// Lanes per vector in the kernel's data layout (4 doubles: one AVX2 register).
+inline constexpr std::int64_t kLanes = 4;
+/// Visible keys between renormalisations of the accumulators (see fast_row.inc).
+inline constexpr std::int64_t kRenormEvery = 8;
+/// Rows taken together by the kernel when they see the same keys.
+inline constexpr int kMaxGroup = 4;
+/// Keys whose shifted score t_j = z_j − m is below this are "negligible":
+/// weight 0, charged as at most e^-650 < 2^-937 each.
+inline constexpr double kNegligibleT = -650.0;
+
+/// Relative error of the kernel's double-double exp, 16u² = 2^-102 (derived in fast_row.inc).
+inline constexpr double kFastExpRelErr = 16 * 0x1p-106;
+
+/// Constants of the double-double exp, from MPFR (fast_tables.cpp).
+struct FastTables {
+  double pow2_hi[128], pow2_lo[128];  ///< 2^(i/128) as normalised double-doubles, relative error ≤ u²(1+u)
+  double ln2_128[3];                  ///< ln 2 / 128 as a triple-double, relative error ≤ 2^-159
+  double inv_ln2_128;                 ///< RN(128 / ln 2); only steers the reduction
+  double fact_hi[10], fact_lo[10];    ///< 1/k! as normalised double-doubles (k = 0..9)
+};
+
+/// Returns: the tables, computed once (thread-safe).
+const FastTables& fast_tables();
+
+struct FastRowArgs {
+  const double* q = nullptr;      ///< Dk values
+  const double* kt = nullptr;     ///< keys in blocks of kLanes: kt[(blk·Dk + c)·kLanes + l] = K[blk·kLanes + l][c], zero-padded
+  const double* vp = nullptr;     ///< values [Tk][dv_pad], zero-padded columns
+  const double* k_norm = nullptr; ///< [Tk] upper bounds of ‖k_j‖₂
+  const std::int64_t* keys = nullptr;  ///< visible keys, increasing, n of them (n ≥ 1)
+  const double* bias = nullptr;   ///< n biases or null
+  std::int64_t n = 0, dk = 0, dv = 0, dv_pad = 0;
+  double scale = 1.0;
+  double score_coef_a = 0;  ///< dot-product error ≤ score_coef_a·‖q‖‖k_j‖ (the kernel adds the rest of E_z,j)
+  double q_norm = 0;        ///< upper bound of ‖q‖₂
+  bool exact_products = false;  ///< every q_c·k_jc exact in double (both float32-valued)
+  const FastTables* tables = nullptr;
+  // Scratch, caller-owned: raw_hi/raw_lo ≥ Tk rounded up to kLanes, w_hi/w_lo ≥ n rounded up
+  // to kLanes, acc ≥ 4·dv_pad.
+  double *raw_hi = nullptr, *raw_lo = nullptr, *w_hi = nullptr, *w_lo = nullptr, *acc = nullptr;
+};
+
+struct FastRowOut {
+  double* out = nullptr;  ///< dv values: RN(o_ref), o_ref = q1 + q2 the double-double quotient
+  double* g = nullptr;    ///< dv values: Ĝ_d ≈ Σ_j w_hi,j |v_jd| (relative error ≤ 2^-49.5)
+  double s_hi = 0, s_lo = 0;  ///< Ŝ = Σ_j ŵ_j, normalised
+  double r_max = 0;       ///< max over keys of the exponent uncertainty r_j (before the final inflation)
+  std::int64_t negligible = 0;  ///< keys with t_j < kNegligibleT (weight 0)
+  double* neg_vmax = nullptr;   ///< dv values: max |v_jd| over negligible keys (written when negligible > 0)
+  double lse = 0;         ///< RN(lse_ref)
+  double lse_err = 0;     ///< |lse_ref − (m + log Ŝ)| (before the final inflation)
+  bool ok = false;        ///< false: a non-finite value or a reduction out of range; escalate the row
+};
+
+/// The kernel entry points, one set per instruction set. group(rows, outs,
+/// count) computes `count` ≤ kMaxGroup rows whose visible key lists are equal
+/// (each row's results are those it would get alone).
+struct FastKernels {
+  void (*group)(const FastRowArgs* rows, FastRowOut* outs, int count);
+  const char* name;
+};
+
+/// Returns: the AVX2+FMA kernels when the CPU has both, else the baseline ones.
+const FastKernels& fast_kernels();
+/// Returns: the baseline kernels (for tests: they must agree bit for bit).
+const FastKernels& fast_kernels_baseline();
+
+namespace fast_avx2 {
+/// Returns: whether this build has the AVX2 kernels (x86 and a GCC-compatible compiler).
+bool available();
+void group(const FastRowArgs* rows, FastRowOut* outs, int count);
+}  // namespace fast_avx2
+
+namespace fast_baseline {
+void group(const FastRowArgs* rows, FastRowOut* outs, int count);
+}  // namespace fast_baseline
+
+}  // namespace headroom::detail
