@@ -1,0 +1,66 @@
+// headroom — comparing two run records: what got worse, what got better, and whether that fails CI.
+//
+// Figures are compared per family × format group (run_summary.h): worst ULP,
+// worst scaled error, worst per-case RMSE, the number of failing cases and
+// the count of each fault class. A figure regresses when
+//   new > base · (1 + tolerance)          (tolerance relative, e.g. 0.10 = 10 %)
+// — so from base 0 any new error regresses — and improves when
+//   new · (1 + tolerance) < base.
+// Faults and failing cases regress on any increase, whatever the tolerance: a
+// new fault is never noise. A group tried in BASE but absent from NEW is a
+// regression too (coverage lost); one only in NEW is a note. NaN figures ("not
+// applicable") are not compared; a figure going from finite to NaN is a note.
+#pragma once
+
+#include <filesystem>
+#include <iosfwd>
+#include <string>
+#include <vector>
+
+#include <nlohmann/json.hpp>
+
+#include "headroom/record.h"
+
+namespace headroom {
+
+/// The default relative tolerance of `headroom compare` (10 %: our choice,
+/// about the spread of a worst-case figure between runs of different seeds).
+inline constexpr double kDefaultCompareTolerance = 0.10;
+
+struct FigureChange {
+  std::string kernel;        ///< the kernel of NEW
+  std::string family, format;
+  std::string figure;        ///< "worst_ulp", "worst_scaled_error", "worst_rmse", "failing_cases",
+                             ///< "fault:<class>", or "cases" (a group absent from NEW)
+  double base = 0, next = 0;
+  double relative = 0;       ///< (next − base) / base; ±inf when base = 0 ≠ next
+  std::string text;          ///< one line, greppable: "REGRESSION kernel=... family=... format=... ..."
+};
+
+struct Comparison {
+  std::string base_file, new_file;
+  double tolerance = kDefaultCompareTolerance;
+  std::vector<FigureChange> regressions, improvements;
+  std::vector<std::string> notes;  ///< kernels or suites differ, groups only in NEW, figures no longer measured
+  bool regressed() const { return !regressions.empty(); }
+};
+
+/// Returns: the comparison of `next` against `base`. The file names label the
+/// output only. Preconditions: tolerance ≥ 0 and finite (run_compare checks).
+Comparison compare_records(const RunRecord& base, const RunRecord& next, double tolerance,
+                           const std::string& base_file = "BASE", const std::string& new_file = "NEW");
+
+/// Returns: the comparison for a terminal: a header line, one line per
+/// regression and per improvement, and a closing count.
+std::string comparison_text(const Comparison& c);
+nlohmann::json to_json(const Comparison& c);
+
+/// The `headroom compare` command: reads both records (InputError on a
+/// malformed or schema-mismatched file, naming it), compares, prints
+/// comparison_text to `out`, writes the JSON to `json_out` atomically unless
+/// empty. Returns: 1 when anything regressed, else 0. Throws InputError (exit
+/// 2) also for a negative or non-finite tolerance.
+int run_compare(const std::filesystem::path& base, const std::filesystem::path& next, double tolerance,
+                const std::filesystem::path& json_out, std::ostream& out);
+
+}  // namespace headroom

@@ -1,0 +1,95 @@
+// headroom — JUnit XML (junit_report.h).
+#include "headroom/junit_report.h"
+
+#include <map>
+#include <set>
+
+#include <fmt/format.h>
+
+#include "escape.h"
+#include "headroom/run_summary.h"
+#include "headroom/terminal_report.h"
+
+namespace headroom {
+namespace {
+
+using report_detail::xml_escape;
+
+struct TestCase {
+  std::string classname, name, out, failure_message, failure_text;
+  bool skipped = false;
+  std::string skipped_message;
+};
+
+}  // namespace
+
+std::string junit_report(const RunRecord& r) {
+  std::vector<TestCase> tests;
+  for (const auto& g : summarise_groups(r)) {
+    TestCase t;
+    t.classname = "headroom." + r.kernel + "." + g.format;
+    t.name = g.family;
+    t.out = fmt::format("{} cases; worst ulp {} (case {}); worst scaled error {} (case {}); worst rmse {}; faults {}\n",
+                        g.cases, figure_text(g.worst_ulp), g.worst_ulp_case, figure_text(g.worst_scaled_error),
+                        g.worst_scaled_case, figure_text(g.worst_rmse), g.fault_count());
+    if (g.failing > 0) {
+      t.failure_message = fmt::format("{} of {} cases outside budget", g.failing, g.cases);
+      for (const auto& c : r.cases) {
+        if (c.within_budget || c.family != g.family || c.format != g.format) continue;
+        t.failure_text += failure_line(r, c) + "\n";
+        for (const auto& reason : c.reasons) t.failure_text += "    " + reason + "\n";
+        for (const auto& d : c.fault_details) t.failure_text += "    fault: " + d + "\n";
+      }
+    }
+    tests.push_back(std::move(t));
+  }
+  // Families whose every case was skipped: visible as skipped, not as absent.
+  std::set<std::string> run_families;
+  for (const auto& c : r.cases) run_families.insert(c.family);
+  std::map<std::string, std::size_t> skipped_only;
+  for (const auto& line : r.skipped) {
+    std::string family = skipped_family(line);
+    if (family.empty()) family = "unknown family";
+    if (!run_families.count(family)) ++skipped_only[family];
+  }
+  for (const auto& [family, n] : skipped_only) {
+    TestCase t;
+    t.classname = "headroom." + r.kernel + "." + r.input_format;
+    t.name = family;
+    t.skipped = true;
+    t.skipped_message = fmt::format("{} cases skipped (not run)", n);
+    tests.push_back(std::move(t));
+  }
+
+  std::size_t failures = 0, skipped = 0;
+  for (const auto& t : tests) {
+    failures += t.failure_message.empty() ? 0 : 1;
+    skipped += t.skipped ? 1 : 0;
+  }
+  std::string x = "<?xml version=\"1.0\" encoding=\"UTF-8\"?>\n";
+  x += fmt::format("<testsuites name=\"headroom\" tests=\"{}\" failures=\"{}\" errors=\"0\" skipped=\"{}\">\n",
+                   tests.size(), failures, skipped);
+  x += fmt::format("  <testsuite name=\"{}\" tests=\"{}\" failures=\"{}\" errors=\"0\" skipped=\"{}\">\n",
+                   xml_escape("headroom." + r.kernel), tests.size(), failures, skipped);
+  x += "    <properties>\n";
+  const std::pair<std::string, std::string> props[] = {
+      {"kernel", r.kernel}, {"input_format", r.input_format}, {"output_format", r.output_format},
+      {"suite", r.suite},   {"shard", r.shard},               {"budget", r.budget},
+      {"verdict", r.verdict()}, {"tool", r.tool}};
+  for (const auto& [name, value] : props)
+    x += fmt::format("      <property name=\"{}\" value=\"{}\"/>\n", name, xml_escape(value));
+  x += "    </properties>\n";
+  for (const auto& t : tests) {
+    x += fmt::format("    <testcase classname=\"{}\" name=\"{}\">\n", xml_escape(t.classname), xml_escape(t.name));
+    if (t.skipped) x += fmt::format("      <skipped message=\"{}\"/>\n", xml_escape(t.skipped_message));
+    if (!t.failure_message.empty())
+      x += fmt::format("      <failure message=\"{}\" type=\"budget\">{}</failure>\n", xml_escape(t.failure_message),
+                       xml_escape(t.failure_text));
+    if (!t.out.empty()) x += fmt::format("      <system-out>{}</system-out>\n", xml_escape(t.out));
+    x += "    </testcase>\n";
+  }
+  x += "  </testsuite>\n</testsuites>\n";
+  return x;
+}
+
+}  // namespace headroom

@@ -1,0 +1,141 @@
+// headroom — the Markdown review report (markdown_report.h).
+#include "headroom/markdown_report.h"
+
+#include <fmt/format.h>
+
+#include "escape.h"
+#include "headroom/run_summary.h"
+#include "sections.h"
+
+namespace headroom {
+namespace {
+
+using report_detail::markdown_cell;
+using report_detail::markdown_code;
+
+// Details and failing cases are capped so a run with thousands of failures
+// still gives a readable review; the JSON record keeps them all.
+constexpr std::size_t kDetailsListed = 50;
+constexpr std::size_t kFailuresListed = 100;
+
+std::string row(const std::vector<std::string>& cells) {
+  std::string s = "|";
+  for (const auto& c : cells) s += " " + c + " |";
+  return s + "\n";
+}
+
+// `align` has one letter per column: 'l' left, 'r' right.
+std::string rule(const std::string& align) {
+  std::string s = "|";
+  for (char a : align) s += a == 'r' ? "---:|" : "---|";
+  return s + "\n";
+}
+
+// A replay command as a fenced block: commands may hold characters that
+// inline code would mangle, and a reader copies a block whole.
+// Every line is indented by `indent` so the block stays inside a list item
+// (CommonMark 0.30 §5.2); line ends in the command become spaces.
+std::string command_block(const std::string& command, const std::string& indent) {
+  std::string fence = "```";
+  while (command.find(fence) != std::string::npos) fence += '`';
+  std::string body = command.empty() ? "# no replay command recorded" : command;
+  for (char& ch : body)
+    if (ch == '\n' || ch == '\r') ch = ' ';
+  return indent + fence + "sh\n" + indent + body + "\n" + indent + fence + "\n";
+}
+
+}  // namespace
+
+std::string markdown_report(const RunRecord& r) {
+  const GroupSummary total = summarise_run(r);
+  const Coverage cov = coverage(r);
+  std::string md = fmt::format("# headroom review: {} — {}\n\n", markdown_cell(r.kernel), r.verdict() == "pass" ? "PASS" : "FAIL");
+
+  md += row({"", ""}) + rule("ll");
+  for (const auto& f : report_detail::run_facts(r)) md += row({"**" + f.label + "**", markdown_cell(f.text)});
+  md += fmt::format("\n> {}\n\n", kEvidenceNotProof);
+
+  md += "## Worst figures\n\n";
+  if (r.cases.empty()) {
+    md += "No case was run.\n\n";
+  } else {
+    md += fmt::format("- worst ULP distance: **{}** (case {})\n", figure_text(total.worst_ulp),
+                      markdown_code(total.worst_ulp_case));
+    md += fmt::format("- worst scaled error: **{}** rounding units (case {})\n", figure_text(total.worst_scaled_error),
+                      markdown_code(total.worst_scaled_case));
+    md += fmt::format("- worst RMSE: **{}**; worst relative RMSE: **{}**\n\n", figure_text(total.worst_rmse),
+                      figure_text(total.worst_rel_rmse));
+  }
+
+  md += "## Error budget\n\n"
+        "Worst figure seen against its limit, per family and format. Limits are resolved at each case's shape, "
+        "so a range means they differ between the cases of a row; \"none\" means no limit, \"—\" that the record "
+        "does not carry it.\n\n";
+  md += row({"family", "format", "cases", "failing", "worst ULP", "ULP limit", "worst scaled error", "scaled limit",
+             "worst rel. RMSE", "rel. RMSE limit", "worst ratio to plain", "ratio limit"});
+  md += rule("llrrrrrrrrrr");
+  for (const auto& g : summarise_groups(r)) {
+    md += row({markdown_cell(g.family), markdown_cell(g.format), fmt::format("{}", g.cases),
+               g.failing ? fmt::format("**{}**", g.failing) : "0", figure_text(g.worst_ulp), limit_range_text(g.ulp_limit),
+               figure_text(g.worst_scaled_error), limit_range_text(g.scaled_limit), figure_text(g.worst_rel_rmse),
+               limit_range_text(g.rel_rmse_limit), figure_text(g.worst_ratio_to_plain), limit_range_text(g.ratio_limit)});
+  }
+  md += "\n## Faults\n\n";
+  md += row({"class", "faults", "cases", "tolerated"}) + rule("lrrl");
+  for (const auto& t : fault_totals_by_class(r))
+    md += row({markdown_cell(t.name), fmt::format("{}", t.count), fmt::format("{}", t.cases), t.tolerated ? "yes" : "no"});
+  std::size_t details = 0, all_details = 0;
+  std::string detail_lines;
+  for (const auto& c : r.cases)
+    for (const auto& d : c.fault_details)
+      if (++all_details <= kDetailsListed) detail_lines += fmt::format("- {}: {}\n", markdown_code(c.name), markdown_cell(d)), ++details;
+  if (all_details == 0) {
+    md += total.fault_count() == 0 ? "\nNo fault of any class was detected.\n" : "\nThe record carries no fault details.\n";
+  } else {
+    md += "\n" + detail_lines;
+    if (all_details > details)
+      md += fmt::format("- … and {} more in the JSON record\n", all_details - details);
+  }
+
+  md += fmt::format("\n## The {} worst cases\n\nBy scaled error, worst first; each with the command that replays it.\n\n",
+                    kWorstCasesListed);
+  const auto worst = worst_cases(r, kWorstCasesListed);
+  if (worst.empty()) md += "No case was run.\n";
+  for (std::size_t i = 0; i < worst.size(); ++i) {
+    const CaseRecord& c = *worst[i];
+    md += fmt::format("{}. {} — {}\n", i + 1, markdown_code(c.name), markdown_cell(report_detail::case_headline(c)));
+    if (const auto w = report_detail::worst_element_text(c); !w.empty()) md += "   " + markdown_cell(w) + "\n";
+    md += "\n" + command_block(c.replay, "   ") + "\n";
+  }
+
+  md += "## Failing cases\n\n";
+  std::size_t failing = 0;
+  for (const auto& c : r.cases) {
+    if (c.within_budget) continue;
+    if (++failing > kFailuresListed) continue;
+    md += fmt::format("- {} ({}, seed {}): {}\n", markdown_code(c.name), markdown_cell(c.family), c.seed,
+                      c.reasons.empty() ? "no reason recorded" : markdown_cell(c.reasons.front()));
+    for (std::size_t k = 1; k < c.reasons.size(); ++k) md += "  " + markdown_cell(c.reasons[k]) + "\n";
+    md += fmt::format("  replay: {}\n", markdown_code(c.replay));
+  }
+  if (failing == 0) md += "None: every case tried is within budget.\n";
+  if (failing > kFailuresListed) md += fmt::format("- … and {} more in the JSON record\n", failing - kFailuresListed);
+
+  md += "\n## Coverage\n\n";
+  for (const auto& line : report_detail::coverage_lines(cov))
+    md += fmt::format("- **{}**: {}\n", line.label, markdown_cell(line.text));
+  if (!r.skipped.empty()) {
+    md += "\nSkipped cases:\n\n";
+    for (std::size_t i = 0; i < r.skipped.size() && i < kFailuresListed; ++i)
+      md += "- " + markdown_cell(r.skipped[i]) + "\n";
+    if (r.skipped.size() > kFailuresListed)
+      md += fmt::format("- … and {} more in the JSON record\n", r.skipped.size() - kFailuresListed);
+  }
+  md += "\n### Where this result could mislead\n\n";
+  if (cov.cautions.empty()) md += "Nothing stands out: every aspect listed above was tried.\n";
+  for (const auto& c : cov.cautions) md += "- " + markdown_cell(c) + "\n";
+  md += fmt::format("\n**{}**\n", kEvidenceNotProof);
+  return md;
+}
+
+}  // namespace headroom

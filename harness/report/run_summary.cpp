@@ -1,0 +1,168 @@
+// headroom — family × format groups, worst cases and figure text (run_summary.h).
+#include "headroom/run_summary.h"
+
+#include <algorithm>
+#include <cmath>
+#include <limits>
+#include <set>
+
+#include <fmt/format.h>
+
+#include "headroom/families.h"
+#include "headroom/faults.h"
+
+namespace headroom {
+namespace {
+
+constexpr double kNaN = std::numeric_limits<double>::quiet_NaN();
+
+// Keeps the larger of `worst` and `x`, NaN meaning "no figure yet"; returns
+// whether x became the worst (so the caller can remember the case).
+bool keep_max(double& worst, double x) {
+  if (std::isnan(x)) return false;
+  if (std::isnan(worst) || x > worst) {
+    worst = x;
+    return true;
+  }
+  return false;
+}
+
+std::size_t family_rank(const std::string& name) {
+  const auto all = families();
+  for (std::size_t i = 0; i < all.size(); ++i)
+    if (all[i].name == name) return i;
+  return all.size();
+}
+
+}  // namespace
+
+void ValueRange::add(double x) {
+  if (std::isnan(x)) return;
+  if (count == 0) {
+    low = high = x;
+  } else {
+    low = std::min(low, x);
+    high = std::max(high, x);
+  }
+  ++count;
+}
+
+int GroupSummary::fault_count() const {
+  int n = 0;
+  for (const auto& [name, k] : faults) n += k;
+  return n;
+}
+
+GroupSummary summarise(const std::vector<const CaseRecord*>& cases, std::string family, std::string format) {
+  GroupSummary g;
+  g.family = std::move(family);
+  g.format = std::move(format);
+  g.cases = cases.size();
+  // NaN until a case supplies the figure: a group of cases with no applicable
+  // figure then reports NaN rather than a made-up 0.
+  g.worst_ulp = g.worst_scaled_error = g.worst_rmse = g.worst_rel_rmse = g.worst_ratio_to_plain = kNaN;
+  for (const CaseRecord* c : cases) {
+    if (!c->within_budget) ++g.failing;
+    const CaseFigures& f = c->figures;
+    if (keep_max(g.worst_ulp, f.max_ulp)) g.worst_ulp_case = c->name;
+    if (keep_max(g.worst_scaled_error, f.max_scaled_error)) g.worst_scaled_case = c->name;
+    keep_max(g.worst_rmse, f.rmse);
+    keep_max(g.worst_rel_rmse, f.relative_rmse);
+    keep_max(g.worst_ratio_to_plain, f.ratio_to_plain);
+    g.ulp_limit.add(c->limits.max_ulp);
+    g.scaled_limit.add(c->limits.max_scaled_error);
+    g.rel_rmse_limit.add(c->limits.max_rel_rmse);
+    g.ratio_limit.add(c->limits.max_ratio_to_plain);
+    for (const auto& [name, n] : c->faults)
+      if (n > 0) g.faults[name] += n;
+  }
+  return g;
+}
+
+std::vector<GroupSummary> summarise_groups(const RunRecord& r) {
+  std::map<std::pair<std::string, std::string>, std::vector<const CaseRecord*>> groups;
+  for (const auto& c : r.cases) groups[{c.family, c.format}].push_back(&c);
+  std::vector<GroupSummary> out;
+  for (const auto& [key, cases] : groups) out.push_back(summarise(cases, key.first, key.second));
+  std::stable_sort(out.begin(), out.end(), [](const GroupSummary& a, const GroupSummary& b) {
+    const auto ra = family_rank(a.family), rb = family_rank(b.family);
+    if (ra != rb) return ra < rb;
+    if (a.family != b.family) return a.family < b.family;
+    return a.format < b.format;
+  });
+  return out;
+}
+
+GroupSummary summarise_run(const RunRecord& r) {
+  std::vector<const CaseRecord*> all;
+  for (const auto& c : r.cases) all.push_back(&c);
+  return summarise(all);
+}
+
+std::vector<FaultTotal> fault_totals_by_class(const RunRecord& r) {
+  std::vector<FaultTotal> out;
+  for (FaultClass c : kAllFaultClasses) out.push_back({std::string(fault_class_name(c))});
+  std::set<std::string> other;
+  for (const auto& c : r.cases)
+    for (const auto& [name, n] : c.faults)
+      if (!parse_fault_class(name)) other.insert(name);
+  for (const auto& name : other) out.push_back({name});
+  for (auto& t : out) {
+    for (const auto& c : r.cases) {
+      const auto it = c.faults.find(t.name);
+      if (it == c.faults.end() || it->second <= 0) continue;
+      t.count += it->second;
+      ++t.cases;
+    }
+    t.tolerated = std::find(r.tolerated_faults.begin(), r.tolerated_faults.end(), t.name) != r.tolerated_faults.end();
+  }
+  return out;
+}
+
+std::string skipped_family(const std::string& line) {
+  const std::string name = line.substr(0, line.find(": "));
+  std::string best;
+  for (const auto& f : families()) {
+    const std::string family(f.name);
+    if (name.compare(0, family.size(), family) != 0) continue;
+    if (name.size() != family.size() && name[family.size()] != '-') continue;
+    if (family.size() > best.size()) best = family;
+  }
+  return best;
+}
+
+std::vector<const CaseRecord*> worst_cases(const RunRecord& r, std::size_t n) {
+  std::vector<const CaseRecord*> all;
+  for (const auto& c : r.cases) all.push_back(&c);
+  // NaN sorts as the least bad: it is "no figure", not a large one.
+  auto key = [](double x) { return std::isnan(x) ? -std::numeric_limits<double>::infinity() : x; };
+  std::sort(all.begin(), all.end(), [&](const CaseRecord* a, const CaseRecord* b) {
+    const double sa = key(a->figures.max_scaled_error), sb = key(b->figures.max_scaled_error);
+    if (sa != sb) return sa > sb;
+    const double ua = key(a->figures.max_ulp), ub = key(b->figures.max_ulp);
+    if (ua != ub) return ua > ub;
+    return a->name < b->name;
+  });
+  if (all.size() > n) all.resize(n);
+  return all;
+}
+
+std::string figure_text(double x) {
+  if (std::isnan(x)) return "nan";
+  if (std::isinf(x)) return x > 0 ? "inf" : "-inf";
+  if (x == std::floor(x) && std::fabs(x) < 1e15) return fmt::format("{}", static_cast<long long>(x));
+  return fmt::format("{:.4g}", x);
+}
+
+std::string limit_text(double x) {
+  if (std::isinf(x) && x > 0) return "none";
+  return figure_text(x);
+}
+
+std::string limit_range_text(const ValueRange& r) {
+  if (r.empty()) return "—";
+  if (r.low == r.high) return limit_text(r.low);
+  return limit_text(r.low) + "–" + limit_text(r.high);
+}
+
+}  // namespace headroom

@@ -1,0 +1,113 @@
+// headroom — the shared plain-text pieces of the reports (sections.h).
+#include "sections.h"
+
+#include <cmath>
+#include <set>
+
+#include <fmt/format.h>
+
+#include "headroom/families.h"
+#include "headroom/scores.h"
+
+namespace headroom::report_detail {
+
+std::string counted(const std::map<std::string, std::size_t>& items) {
+  std::string out;
+  for (const auto& [name, n] : items) out += (out.empty() ? "" : ", ") + fmt::format("{} ({})", name, n);
+  return out.empty() ? "none" : out;
+}
+
+std::string counted_in_order(const std::map<std::string, std::size_t>& items, const std::vector<std::string>& order) {
+  std::string out;
+  std::set<std::string> done;
+  auto add = [&](const std::string& name, std::size_t n) {
+    out += (out.empty() ? "" : ", ") + fmt::format("{} ({})", name, n);
+    done.insert(name);
+  };
+  for (const auto& name : order)
+    if (auto it = items.find(name); it != items.end()) add(name, it->second);
+  for (const auto& [name, n] : items)
+    if (!done.count(name)) add(name, n);
+  return out.empty() ? "none" : out;
+}
+
+std::string range_text(const ValueRange& r) {
+  if (r.empty()) return "—";
+  if (r.low == r.high) return figure_text(r.low);
+  return figure_text(r.low) + "–" + figure_text(r.high);
+}
+
+std::string list_or(const std::vector<std::string>& items, const std::string& none) {
+  if (items.empty()) return none;
+  std::string out;
+  for (std::size_t i = 0; i < items.size(); ++i) out += (i ? ", " : "") + items[i];
+  return out;
+}
+
+namespace {
+std::string cases_text(std::size_t n) { return n == 1 ? "1 case" : fmt::format("{} cases", n); }
+}  // namespace
+
+std::vector<Line> coverage_lines(const Coverage& cov) {
+  std::vector<std::string> family_order;
+  for (const auto& f : families()) family_order.emplace_back(f.name);
+  std::size_t known = 0;
+  for (const auto& name : family_order) known += cov.families.count(name);
+  std::vector<Line> out;
+  out.push_back({"Families tried", fmt::format("{} of {}: {}", known, family_order.size(),
+                                               counted_in_order(cov.families, family_order))});
+  out.push_back({"Families not tried", list_or(cov.families_not_tried, "none (every family was tried)")});
+  out.push_back({"Levels", fmt::format("{}; not tried: {}", counted(cov.levels), list_or(cov.levels_not_tried, "none"))});
+  std::string shapes = fmt::format("batch {}, query heads Hq {}, key/value heads Hkv {}, Tq {}, Tk {}, Dk {}, Dv {}",
+                                   range_text(cov.batch), range_text(cov.q_heads), range_text(cov.kv_heads),
+                                   range_text(cov.q_len), range_text(cov.kv_len), range_text(cov.key_dim),
+                                   range_text(cov.value_dim));
+  if (!cov.model_dim.empty()) shapes += ", Dm " + range_text(cov.model_dim);
+  if (cov.unparsed_shapes > 0) shapes += fmt::format(" ({} shapes did not parse)", cov.unparsed_shapes);
+  out.push_back({"Shapes", shapes});
+  out.push_back({"Head sharing", fmt::format("grouped-query (1 < Hkv < Hq): {}; multi-query (Hkv = 1 < Hq): {}{}",
+                                             cases_text(cov.grouped_query), cases_text(cov.multi_query),
+                                             cov.grouped_query + cov.multi_query == 0 ? " — GQA not tried" : "")});
+  out.push_back({"Tq ≠ Tk", fmt::format("{}, {} of them under a causal mask", cases_text(cov.ragged), cov.ragged_causal)});
+  out.push_back({"Head dims not a multiple of 8", cases_text(cov.odd_head_dim)});
+  out.push_back({"Masks tried", counted(cov.masks)});
+  out.push_back({"Masks not tried", list_or(cov.masks_not_tried, "none (every kind was tried)")});
+  out.push_back({"Formats tried", counted(cov.formats)});
+  out.push_back({"Formats not tried",
+                 list_or(cov.formats_not_tried, "none") +
+                     (cov.formats_not_tried.empty() ? "" : " (a kernel has one input format: qualify a kernel of each)")});
+  out.push_back({"Largest scaled score |z|", cov.logit_scale.empty() ? "—" : figure_text(cov.logit_scale.high)});
+  out.push_back({"Skipped (not run)", cases_text(cov.skipped)});
+  return out;
+}
+
+std::vector<Line> run_facts(const RunRecord& r) {
+  std::size_t failing = 0;
+  for (const auto& c : r.cases) failing += c.within_budget ? 0 : 1;
+  std::vector<Line> out{{"Kernel", r.kernel},
+                        {"Method", r.kernel_description.empty() ? "—" : r.kernel_description},
+                        {"Formats", r.input_format + " in, " + r.output_format + " out"},
+                        {"Suite", r.suite},
+                        {"Shard", r.shard},
+                        {"Budget", r.budget},
+                        {"Cases", fmt::format("{} run, {} failing, {} skipped", r.cases.size(), failing, r.skipped.size())},
+                        {"Verdict", r.verdict()},
+                        {"Written by", r.tool + (r.command.empty() ? "" : " " + r.command)}};
+  return out;
+}
+
+std::string case_headline(const CaseRecord& c) {
+  const CaseFigures& f = c.figures;
+  return fmt::format("family {}, seed {}, size {}, {} shape {}, mask {}: scaled error {}, {} ulp, relative RMSE {} — {}",
+                     c.family, c.seed, c.size, c.level, c.shape, c.mask, figure_text(f.max_scaled_error),
+                     figure_text(f.max_ulp), figure_text(f.relative_rmse), c.within_budget ? "within budget" : "FAIL");
+}
+
+std::string worst_element_text(const CaseRecord& c) {
+  const CaseFigures& f = c.figures;
+  if (f.worst_index.empty()) return "";
+  return fmt::format("worst element [{}]: expected {} obtained {}", f.worst_index, hex_float(f.worst_expected),
+                     hex_float(f.worst_obtained));
+}
+
+}  // namespace headroom::report_detail

@@ -1,0 +1,33 @@
+// headroom compare — diff two run records; exit 1 on a regression beyond the tolerance (compare.h).
+#include <iostream>
+#include <memory>
+
+#include "command.h"
+#include "headroom/compare.h"
+
+namespace headroom::cli {
+namespace {
+
+struct CompareFlags {
+  std::string base, next, json;
+  double tolerance = kDefaultCompareTolerance;
+};
+
+const CommandRegistration reg{"compare", 60, [](CLI::App& app) {
+  auto flags = std::make_shared<CompareFlags>();
+  auto* cmd = app.add_subcommand("compare",
+                                 "Compare two JSON records per family x format; exit 1 on a regression beyond the "
+                                 "tolerance or any new fault");
+  cmd->add_option("BASE", flags->base, "the record to compare against")->required();
+  cmd->add_option("NEW", flags->next, "the new record")->required();
+  cmd->add_option("--tolerance", flags->tolerance,
+                  "relative growth of an error figure still accepted (default 0.10 = 10 %); faults never")
+      ->capture_default_str();
+  cmd->add_option("--json", flags->json, "write the comparison as JSON here");
+  cmd->callback([flags] {
+    exit_with(run_compare(flags->base, flags->next, flags->tolerance, flags->json, std::cout));
+  });
+}};
+
+}  // namespace
+}  // namespace headroom::cli
