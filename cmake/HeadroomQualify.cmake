@@ -1,0 +1,40 @@
+# headroom_add_qualification(<test-name> KERNEL <shared-library target>
+#                            [SUITE quick|standard|deep] [BUDGET <file>] [ARGS ...])
+#
+# Registers a CTest test that runs
+#   headroom qualify --kernel $<TARGET_FILE:target> --suite <suite> [--budget <file>] [ARGS...]
+# headroom exits 0 when every case is within budget and 1 otherwise, so the
+# test fails on an out-of-budget kernel. SUITE defaults to quick. Works from
+# the installed package (headroom::headroom) and inside headroom's own tree.
+function(headroom_add_qualification name)
+  cmake_parse_arguments(ARG "" "KERNEL;SUITE;BUDGET" "ARGS" ${ARGN})
+  if(NOT ARG_KERNEL)
+    message(FATAL_ERROR "headroom_add_qualification(${name}): KERNEL <shared-library target> is required")
+  endif()
+  if(NOT TARGET ${ARG_KERNEL})
+    message(FATAL_ERROR "headroom_add_qualification(${name}): KERNEL ${ARG_KERNEL} is not a target")
+  endif()
+  if(NOT ARG_SUITE)
+    set(ARG_SUITE quick)
+  endif()
+  if(NOT ARG_SUITE MATCHES "^(quick|standard|deep)$")
+    message(FATAL_ERROR "headroom_add_qualification(${name}): SUITE must be quick, standard or deep, not ${ARG_SUITE}")
+  endif()
+  if(TARGET headroom::headroom)
+    set(cli headroom::headroom)
+  elseif(TARGET headroom)
+    set(cli headroom)
+  else()
+    message(FATAL_ERROR "headroom_add_qualification(${name}): no headroom executable (find_package(headroom) first)")
+  endif()
+  set(budget)
+  if(ARG_BUDGET)
+    get_filename_component(budget_path "${ARG_BUDGET}" ABSOLUTE BASE_DIR "${CMAKE_CURRENT_SOURCE_DIR}")
+    set(budget --budget "${budget_path}")
+  endif()
+  # The journal goes to the build tree, one per test, so runs never share one.
+  add_test(NAME ${name}
+    COMMAND $<TARGET_FILE:${cli}> qualify --kernel $<TARGET_FILE:${ARG_KERNEL}> --suite ${ARG_SUITE}
+            ${budget} --journal "${CMAKE_CURRENT_BINARY_DIR}/${name}.journal" --quiet ${ARG_ARGS})
+  set_tests_properties(${name} PROPERTIES LABELS headroom)
+endfunction()

@@ -1,0 +1,98 @@
+// headroom — GoogleTest support: assert that a kernel is within budget on a case folder.
+//
+// Header-only, so a user's test needs only headroom::harness and GTest:
+//
+//   TEST(MyKernel, WithinBudgetOnTheCorpusCase) {
+//     EXPECT_TRUE(headroom::WithinBudget("/path/to/libmy_kernel.so", "cases/gaussian-s17-..."));
+//   }
+//
+// The case is judged as `headroom replay --kernel <spec> <case_dir>` judges it:
+// isolated run, determinism check, certified reference, the ratio to the
+// bundled plain kernel of the same formats, then the budget (a budget file, or
+// the built-in defaults). A failure message carries every reason, the fault
+// details and the one command that replays the case.
+#pragma once
+
+#include <gtest/gtest.h>
+
+#include <algorithm>
+#include <filesystem>
+#include <memory>
+#include <sstream>
+#include <string>
+#include <thread>
+#include <vector>
+
+#include "headroom/attach.h"
+#include "headroom/budget.h"
+#include "headroom/bundled_registry.h"
+#include "headroom/case_folder.h"
+#include "headroom/input_error.h"
+#include "headroom/qualify.h"
+
+namespace headroom {
+namespace gtest_detail {
+
+// The kernel a ratio is taken to: the bundled textbook kernel receiving inputs
+// the same way, else the first sound bundled kernel that does (the CLI's rule).
+inline std::unique_ptr<AttachedKernel> plain_for(const KernelDeclaration& d) {
+  const BundledKernel* best = nullptr;
+  for (const auto& b : bundled_kernels()) {
+    const KernelDeclaration& e = b.declaration;
+    if (b.flawed || e.level != d.level || e.input_format != d.input_format || e.output_format != d.output_format ||
+        e.q_quant != d.q_quant || e.k_quant != d.k_quant || e.v_quant != d.v_quant)
+      continue;
+    if (!best || (e.name.find("textbook") != std::string::npos &&
+                  best->declaration.name.find("textbook") == std::string::npos))
+      best = &b;
+  }
+  return best ? attach_in_process(best->kernel) : nullptr;
+}
+
+}  // namespace gtest_detail
+
+/// Returns: success when kernel `kernel_spec` (a bundled kernel's name, or a
+/// path to a plug-in .so) is within budget on the case stored in `case_dir`,
+/// judged against `budget_file` (TOML, docs/budget-format.md) or, when it is
+/// empty, the built-in defaults. Otherwise a failure whose message names the
+/// case, each reason and fault, and the replay command. A case the kernel does
+/// not declare support for, or bad input (a missing kernel, a broken case
+/// folder or budget file: InputError), is a failure too, never a pass.
+inline ::testing::AssertionResult WithinBudget(const std::string& kernel_spec, const std::filesystem::path& case_dir,
+                                               const std::string& budget_file = "") {
+  try {
+    auto kernel = attach_kernel(kernel_spec);
+    auto plain = gtest_detail::plain_for(kernel->declaration());
+    const Budget budget = budget_file.empty() ? Budget{} : load_budget(budget_file);
+
+    RunnerOptions opt;
+    opt.judge.detect.run.isolate = true;  // a crashing kernel fails the test, not the test binary
+    opt.judge.detect.determinism_runs = 3;
+    opt.judge.detect.reference.threads = std::max(1u, std::thread::hardware_concurrency());
+    opt.judge.plain = plain.get();
+    opt.kernel_spec = kernel_spec;
+    opt.apply_budget = budget_applier(budget.for_kernel(kernel->declaration()));
+
+    const std::vector<PlannedCase> cases{{read_case(case_dir), std::nullopt, case_dir}};
+    const RunRecord record = run_cases(*kernel, cases, opt);
+    if (record.cases.empty()) {
+      std::ostringstream why;
+      why << kernel_spec << " was not run on " << case_dir.string() << ": ";
+      why << (record.skipped.empty() ? std::string("no case judged") : record.skipped.front());
+      return ::testing::AssertionFailure() << why.str();
+    }
+    const CaseRecord& c = record.cases.front();
+    const bool ok = c.within_budget;  // faults not tolerated by the budget already fail it
+    auto result = ok ? ::testing::AssertionSuccess() : ::testing::AssertionFailure();
+    result << kernel_spec << " on " << c.name << (ok ? " is within " : " is NOT within ") << "budget ("
+           << budget.source << "), max scaled error " << c.figures.max_scaled_error;
+    for (const auto& r : c.reasons) result << "\n  reason: " << r;
+    for (const auto& f : c.fault_details) result << "\n  fault: " << f;
+    result << "\n  replay: " << c.replay;
+    return result;
+  } catch (const InputError& e) {
+    return ::testing::AssertionFailure() << e.what();
+  }
+}
+
+}  // namespace headroom

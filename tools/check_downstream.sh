@@ -1,0 +1,20 @@
+#!/bin/sh
+# Proves headroom's installed CMake package works for a user: installs from an
+# existing build tree into a temporary prefix, configures examples/downstream
+# against it (find_package(headroom)), builds it and runs its tests
+# (headroom_add_qualification and WithinBudget).
+# Usage: tools/check_downstream.sh <headroom build dir>
+set -eu
+build=${1:?usage: tools/check_downstream.sh <headroom build dir>}
+src=$(cd "$(dirname "$0")/.." && pwd)
+tmp=$(mktemp -d "${TMPDIR:-/tmp}/headroom-downstream.XXXXXX")
+trap 'rm -rf "$tmp"' EXIT INT TERM
+
+cmake --install "$build" --prefix "$tmp/prefix" > "$tmp/install.log"
+generator=
+if command -v ninja > /dev/null 2>&1; then generator="-G Ninja"; fi
+# shellcheck disable=SC2086  # $generator is one or two words on purpose
+cmake -S "$src/examples/downstream" -B "$tmp/build" $generator -DCMAKE_BUILD_TYPE=Release \
+      -DCMAKE_PREFIX_PATH="$tmp/prefix" -DHEADROOM_SOURCE_DIR="$src"
+cmake --build "$tmp/build" -j2
+ctest --test-dir "$tmp/build" --output-on-failure
