@@ -1,6 +1,6 @@
 // headroom bench — the certified reference against a plain float64 attention, side by side.
 //
-//   bench [--small] [--sizes T:D,...] [--naive-rows R] [--reps N] [--threads N] [--no-naive]
+//   bench [--small] [--sizes T:D,...] [--q-rows Q] [--naive-rows R] [--reps N] [--threads N] [--no-naive]
 //
 // For each size (core problem, one batch, one head, Tq = Tk = T, Dk = Dv = D,
 // float32-valued Gaussian inputs, scale 1/sqrt(D)) it times, in one run:
@@ -16,6 +16,7 @@
 // measurement runs in its own child process, so its peak is its own), and
 // the worst bound/magnitude with the certified flag. Default sizes: T in
 // {256, 1024, 4096} × D in {64, 128}; --small: T in {64, 256}, D = 64.
+// --q-rows Q keeps Tk = T but takes only Q query rows (long-key memory checks).
 #include <sys/resource.h>
 #include <sys/wait.h>
 #include <unistd.h>
@@ -168,7 +169,7 @@ int main(int argc, char** argv) {
   std::vector<std::pair<std::int64_t, std::int64_t>> sizes;
   for (std::int64_t t : {256, 1024, 4096})
     for (std::int64_t d : {64, 128}) sizes.push_back({t, d});
-  std::int64_t naive_rows = 8;
+  std::int64_t naive_rows = 8, q_rows = 0;
   unsigned threads = 1;
   bool naive = true;
   int reps = 3;
@@ -190,6 +191,8 @@ int main(int argc, char** argv) {
         sizes.push_back({std::atoll(item.substr(0, colon).c_str()), std::atoll(item.substr(colon + 1).c_str())});
         at = comma + 1;
       }
+    } else if (arg == "--q-rows" && a + 1 < argc) {
+      q_rows = std::max<std::int64_t>(1, std::atoll(argv[++a]));
     } else if (arg == "--naive-rows" && a + 1 < argc) {
       naive_rows = std::max<std::int64_t>(1, std::atoll(argv[++a]));
     } else if (arg == "--threads" && a + 1 < argc) {
@@ -199,7 +202,7 @@ int main(int argc, char** argv) {
     } else if (arg == "--no-naive") {
       naive = false;
     } else {
-      std::fprintf(stderr, "usage: bench [--small] [--sizes T:D,...] [--naive-rows R] [--reps N] [--threads N] [--no-naive]\n");
+      std::fprintf(stderr, "usage: bench [--small] [--sizes T:D,...] [--q-rows Q] [--naive-rows R] [--reps N] [--threads N] [--no-naive]\n");
       return 2;
     }
   }
@@ -209,10 +212,12 @@ int main(int argc, char** argv) {
   std::printf("plain and fast: best of %d runs; ", reps);
   std::printf("naive = all-MPFR reference (method multiprecision) timed on the first %lld query rows, scaled by T/rows\n",
               static_cast<long long>(naive_rows));
+  if (q_rows > 0) std::printf("only the first %lld query rows (Tq = min(Q, T))\n", static_cast<long long>(q_rows));
   std::printf("%6s %4s | %10s %10s %12s | %10s %10s | %8s %8s %8s | %10s %5s %9s\n", "T", "D", "plain s", "fast s",
               "naive s", "fast/plain", "naive/fast", "MiB pl", "MiB fast", "MiB nv", "worst b/m", "cert", "escalated");
   for (const auto& [t, d] : sizes) {
-    const Problem pr = make_problem(t, t, d, 42);
+    const std::int64_t tq = q_rows > 0 ? std::min(q_rows, t) : t;
+    const Problem pr = make_problem(tq, t, d, 42);
     const Measure plain = in_child([&] {
       std::vector<double> out;
       Measure m;
@@ -228,13 +233,13 @@ int main(int argc, char** argv) {
     Measure slow;
     double naive_s = NAN;
     if (naive) {
-      const std::int64_t rows = std::min(naive_rows, t);
+      const std::int64_t rows = std::min(naive_rows, tq);
       Problem sub = pr;
       sub.p.shape.q_len = rows;
       sub.in.q.shape[2] = rows;
       sub.in.q.values.resize(static_cast<std::size_t>(rows * d));
       slow = in_child([&] { return run_reference(sub, headroom::ReferenceMethod::multiprecision, threads, 1); });
-      naive_s = slow.seconds * static_cast<double>(t) / static_cast<double>(rows);
+      naive_s = slow.seconds * static_cast<double>(tq) / static_cast<double>(rows);
     }
     std::printf("%6lld %4lld | %10.4f %10.4f %12.3f | %10.2f %10.1f | %8.1f %8.1f %8.1f | %10.3g %5s %9lld\n",
                 static_cast<long long>(t), static_cast<long long>(d), plain.seconds, fast.seconds, naive_s,

@@ -59,7 +59,7 @@ struct ReferenceStats {
 struct CoreReference {
   Tensor out;        ///< [B, Hq, Tq, Dv] o_ref rounded to nearest double
   Tensor bound;      ///< [B, Hq, Tq, Dv] certified |o_ref − o_exact|
-  Tensor magnitude;  ///< [B, Hq, Tq, Dv] Σ_j p_j |v_j| (relative error ≤ 2^-50), the scaled-error unit
+  Tensor magnitude;  ///< [B, Hq, Tq, Dv] Σ_j p_j |v_j| (relative error ≤ 2^-49), the scaled-error unit
   Tensor lse;        ///< [B, Hq, Tq] natural log of Σ_j exp(z_j), rounded to double; NaN when fully masked
   Tensor lse_bound;  ///< [B, Hq, Tq] certified |lse_ref − lse_exact|
   std::vector<std::uint8_t> fully_masked;  ///< [B·Hq·Tq] 1 where no key is visible
