@@ -7,7 +7,6 @@
 #include <iostream>
 #include <thread>
 
-#include "headroom/bundled_registry.h"
 #include "headroom/input_error.h"
 #include "headroom/progress_bar.h"
 #include "headroom/reports.h"
@@ -37,24 +36,6 @@ void add_run_flags(CLI::App* cmd, RunFlags& f) {
 
 namespace {
 
-bool same_reception(const KernelDeclaration& a, const KernelDeclaration& b) {
-  return a.level == b.level && a.input_format == b.input_format && a.output_format == b.output_format &&
-         a.q_quant == b.q_quant && a.k_quant == b.k_quant && a.v_quant == b.v_quant;
-}
-
-// The plain kernel a ratio is taken to: the bundled textbook kernel of the same
-// formats, else the first sound bundled kernel that receives inputs the same way.
-std::unique_ptr<AttachedKernel> plain_for(const KernelDeclaration& d) {
-  const BundledKernel* best = nullptr;
-  for (const auto& b : bundled_kernels()) {
-    if (b.flawed || !same_reception(b.declaration, d)) continue;
-    if (!best || (b.declaration.name.find("textbook") != std::string::npos &&
-                  best->declaration.name.find("textbook") == std::string::npos))
-      best = &b;
-  }
-  return best ? attach_in_process(best->kernel) : nullptr;
-}
-
 std::string journal_path(const RunFlags& f, const std::string& command) {
   if (!f.journal.empty()) return f.journal;
   if (!f.json.empty()) return f.json + ".journal";
@@ -80,7 +61,7 @@ RunSetup open_run(const RunFlags& f, const std::string& command, const std::stri
     s.kernel = attach_kernel(f.kernel);
     s.spec = f.kernel;
   }
-  s.plain = plain_for(s.kernel->declaration());
+  s.plain = plain_kernel_for(s.kernel->declaration());
   s.budget = f.budget.empty() ? Budget{} : load_budget(f.budget);
 
   RunnerOptions& r = s.runner;

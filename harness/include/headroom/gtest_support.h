@@ -25,32 +25,12 @@
 
 #include "headroom/attach.h"
 #include "headroom/budget.h"
-#include "headroom/bundled_registry.h"
+#include "headroom/judge.h"
 #include "headroom/case_folder.h"
 #include "headroom/input_error.h"
 #include "headroom/qualify.h"
 
 namespace headroom {
-namespace gtest_detail {
-
-// The kernel a ratio is taken to: the bundled textbook kernel receiving inputs
-// the same way, else the first sound bundled kernel that does (the CLI's rule).
-inline std::unique_ptr<AttachedKernel> plain_for(const KernelDeclaration& d) {
-  const BundledKernel* best = nullptr;
-  for (const auto& b : bundled_kernels()) {
-    const KernelDeclaration& e = b.declaration;
-    if (b.flawed || e.level != d.level || e.input_format != d.input_format || e.output_format != d.output_format ||
-        e.q_quant != d.q_quant || e.k_quant != d.k_quant || e.v_quant != d.v_quant)
-      continue;
-    if (!best || (e.name.find("textbook") != std::string::npos &&
-                  best->declaration.name.find("textbook") == std::string::npos))
-      best = &b;
-  }
-  return best ? attach_in_process(best->kernel) : nullptr;
-}
-
-}  // namespace gtest_detail
-
 /// Returns: success when kernel `kernel_spec` (a bundled kernel's name, or a
 /// path to a plug-in .so) is within budget on the case stored in `case_dir`,
 /// judged against `budget_file` (TOML, docs/budget-format.md) or, when it is
@@ -62,7 +42,7 @@ inline ::testing::AssertionResult WithinBudget(const std::string& kernel_spec, c
                                                const std::string& budget_file = "") {
   try {
     auto kernel = attach_kernel(kernel_spec);
-    auto plain = gtest_detail::plain_for(kernel->declaration());
+    auto plain = plain_kernel_for(kernel->declaration());
     const Budget budget = budget_file.empty() ? Budget{} : load_budget(budget_file);
 
     RunnerOptions opt;

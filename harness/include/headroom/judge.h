@@ -11,6 +11,7 @@
 // re-judged against another budget without re-running anything.
 #pragma once
 
+#include <memory>
 #include <optional>
 #include <string>
 
@@ -42,6 +43,15 @@ struct Judgement {
 /// that reproduces the case (recorded as is). Never throws for kernel
 /// misbehaviour; throws InputError for a case inconsistent in itself.
 Judgement judge_case(AttachedKernel& k, const Case& c, const JudgeOptions& opt, const std::string& replay);
+
+/// Returns: whether kernels declared `a` and `b` receive a case identically
+/// (same level, formats and int8 schemes), so one's inputs and reference serve both.
+bool receives_alike(const KernelDeclaration& a, const KernelDeclaration& b);
+
+/// Returns: the kernel ratios to plain are taken to: the bundled textbook
+/// kernel that receives inputs as `d` does, else the first sound bundled kernel
+/// that does; null when there is none.
+std::unique_ptr<AttachedKernel> plain_kernel_for(const KernelDeclaration& d);
 
 /// Returns: "B,Hq,Hkv,Tq,Tk,Dk,Dv" (core) or "B,Tq,Tk,Dm,Hq,Hkv,Dk,Dv" (block).
 std::string shape_text(const Case& c);
