@@ -14,12 +14,7 @@ namespace {
 
 using nlohmann::json;
 
-// JSON has no NaN or infinity: they travel as the strings "nan", "inf", "-inf".
-json number(double x) {
-  if (std::isnan(x)) return "nan";
-  if (std::isinf(x)) return x > 0 ? "inf" : "-inf";
-  return x;
-}
+json number(double x) { return json_number(x); }
 
 class Reader {
  public:
@@ -163,6 +158,12 @@ std::string line_column(const std::string& text, std::size_t byte) {
 }
 
 }  // namespace
+
+nlohmann::json json_number(double x) {
+  if (std::isnan(x)) return "nan";
+  if (std::isinf(x)) return x > 0 ? "inf" : "-inf";
+  return x;
+}
 
 std::string RunRecord::verdict() const {
   for (const auto& c : cases)

@@ -17,11 +17,7 @@ namespace {
 
 using nlohmann::json;
 
-json number(double x) {
-  if (std::isnan(x)) return "nan";
-  if (std::isinf(x)) return x > 0 ? "inf" : "-inf";
-  return x;
-}
+json number(double x) { return json_number(x); }
 
 double relative_change(double base, double next) {
   if (base == next) return 0;

@@ -90,6 +90,10 @@ struct RunRecord {
   std::map<std::string, int> fault_totals() const;
 };
 
+/// Returns: x as JSON, with NaN and ±infinity (which JSON lacks) as the strings
+/// "nan", "inf", "-inf" — the convention of every headroom JSON file.
+nlohmann::json json_number(double x);
+
 nlohmann::json to_json(const CaseRecord& c);
 nlohmann::json to_json(const RunRecord& r);
 /// Returns: the case record in `j`. Throws InputError(file, place, ...) on any
