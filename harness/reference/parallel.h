@@ -5,7 +5,8 @@
 // runs it or in what order, so results are bit-identical for every thread
 // count. Workers take items from a shared counter (rows differ in cost when
 // some need more precision). Each worker widens MPFR's exponent range for its
-// own thread (MPFR keeps it per thread).
+// own thread (MPFR keeps it per thread) and frees MPFR's per-thread caches
+// when it ends.
 #pragma once
 
 #include <algorithm>
@@ -51,7 +52,14 @@ void parallel_for(std::int64_t count, unsigned workers, Fn&& fn) {
   } else {
     std::vector<std::thread> pool;
     pool.reserve(workers - 1);
-    for (unsigned w = 1; w < workers; ++w) pool.emplace_back(work, w);
+    for (unsigned w = 1; w < workers; ++w)
+      pool.emplace_back([&work, w] {
+        work(w);
+        // MPFR keeps constant caches (log 2, exp tables) per thread; a thread
+        // must free its own before it ends (MPFR 4.2 manual, §5.15,
+        // mpfr_free_cache2). Global caches stay, other threads may use them.
+        mpfr_free_cache2(MPFR_FREE_LOCAL_CACHE);
+      });
     work(0);
     for (auto& t : pool) t.join();
   }
