@@ -140,10 +140,17 @@ void check_mask_tensor(const std::string& name, const Tensor& t, const CoreShape
   const bool shape_ok = t.rank() == 4 && t.shape[0] == s.batch && (t.shape[1] == 1 || t.shape[1] == s.q_heads) &&
                         t.shape[2] == s.q_len && t.shape[3] == s.kv_len;
   if (!shape_ok) {
-    f.add(name + ".shape",
-          "[" + std::to_string(s.batch) + ", 1 or " + std::to_string(s.q_heads) + ", " + std::to_string(s.q_len) +
-              ", " + std::to_string(s.kv_len) + "]",
-          shape_text(t.shape));
+    // Appended piece by piece: GCC 12 at -O3 misreads "[" + std::string&& (-Wrestrict, a known false positive).
+    std::string expected = "[";
+    expected += std::to_string(s.batch);
+    expected += ", 1 or ";
+    expected += std::to_string(s.q_heads);
+    expected += ", ";
+    expected += std::to_string(s.q_len);
+    expected += ", ";
+    expected += std::to_string(s.kv_len);
+    expected += "]";
+    f.add(name + ".shape", expected, shape_text(t.shape));
     return;
   }
   const std::int64_t n = checked_count(t.shape);
