@@ -19,8 +19,14 @@ std::atomic<unsigned> temp_counter{0};
 void write_file_atomically(const std::filesystem::path& path, std::string_view content) {
   const std::string file = path.string();
   const std::filesystem::path dir = path.has_parent_path() ? path.parent_path() : std::filesystem::path(".");
-  const std::filesystem::path temp =
-      dir / ("." + path.filename().string() + ".tmp-" + std::to_string(::getpid()) + "-" + std::to_string(temp_counter++));
+  // Appended piece by piece: GCC 12 at -O3 misreads "." + std::string&& (-Wstringop-overflow, a false positive).
+  std::string temp_name = ".";
+  temp_name += path.filename().string();
+  temp_name += ".tmp-";
+  temp_name += std::to_string(::getpid());
+  temp_name += "-";
+  temp_name += std::to_string(temp_counter++);
+  const std::filesystem::path temp = dir / temp_name;
   auto fail = [&](const std::string& what) {
     const std::string reason = std::strerror(errno);
     ::unlink(temp.c_str());
