@@ -1,13 +1,18 @@
 // headroom — the certified reference: exact attention of the values a kernel received.
 //
-// For every output element the reference returns o_ref (a multiprecision value,
-// delivered rounded to the nearest double) and a certified bound with
+// For every output element the reference returns o_ref (a multiprecision or
+// double-double value, delivered rounded to the nearest double) and a certified
+// bound with
 //   |o_ref − o_exact| ≤ bound,   bound ≤ 2^target_log2 · Σ_j p_j |v_j|  (default 2^-80)
 // where o_exact is the real-number result for the inputs exactly as given and the
 // scale exactly as the float32 value passed. The double `out` adds at most
-// 2^-53·|out| more: |out − o_exact| ≤ bound + 2^-53·|out|.
-// Fully masked rows have no value: they are flagged, out/bound are NaN there.
-// |out − o_exact| ≤ bound + 2^-53·|out|, plus 2^-1074 where out is subnormal.
+// 2^-53·|out| more (plus 2^-1074 where out is subnormal):
+//   |out − o_exact| ≤ bound + 2^-53·|out|.
+// Where no precision up to 4096 bits meets the target (in practice: outputs
+// below the double range, or inputs near overflow), the bound is still
+// certified but larger, and `certified` is false: the reference says so
+// rather than guess. Fully masked rows have no value: they are flagged,
+// out/bound/magnitude/lse are NaN there.
 // Rows are streamed one query at a time: O(Tk + Dv) multiprecision numbers per
 // thread; no Tq×Tk matrix of them ever exists; memory O((Tq + Tk)·D) overall.
 //
