@@ -16,7 +16,7 @@ jobs=${FUZZ_JOBS:-2}
 build=build-fuzz
 targets=("$@")
 if ((${#targets[@]} == 0)); then
-  targets=(fuzz_npy fuzz_manifest fuzz_record)
+  targets=(fuzz_npy fuzz_manifest fuzz_record fuzz_declaration)
   [ -f tests/fuzz/fuzz_budget.cpp ] && targets+=(fuzz_budget)
 fi
 

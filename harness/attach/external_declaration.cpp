@@ -75,7 +75,7 @@ KernelDeclaration declaration_from_json(const std::string& text, const std::stri
   json j;
   try {
     j = json::parse(text);
-  } catch (const json::parse_error& e) {
+  } catch (const json::exception& e) {  // parse_error, or out_of_range for a number like 1e400
     throw InputError(origin, "describe output", std::string("not valid JSON: ") + e.what(),
                      "print exactly one JSON object on stdout (logs go to stderr)");
   }

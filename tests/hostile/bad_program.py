@@ -20,6 +20,7 @@ log-sum-exp); `bad_program.py run DIR` writes DIR/o.npy — or not, as the mode
   straggler          the right answer, leaving a grandchild in its own session
                      that holds stdout and stderr open for 3 s
   describe_garbage   `describe` prints something that is not JSON
+  describe_huge      `describe` prints JSON with a number beyond double (1e400)
   describe_hangs     `describe` never returns
 """
 import json
@@ -123,6 +124,9 @@ def main(argv):
     if len(argv) == 2 and argv[1] == "describe":
         if MODE == "describe_garbage":
             print("this is not { JSON")
+            return 0
+        if MODE == "describe_huge":
+            print(json.dumps(DECLARATION).replace('"protocol": 1', '"protocol": 1e400'))
             return 0
         if MODE == "describe_hangs":
             while True:
