@@ -22,6 +22,7 @@
 #include "headroom/input_error.h"
 #include "headroom/kernel_abi.h"
 #include "headroom/npy.h"
+#include "leftovers.h"
 
 namespace headroom {
 namespace {
@@ -29,27 +30,13 @@ namespace {
 namespace fs = std::filesystem;
 using testing::block_case;
 using testing::core_case;
+using testing::count_exchange_folders;
+using testing::count_fds;
 
 bool contains(const std::string& s, const std::string& part) { return s.find(part) != std::string::npos; }
 
 RunOptions quick() { return RunOptions{true, 10.0, std::uint64_t{4} << 30}; }
 
-int count_fds() {
-  int n = 0;
-  for (const auto& e : fs::directory_iterator("/proc/self/fd")) {
-    (void)e;
-    ++n;
-  }
-  return n;
-}
-
-int count_exchange_folders() {
-  int n = 0;
-  for (const auto& e : fs::directory_iterator(fs::temp_directory_path())) {
-    if (e.path().filename().string().rfind("headroom-run-", 0) == 0) ++n;
-  }
-  return n;
-}
 
 // ---- one kernel, four ways in ----------------------------------------------
 
@@ -354,6 +341,7 @@ TEST_F(Programs, DescribeFailuresAreInputErrors) {
 }
 
 TEST_F(Programs, CrashingProgramsLeakNothing) {
+  const testing::PrivateTempDir tmp;
   const int fds = count_fds();
   const int folders = count_exchange_folders();
   auto k = attach_program(command("segv"), 5.0);

@@ -1,0 +1,62 @@
+// headroom tests — what a kernel call may leave behind: open descriptors, exchange folders.
+//
+// count_exchange_folders() counts headroom's "headroom-run-*" folders in the
+// temporary directory. CTest runs test binaries side by side, so a test that
+// compares counts first gives itself a private temporary directory
+// (PrivateTempDir: TMPDIR, which std::filesystem::temp_directory_path reads on
+// every call) and sees only the folders its own calls made.
+#pragma once
+
+#include <unistd.h>
+
+#include <cstdlib>
+#include <filesystem>
+#include <optional>
+#include <string>
+
+namespace headroom::testing {
+
+inline int count_fds() {
+  int n = 0;
+  for (const auto& e : std::filesystem::directory_iterator("/proc/self/fd")) {
+    (void)e;
+    ++n;
+  }
+  return n;
+}
+
+inline int count_exchange_folders() {
+  int n = 0;
+  for (const auto& e : std::filesystem::directory_iterator(std::filesystem::temp_directory_path())) {
+    if (e.path().filename().string().rfind("headroom-run-", 0) == 0) ++n;
+  }
+  return n;
+}
+
+/// While alive, TMPDIR names a fresh folder of this process's own; the old value returns after.
+class PrivateTempDir {
+ public:
+  PrivateTempDir() {
+    if (const char* old = std::getenv("TMPDIR")) old_ = old;
+    dir_ = std::filesystem::temp_directory_path() / ("headroom-private-tmp-" + std::to_string(::getpid()));
+    std::filesystem::create_directories(dir_);
+    ::setenv("TMPDIR", dir_.c_str(), 1);
+  }
+  ~PrivateTempDir() {
+    if (old_) {
+      ::setenv("TMPDIR", old_->c_str(), 1);
+    } else {
+      ::unsetenv("TMPDIR");
+    }
+    std::error_code ec;
+    std::filesystem::remove_all(dir_, ec);
+  }
+  PrivateTempDir(const PrivateTempDir&) = delete;
+  PrivateTempDir& operator=(const PrivateTempDir&) = delete;
+
+ private:
+  std::filesystem::path dir_;
+  std::optional<std::string> old_;
+};
+
+}  // namespace headroom::testing
