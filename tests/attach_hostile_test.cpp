@@ -23,14 +23,7 @@
 #include "attach_cases.h"
 #include "headroom/attach.h"
 #include "headroom/input_error.h"
-
-#if defined(__SANITIZE_ADDRESS__)
-// AddressSanitizer's allocator would end the child itself when the memory
-// limit refuses a mapping; returning NULL instead lets the greedy kernel meet
-// its limit as it would without the sanitizer (read by the runtime at start,
-// for this test binary only).
-extern "C" const char* __asan_default_options() { return "allocator_may_return_null=1"; }
-#endif
+#include "memory_limit_under_asan.h"
 
 namespace headroom {
 namespace {
