@@ -1,51 +1,66 @@
 #!/usr/bin/env bash
-# Builds headroom's libFuzzer targets with clang, ASan and UBSan in build-fuzz/ and
-# runs each for a bounded time, failing on any finding (crash, hang, leak,
-# sanitizer report, uncaught exception).
+# Runs headroom's libFuzzer targets (clang 16, ASan + UBSan, from the sanitized
+# build in build-asan/ that tools/sanitized_build.sh makes) for a bounded time
+# each, failing on any finding (crash, hang, leak, sanitizer report, uncaught
+# exception).
 # Usage: tools/fuzz.sh [target ...]        (default: every fuzz_* target)
 #   FUZZ_SECONDS   seconds per target (default 60)
-#   FUZZ_JOBS      build jobs (default 2)
-# The working corpus grows in build-fuzz/corpus/<target>/ (seeded from
+#   FUZZ_PARALLEL  targets fuzzed at once (default: nproc), one core each
+# The working corpus grows in build-asan/fuzz-corpus/<target>/ (seeded from
 # tests/fuzz/corpus/<target>/); an input that fails is saved as
-# build-fuzz/findings/<target>/crash-* (or leak-*, timeout-*, oom-*) and
-# replays with: build-fuzz/tests/fuzz/<target> <that file>
+# build-asan/fuzz-findings/<target>/crash-* (or leak-*, timeout-*, oom-*) and
+# replays with: build-asan/tests/fuzz/<target> <that file>
 set -euo pipefail
 cd "$(dirname "$0")/.."
 seconds=${FUZZ_SECONDS:-60}
-jobs=${FUZZ_JOBS:-2}
-build=build-fuzz
+parallel=${FUZZ_PARALLEL:-$(nproc)}
+build=build-asan
 targets=("$@")
 if ((${#targets[@]} == 0)); then
-  targets=(fuzz_npy fuzz_manifest fuzz_record fuzz_declaration)
-  [ -f tests/fuzz/fuzz_budget.cpp ] && targets+=(fuzz_budget)
+  targets=()
+  for f in tests/fuzz/fuzz_*.cpp; do targets+=("$(basename "$f" .cpp)"); done
 fi
 
 start=$(date +%s)
-cmake -S . -B "$build" -G Ninja -DCMAKE_BUILD_TYPE=RelWithDebInfo \
-  -DCMAKE_C_COMPILER=clang -DCMAKE_CXX_COMPILER=clang++ -DHEADROOM_FUZZ=ON -DHEADROOM_SANITIZE=ON >/dev/null
-cmake --build "$build" --target "${targets[@]}" -j"$jobs"
+tools/sanitized_build.sh "${targets[@]}"
 echo "fuzz: build took $(($(date +%s) - start)) s"
 
 export ASAN_OPTIONS=${ASAN_OPTIONS:-detect_leaks=1:abort_on_error=1}
 export UBSAN_OPTIONS=${UBSAN_OPTIONS:-print_stacktrace=1:halt_on_error=1}
+# One target: its log, its growing corpus, its findings; exit status is libFuzzer's.
+fuzz_one() {
+  local t=$1
+  mkdir -p "$build/fuzz-corpus/$t" "$build/fuzz-findings/$t"
+  "$build/tests/fuzz/$t" -max_total_time="$seconds" -timeout=10 -rss_limit_mb=2048 -print_final_stats=1 \
+    -artifact_prefix="$build/fuzz-findings/$t/" "$build/fuzz-corpus/$t" "tests/fuzz/corpus/$t" \
+    > "$build/fuzz-findings/$t.log" 2>&1
+}
+
+echo "fuzz: ${#targets[@]} targets for ${seconds} s each, $parallel at a time"
+declare -A rc=()
+running=()
+for t in "${targets[@]}"; do
+  fuzz_one "$t" &
+  running+=("$!:$t")
+  if ((${#running[@]} >= parallel)); then
+    r=0; wait "${running[0]%%:*}" || r=$?; rc[${running[0]#*:}]=$r; running=("${running[@]:1}")
+  fi
+done
+for job in "${running[@]}"; do
+  r=0; wait "${job%%:*}" || r=$?; rc[${job#*:}]=$r
+done
+
 failed=()
 summary=()
 for t in "${targets[@]}"; do
-  corpus="$build/corpus/$t"
-  findings="$build/findings/$t"
-  mkdir -p "$corpus" "$findings"
-  log="$build/findings/$t.log"
-  echo "fuzz: $t for ${seconds} s"
-  rc=0
-  "$build/tests/fuzz/$t" -max_total_time="$seconds" -timeout=10 -rss_limit_mb=2048 -print_final_stats=1 \
-    -artifact_prefix="$findings/" "$corpus" "tests/fuzz/corpus/$t" >"$log" 2>&1 || rc=$?
+  log="$build/fuzz-findings/$t.log"
   execs=$(sed -n 's/^stat::number_of_executed_units: *//p' "$log" | tail -1)
-  if ((rc != 0)); then
+  if ((rc[$t] != 0)); then
     tail -n 60 "$log" >&2
     failed+=("$t")
-    summary+=("$t: FINDING (exit $rc) after ${execs:-?} execs; log $log, inputs in $findings/")
+    summary+=("$t: FINDING (exit ${rc[$t]}) after ${execs:-?} execs; log $log, inputs in $build/fuzz-findings/$t/")
   else
-    summary+=("$t: ${execs:-?} execs in ${seconds} s, corpus $(ls "$corpus" | wc -l) files, no finding")
+    summary+=("$t: ${execs:-?} execs in ${seconds} s, corpus $(ls "$build/fuzz-corpus/$t" | wc -l) files, no finding")
   fi
 done
 printf 'fuzz: %s\n' "${summary[@]}"

@@ -2,9 +2,10 @@
 # Sets up (tools/setup.sh), then runs every test in three stages and prints how
 # long each took:
 #   1. the normal build's CTest suite (build/);
-#   2. the same suite under AddressSanitizer + UndefinedBehaviorSanitizer
-#      (build-asan/, -DHEADROOM_SANITIZE=ON);
-#   3. the fuzz targets, FUZZ_SECONDS each (default 20 here; tools/fuzz.sh).
+#   2. the same suite under AddressSanitizer + UndefinedBehaviorSanitizer,
+#      built with clang 16 in build-asan/ (tools/sanitized_build.sh);
+#   3. the fuzz targets from that build, FUZZ_SECONDS each (default 30 here),
+#      one per core at a time (tools/fuzz.sh).
 # Usage: tools/test.sh
 #   HEADROOM_TEST_STAGES   which stages to run (default "plain asan fuzz")
 #   FUZZ_SECONDS           seconds per fuzz target in stage 3
@@ -29,15 +30,12 @@ plain() {
 }
 
 asan() {
-  # -O1 -g1: half the compile time of -O2 -g, and still file:line in every report.
-  cmake -S . -B build-asan -G Ninja -DCMAKE_BUILD_TYPE=RelWithDebInfo -DHEADROOM_SANITIZE=ON \
-    -DCMAKE_C_FLAGS_RELWITHDEBINFO="-O1 -g1 -DNDEBUG" -DCMAKE_CXX_FLAGS_RELWITHDEBINFO="-O1 -g1 -DNDEBUG" >/dev/null
-  cmake --build build-asan -j"$jobs"
+  tools/sanitized_build.sh
   ctest --test-dir build-asan --output-on-failure -j"$jobs"
 }
 
 fuzz() {
-  FUZZ_SECONDS=${FUZZ_SECONDS:-20} FUZZ_JOBS=$jobs tools/fuzz.sh
+  FUZZ_SECONDS=${FUZZ_SECONDS:-30} tools/fuzz.sh
 }
 
 total=$SECONDS
