@@ -11,6 +11,7 @@
 #include <cstdlib>
 #include <cstring>
 #include <filesystem>
+#include <fstream>
 #include <stdexcept>
 #include <string>
 #include <vector>
@@ -109,6 +110,14 @@ std::int32_t hangs(const hr_core_problem*) {
   for (;;) {
     spins = spins + 1;
   }
+}
+
+int g_pid_pipe = -1;  // where reports_pid_then_hangs tells the test which process runs it
+
+std::int32_t reports_pid_then_hangs(const hr_core_problem* p) {
+  const pid_t me = getpid();
+  if (write(g_pid_pipe, &me, sizeof me) != static_cast<ssize_t>(sizeof me)) return HR_OK;
+  return hangs(p);
 }
 
 std::int32_t calls_exit(const hr_core_problem*) { std::exit(3); }
@@ -257,6 +266,45 @@ TEST(AttachIsolation, MemoryLimitEndsAGreedyKernel) {
   // With room to spare the same kernel is fine.
   opt.memory_limit_bytes = std::uint64_t{4} << 30;
   EXPECT_EQ(run_kernel(allocates_a_gigabyte, opt).status, RunStatus::ok);
+}
+
+// Returns: whether `pid` has ended (gone, or a zombie nobody has reaped yet) within `within_s`.
+bool ends_within(pid_t pid, double within_s) {
+  const auto until = std::chrono::steady_clock::now() + std::chrono::duration<double>(within_s);
+  do {
+    std::ifstream stat("/proc/" + std::to_string(pid) + "/stat");
+    std::string pid_field, comm, state;
+    if (!(stat >> pid_field >> comm >> state) || state == "Z" || state == "X") return true;
+    usleep(10000);
+  } while (std::chrono::steady_clock::now() < until);
+  return false;
+}
+
+TEST(AttachIsolation, TheChildDiesWithAKilledHeadroom) {
+  // A stand-in for headroom (a forked runner) calls a hanging kernel with a
+  // long time limit and is SIGKILLed mid-call: nobody is left to time the
+  // child out, so it must end by itself, at once.
+  int fds[2];
+  ASSERT_EQ(pipe(fds), 0);
+  g_pid_pipe = fds[1];
+  const pid_t runner = fork();
+  ASSERT_GE(runner, 0);
+  if (runner == 0) {
+    RunOptions opt = quick();
+    opt.time_limit_s = 60.0;
+    (void)run_kernel(reports_pid_then_hangs, opt);
+    _exit(0);
+  }
+  close(fds[1]);
+  pid_t kernel_pid = 0;
+  const bool told = read(fds[0], &kernel_pid, sizeof kernel_pid) == static_cast<ssize_t>(sizeof kernel_pid);
+  close(fds[0]);
+  kill(runner, SIGKILL);
+  while (waitpid(runner, nullptr, 0) < 0 && errno == EINTR) {
+  }
+  ASSERT_TRUE(told) << "the kernel never started";
+  EXPECT_TRUE(ends_within(kernel_pid, 5.0)) << "isolated child " << kernel_pid << " outlived its parent";
+  if (!ends_within(kernel_pid, 0.0)) kill(kernel_pid, SIGKILL);  // a failing run leaves nothing either
 }
 
 TEST(AttachIsolation, DecliningAndForgettingAreNotFaults) {

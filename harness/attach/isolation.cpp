@@ -1,7 +1,7 @@
 // headroom — one kernel call in a forked child (isolation.h).
 //
 // Between fork and _exit the child runs only the call itself and
-// async-signal-safe functions (sigaction, setrlimit, _exit), so a parent with
+// async-signal-safe functions (prctl, sigaction, setrlimit, _exit), so a parent with
 // other threads cannot deadlock it on a lock held at fork time — except inside
 // the kernel itself, which is the kernel's business (glibc's malloc is made
 // fork-safe by glibc's own fork).
@@ -12,6 +12,7 @@
 #include <stdlib.h>
 #include <string.h>
 #include <sys/mman.h>
+#include <sys/prctl.h>
 #include <sys/syscall.h>
 #include <sys/resource.h>
 #include <sys/wait.h>
@@ -81,8 +82,15 @@ void on_child_exit(int status, void*) {
   _exit(status);
 }
 
-[[noreturn]] void child_main(Control* control, const std::function<int()>& call, std::uint64_t as_limit) {
+[[noreturn]] void child_main(Control* control, const std::function<int()>& call, std::uint64_t as_limit,
+                             pid_t parent) {
   g_control = control;
+  // If headroom dies (SIGKILL, a crash) the child dies with it, not running on
+  // as an orphan that nobody will time out. The signal follows the forking
+  // thread, which waits for this child before it can end (prctl(2)); checking
+  // the parent afterwards closes the race with a parent that died already.
+  prctl(PR_SET_PDEATHSIG, SIGKILL);
+  if (getppid() != parent) _exit(1);
   sigset_t all;
   sigemptyset(&all);
   sigprocmask(SIG_SETMASK, &all, nullptr);
@@ -193,6 +201,7 @@ CallOutcome call_isolated(const std::function<int()>& call, double time_limit_s,
   // Buffered output would otherwise be written twice if the child flushes it.
   std::fflush(nullptr);
   const auto start = std::chrono::steady_clock::now();
+  const pid_t parent = getpid();
   const pid_t pid = fork();
   if (pid < 0) {
     out.how = CallOutcome::How::failed;
@@ -200,7 +209,7 @@ CallOutcome call_isolated(const std::function<int()>& call, double time_limit_s,
     munmap(page, sizeof(Control));
     return out;
   }
-  if (pid == 0) child_main(control, call, as_limit);
+  if (pid == 0) child_main(control, call, as_limit, parent);
   const int pidfd = open_pidfd(pid);
   const bool ended = wait_for_end(pid, pidfd, time_limit_s);
   if (!ended) kill(pid, SIGKILL);
