@@ -85,6 +85,59 @@ TEST(Cli, KilledRunResumesToTheUninterruptedRecord) {
   EXPECT_FALSE(fs::exists(journal)) << "a finished run leaves no journal";
 }
 
+// Returns: whether `pid` has ended (gone, or a zombie not reaped yet) within `within_s`.
+bool ends_within(pid_t pid, double within_s) {
+  const auto until = std::chrono::steady_clock::now() + std::chrono::duration<double>(within_s);
+  do {
+    std::ifstream stat("/proc/" + std::to_string(pid) + "/stat");
+    std::string pid_field, comm, state;
+    if (!(stat >> pid_field >> comm >> state) || state == "Z" || state == "X") return true;
+    std::this_thread::sleep_for(std::chrono::milliseconds(10));
+  } while (std::chrono::steady_clock::now() < until);
+  return false;
+}
+
+TEST(Cli, CtrlCOrSigtermTakesTheRunningExternalProgramDown) {
+  // The program runs in a process group of its own, so neither a terminal's
+  // Ctrl-C nor a SIGTERM to headroom reaches it; headroom must end it itself.
+  const auto dir = fresh_dir("signals");
+  std::ofstream(dir / "prog.sh") << R"(#!/bin/sh
+here=$(dirname "$0")
+if [ "$1" = describe ]; then
+  echo '{"protocol": 1, "name": "sleeper", "level": "core", "input_format": "float32", "output_format": "float32",'
+  echo ' "mask_kinds": ["none", "causal_top_left", "causal_bottom_right", "key_padding", "dense", "bias"], "masked_row": "zeros"}'
+  exit 0
+fi
+echo $$ > "$here/program.pid.tmp" && mv "$here/program.pid.tmp" "$here/program.pid"
+exec sleep 120
+)";
+  fs::permissions(dir / "prog.sh", fs::perms::owner_all);
+  for (const int sig : {SIGINT, SIGTERM}) {
+    fs::remove(dir / "program.pid");
+    const pid_t headroom_pid = fork();
+    ASSERT_GE(headroom_pid, 0);
+    if (headroom_pid == 0) {
+      const std::string cmd = "exec " + kTool + " qualify --suite quick --time-limit 300 --kernel-cmd " +
+                              (dir / "prog.sh").string() + " --json " + (dir / "out.json").string() +
+                              " >/dev/null 2>&1";
+      ::execl("/bin/sh", "sh", "-c", cmd.c_str(), static_cast<char*>(nullptr));
+      _exit(127);
+    }
+    const auto deadline = std::chrono::steady_clock::now() + std::chrono::seconds(60);
+    while (!fs::exists(dir / "program.pid") && std::chrono::steady_clock::now() < deadline)
+      std::this_thread::sleep_for(std::chrono::milliseconds(10));
+    pid_t program = 0;
+    std::ifstream(dir / "program.pid") >> program;
+    ::kill(headroom_pid, sig);
+    int status = 0;
+    ::waitpid(headroom_pid, &status, 0);
+    ASSERT_GT(program, 0) << "the program never ran";
+    EXPECT_TRUE(WIFSIGNALED(status) && WTERMSIG(status) == sig) << "headroom should end of signal " << sig;
+    EXPECT_TRUE(ends_within(program, 5.0)) << "the program outlived headroom after signal " << sig;
+    if (!ends_within(program, 0.0)) ::kill(program, SIGKILL);  // a failing run leaves nothing either
+  }
+}
+
 TEST(Cli, ThreeShardsMergeToTheUnshardedRecord) {
   const auto dir = fresh_dir("shards");
   const std::string common = "qualify --kernel f16_f32acc --no-isolation --determinism-runs 1 ";

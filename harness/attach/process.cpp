@@ -9,6 +9,7 @@
 #include <sys/wait.h>
 #include <unistd.h>
 
+#include <atomic>
 #include <cerrno>
 #include <chrono>
 #include <cmath>
@@ -16,6 +17,7 @@
 #include <cstring>
 
 #include "attach/isolation.h"
+#include "headroom/external_program.h"
 
 namespace headroom::attach_detail {
 namespace {
@@ -29,6 +31,22 @@ constexpr std::size_t kErrTail = 2000;
 constexpr double kDrainGrace_s = 0.2;
 
 using Clock = std::chrono::steady_clock;
+
+// The groups of the programs now running, for kill_running_programs() in a
+// signal handler: lock-free atomics, so reading them there is safe. A group is
+// listed from fork until just before its leader is reaped (after which its id
+// could be reused). More programs at once than slots go unlisted.
+constexpr int kListedGroups = 16;
+std::atomic<pid_t> g_running_groups[kListedGroups];
+static_assert(std::atomic<pid_t>::is_always_lock_free);
+
+int list_group(pid_t group) {
+  for (int i = 0; i < kListedGroups; ++i) {
+    pid_t empty = 0;
+    if (g_running_groups[i].compare_exchange_strong(empty, group)) return i;
+  }
+  return -1;
+}
 
 [[noreturn]] void exec_child(const char* line, int devnull, int out_w, int err_w, std::uint64_t as_limit) {
   setpgid(0, 0);
@@ -111,6 +129,7 @@ ProcessResult run_shell(const std::string& line, double time_limit_s, std::uint6
     return r;
   }
   setpgid(pid, pid);  // also in the child: whichever runs first, the group exists before any kill
+  const int listed = list_group(pid);
   const int pidfd = open_pidfd(pid);
   const auto deadline = start + std::chrono::duration_cast<Clock::duration>(std::chrono::duration<double>(time_limit_s));
   bool out_open = true, err_open = true, ended = false, err_truncated = false;
@@ -156,6 +175,7 @@ ProcessResult run_shell(const std::string& line, double time_limit_s, std::uint6
   }
   // The leader is not reaped yet, so its group id cannot have been reused.
   kill(-pid, SIGKILL);
+  if (listed >= 0) g_running_groups[listed].store(0);
   int status = 0;
   while (waitpid(pid, &status, 0) < 0 && errno == EINTR) {
   }
@@ -203,3 +223,14 @@ std::string describe_end(const ProcessResult& r, double time_limit_s) {
 }
 
 }  // namespace headroom::attach_detail
+
+namespace headroom {
+
+void kill_running_programs() noexcept {
+  for (auto& group : attach_detail::g_running_groups) {
+    const pid_t g = group.load();
+    if (g > 0) kill(-g, SIGKILL);
+  }
+}
+
+}  // namespace headroom

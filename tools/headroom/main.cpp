@@ -1,4 +1,6 @@
 // headroom — the command line: subcommands register themselves (command.h).
+#include <signal.h>
+
 #include <algorithm>
 #include <cstdio>
 #include <cstdlib>
@@ -6,6 +8,7 @@
 #include <vector>
 
 #include "command.h"
+#include "headroom/external_program.h"
 #include "headroom/input_error.h"
 
 namespace headroom::cli {
@@ -35,10 +38,35 @@ void exit_with(int code) {
   std::exit(code);
 }
 
+namespace {
+
+// Ctrl-C, SIGTERM or a closed terminal ends headroom as it would anyway
+// (finished cases are already in the journal), but first takes down a running
+// external kernel program, which sits in a process group of its own.
+extern "C" void on_ending_signal(int sig) {
+  headroom::kill_running_programs();
+  raise(sig);  // SA_RESETHAND: the default action, once this handler returns
+}
+
+void end_programs_with_headroom() {
+  for (int sig : {SIGINT, SIGTERM, SIGHUP}) {
+    struct sigaction old {};
+    if (sigaction(sig, nullptr, &old) != 0 || old.sa_handler == SIG_IGN) continue;  // e.g. nohup: stay ignored
+    struct sigaction sa {};
+    sa.sa_handler = on_ending_signal;
+    sa.sa_flags = SA_RESETHAND;
+    sigemptyset(&sa.sa_mask);
+    sigaction(sig, &sa, nullptr);
+  }
+}
+
+}  // namespace
+
 }  // namespace headroom::cli
 
 int main(int argc, char** argv) {
   using namespace headroom::cli;
+  end_programs_with_headroom();
   CLI::App app{"headroom — numerical qualification of softmax-attention kernels"};
   app.require_subcommand(1);
   app.set_version_flag("--version", "headroom 0.1.0");

@@ -62,4 +62,10 @@ void write_exchange(const std::filesystem::path& dir, const ReceivedCase& c, con
 /// or bad_output with a detail naming the file and what is wrong with it.
 KernelRun read_exchange(const std::filesystem::path& dir, const ReceivedCase& c, const KernelDeclaration& d);
 
+/// SIGKILLs the process group of every external kernel program now running.
+/// Async-signal-safe: meant for the handler of a signal that ends headroom,
+/// since the programs run in groups of their own and Ctrl-C at a terminal
+/// does not reach them. (A SIGKILLed headroom cannot call it; see docs/reliability.md.)
+void kill_running_programs() noexcept;
+
 }  // namespace headroom
