@@ -11,7 +11,6 @@
 #include <cstdlib>
 #include <cstring>
 #include <filesystem>
-#include <fstream>
 #include <stdexcept>
 #include <string>
 #include <vector>
@@ -268,18 +267,6 @@ TEST(AttachIsolation, MemoryLimitEndsAGreedyKernel) {
   EXPECT_EQ(run_kernel(allocates_a_gigabyte, opt).status, RunStatus::ok);
 }
 
-// Returns: whether `pid` has ended (gone, or a zombie nobody has reaped yet) within `within_s`.
-bool ends_within(pid_t pid, double within_s) {
-  const auto until = std::chrono::steady_clock::now() + std::chrono::duration<double>(within_s);
-  do {
-    std::ifstream stat("/proc/" + std::to_string(pid) + "/stat");
-    std::string pid_field, comm, state;
-    if (!(stat >> pid_field >> comm >> state) || state == "Z" || state == "X") return true;
-    usleep(10000);
-  } while (std::chrono::steady_clock::now() < until);
-  return false;
-}
-
 TEST(AttachIsolation, TheChildDiesWithAKilledHeadroom) {
   // A stand-in for headroom (a forked runner) calls a hanging kernel with a
   // long time limit and is SIGKILLed mid-call: nobody is left to time the
@@ -303,8 +290,8 @@ TEST(AttachIsolation, TheChildDiesWithAKilledHeadroom) {
   while (waitpid(runner, nullptr, 0) < 0 && errno == EINTR) {
   }
   ASSERT_TRUE(told) << "the kernel never started";
-  EXPECT_TRUE(ends_within(kernel_pid, 5.0)) << "isolated child " << kernel_pid << " outlived its parent";
-  if (!ends_within(kernel_pid, 0.0)) kill(kernel_pid, SIGKILL);  // a failing run leaves nothing either
+  EXPECT_TRUE(testing::ends_within(kernel_pid, 5.0)) << "isolated child " << kernel_pid << " outlived its parent";
+  if (!testing::ends_within(kernel_pid, 0.0)) kill(kernel_pid, SIGKILL);  // a failing run leaves nothing either
 }
 
 TEST(AttachIsolation, DecliningAndForgettingAreNotFaults) {

@@ -14,6 +14,7 @@
 #include <thread>
 
 #include "headroom/record.h"
+#include "leftovers.h"
 
 namespace headroom {
 namespace {
@@ -85,18 +86,6 @@ TEST(Cli, KilledRunResumesToTheUninterruptedRecord) {
   EXPECT_FALSE(fs::exists(journal)) << "a finished run leaves no journal";
 }
 
-// Returns: whether `pid` has ended (gone, or a zombie not reaped yet) within `within_s`.
-bool ends_within(pid_t pid, double within_s) {
-  const auto until = std::chrono::steady_clock::now() + std::chrono::duration<double>(within_s);
-  do {
-    std::ifstream stat("/proc/" + std::to_string(pid) + "/stat");
-    std::string pid_field, comm, state;
-    if (!(stat >> pid_field >> comm >> state) || state == "Z" || state == "X") return true;
-    std::this_thread::sleep_for(std::chrono::milliseconds(10));
-  } while (std::chrono::steady_clock::now() < until);
-  return false;
-}
-
 TEST(Cli, CtrlCOrSigtermTakesTheRunningExternalProgramDown) {
   // The program runs in a process group of its own, so neither a terminal's
   // Ctrl-C nor a SIGTERM to headroom reaches it; headroom must end it itself.
@@ -133,8 +122,8 @@ exec sleep 120
     ::waitpid(headroom_pid, &status, 0);
     ASSERT_GT(program, 0) << "the program never ran";
     EXPECT_TRUE(WIFSIGNALED(status) && WTERMSIG(status) == sig) << "headroom should end of signal " << sig;
-    EXPECT_TRUE(ends_within(program, 5.0)) << "the program outlived headroom after signal " << sig;
-    if (!ends_within(program, 0.0)) ::kill(program, SIGKILL);  // a failing run leaves nothing either
+    EXPECT_TRUE(testing::ends_within(program, 5.0)) << "the program outlived headroom after signal " << sig;
+    if (!testing::ends_within(program, 0.0)) ::kill(program, SIGKILL);  // a failing run leaves nothing either
   }
 }
 

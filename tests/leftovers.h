@@ -1,4 +1,4 @@
-// headroom tests — what a kernel call may leave behind: open descriptors, exchange folders.
+// headroom tests — what a kernel call may leave behind: open descriptors, exchange folders, processes.
 //
 // count_exchange_folders() counts headroom's "headroom-run-*" folders in the
 // temporary directory. CTest runs test binaries side by side, so a test that
@@ -9,10 +9,13 @@
 
 #include <unistd.h>
 
+#include <chrono>
 #include <cstdlib>
 #include <filesystem>
+#include <fstream>
 #include <optional>
 #include <string>
+#include <thread>
 
 namespace headroom::testing {
 
@@ -31,6 +34,18 @@ inline int count_exchange_folders() {
     if (e.path().filename().string().rfind("headroom-run-", 0) == 0) ++n;
   }
   return n;
+}
+
+/// Returns: whether process `pid` has ended (gone, or a zombie not reaped yet) within `within_s`.
+inline bool ends_within(pid_t pid, double within_s) {
+  const auto until = std::chrono::steady_clock::now() + std::chrono::duration<double>(within_s);
+  do {
+    std::ifstream stat("/proc/" + std::to_string(pid) + "/stat");
+    std::string pid_field, comm, state;
+    if (!(stat >> pid_field >> comm >> state) || state == "Z" || state == "X") return true;
+    std::this_thread::sleep_for(std::chrono::milliseconds(10));
+  } while (std::chrono::steady_clock::now() < until);
+  return false;
 }
 
 /// While alive, TMPDIR names a fresh folder of this process's own; the old value returns after.
