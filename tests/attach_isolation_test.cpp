@@ -191,7 +191,6 @@ bool contains(const std::string& s, const std::string& part) { return s.find(par
     EXPECT_TRUE(contains(r_.detail, part)) << "detail: " << r_.detail << "\nexpected: " << part;  \
   } while (0)
 
-
 // ---- the fault classes ---------------------------------------------------------
 
 TEST(AttachIsolation, ReadingOneElementPastAnyInputIsOobRead) {
