@@ -394,7 +394,7 @@ TEST(AttachProgramDeclaration, RefusesWhatItCannotTrust) {
   } bad[] = {
       {"[1, 2]", "describe output"},
       {"{" + good + ", \"mask_kind\": [\"none\"]}", "mask_kind"},  // a typo
-      {R"({"protocol": 2, "name": "k"})", "protocol"},
+      {R"({"protocol": 3, "name": "k"})", "protocol"},
       {R"({"protocol": 1})", "name"},
       {"{" + good + ", \"layouts\": [\"BTHD\"]}", "layouts"},
       {"{" + good + ", \"q_quant\": {\"granularity\": \"per_head\"}}", "q_quant"},

@@ -52,7 +52,9 @@ TEST(CliKernels, EveryKernelWithItsDeclarationSpecimensMarked) {
     EXPECT_NE(line.find(declaration_summary(k.declaration)), std::string::npos) << line;
     const bool marked = line.find(" flawed expect=" + k.expected_fault + " ") != std::string::npos;
     EXPECT_EQ(marked, k.flawed) << line;
-    if (k.flawed) EXPECT_NE(line.find("defect: " + k.defect), std::string::npos) << line;
+    if (k.flawed) {
+      EXPECT_NE(line.find("defect: " + k.defect), std::string::npos) << line;
+    }
   }
 }
 

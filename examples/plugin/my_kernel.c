@@ -72,22 +72,25 @@ static int32_t run_core(const hr_core_problem* p) {
   return HR_OK;
 }
 
+/* Designated initializers: every field not named is zero, which for each
+ * version-2 field means "no constraint, no feature" (kernel_abi.h). */
 static const hr_kernel kMyKernel = {
-    HEADROOM_ABI_VERSION,
-    "my_kernel",
-    "textbook float32 attention: max-shifted softmax, key order, one pass per row",
-    HR_LEVEL_CORE,
-    HR_FORMAT_FLOAT32,
-    HR_FORMAT_FLOAT32,
-    {0, 0}, {0, 0}, {0, 0}, /* quantisation: not int8 */
-    HR_MASK_NONE | HR_MASK_CAUSAL_TOP_LEFT | HR_MASK_CAUSAL_BOTTOM_RIGHT | HR_MASK_KEY_PADDING | HR_MASK_DENSE |
-        HR_MASK_BIAS,
-    HR_MASKED_ROW_ZEROS,
-    1,                                /* returns log-sum-exp */
-    HR_LAYOUT_BHTD | HR_LAYOUT_BTHD,  /* strides are honoured */
-    0,                                /* no limit on the key length */
-    run_core,
-    NULL,
+    .abi_version = HEADROOM_ABI_VERSION,
+    .name = "my_kernel",
+    .description = "textbook float32 attention: max-shifted softmax, key order, one pass per row",
+    .level = HR_LEVEL_CORE,
+    .input_format = HR_FORMAT_FLOAT32,
+    .output_format = HR_FORMAT_FLOAT32,
+    .mask_kinds = HR_MASK_NONE | HR_MASK_CAUSAL_TOP_LEFT | HR_MASK_CAUSAL_BOTTOM_RIGHT | HR_MASK_KEY_PADDING |
+                  HR_MASK_DENSE | HR_MASK_BIAS,
+    .masked_row = HR_MASKED_ROW_ZEROS,
+    .returns_lse = 1,
+    .layouts = HR_LAYOUT_BHTD | HR_LAYOUT_BTHD, /* strides are honoured */
+    .max_kv_len = 0,                            /* no limit on the key length */
+    .run_core = run_core,
+    /* Version 2: a kernel with head-dim-specialised code paths would say so,
+     * e.g. .key_dims = kDims with static const int32_t kDims[] = {64, 128, 0};
+     * cases at other head dims are then skipped and counted, never run. */
 };
 
 const hr_kernel* headroom_kernel_entry(void) { return &kMyKernel; }

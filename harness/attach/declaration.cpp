@@ -1,6 +1,8 @@
 // headroom — reading a kernel's declaration, trusting nothing in it (kernel.h).
+#include <algorithm>
 #include <cstring>
 #include <string>
+#include <vector>
 
 #include "headroom/input_error.h"
 #include "headroom/kernel.h"
@@ -10,6 +12,7 @@ namespace headroom {
 namespace {
 
 constexpr std::size_t kMaxNameLength = 64;
+constexpr std::size_t kMaxDimList = 64;  // entries read from a zero-terminated head-dim list
 constexpr std::uint32_t kAllMasks = HR_MASK_NONE | HR_MASK_CAUSAL_TOP_LEFT | HR_MASK_CAUSAL_BOTTOM_RIGHT |
                                     HR_MASK_KEY_PADDING | HR_MASK_DENSE | HR_MASK_BIAS;
 constexpr std::uint32_t kAllLayouts = HR_LAYOUT_BHTD | HR_LAYOUT_BTHD;
@@ -30,6 +33,10 @@ Format format_of(std::int32_t v, const std::string& origin, const std::string& p
     case HR_FORMAT_BINARY16: return Format::binary16;
     case HR_FORMAT_BFLOAT16: return Format::bfloat16;
     case HR_FORMAT_INT8: return Format::int8;
+    case HR_FORMAT_E4M3:
+    case HR_FORMAT_E5M2:
+      refuse(origin, place, "8-bit float formats (E4M3, E5M2) are not judged by this headroom yet",
+             "declare float32, binary16, bfloat16, float64 or int8 input");
     default: break;
   }
   refuse(origin, place, "unknown format value " + std::to_string(v),
@@ -43,6 +50,9 @@ QuantScheme scheme_of(const hr_quant& q, const std::string& origin, const std::s
     case HR_QUANT_PER_HEAD: s.granularity = Granularity::per_head; break;
     case HR_QUANT_PER_TOKEN: s.granularity = Granularity::per_token; break;
     case HR_QUANT_PER_CHANNEL: s.granularity = Granularity::per_channel; break;
+    case HR_QUANT_PER_BLOCK:
+      refuse(origin, place + ".granularity", "per-block scales are not judged by this headroom yet",
+             "use HR_QUANT_PER_TENSOR, PER_HEAD, PER_TOKEN or PER_CHANNEL");
     default:
       refuse(origin, place + ".granularity", "unknown granularity value " + std::to_string(q.granularity),
              "use one of the HR_QUANT_* values of kernel_abi.h (0..3)");
@@ -68,6 +78,61 @@ std::string mask_list(std::uint32_t bits) {
 // "per_token" or "per_token,asymmetric": one space-free token for the summary line.
 std::string scheme_token(const QuantScheme& q) {
   return std::string(granularity_name(q.granularity)) + (q.asymmetric ? ",asymmetric" : "");
+}
+
+
+std::string dim_list(const std::vector<std::int64_t>& dims) {
+  std::string out;
+  for (std::int64_t v : dims) out += (out.empty() ? "" : ",") + std::to_string(v);
+  return out;
+}
+
+// Reads a zero-terminated int32 list, at most kMaxDimList entries before the 0.
+std::vector<std::int64_t> dims_of(const std::int32_t* list, const std::string& origin, const std::string& place) {
+  std::vector<std::int64_t> out;
+  if (list == nullptr) return out;
+  for (std::size_t i = 0;; ++i) {
+    if (i == kMaxDimList) {
+      refuse(origin, place, "no terminating 0 within " + std::to_string(kMaxDimList) + " entries",
+             "end the list with 0, e.g. {64, 128, 0}, or set the pointer to NULL for any");
+    }
+    if (list[i] == 0) break;
+    out.push_back(list[i]);
+  }
+  std::sort(out.begin(), out.end());
+  if (out.empty()) {
+    refuse(origin, place, "the list is empty (its first entry is the terminating 0)",
+           "list the accepted head dims before the 0, or set the pointer to NULL for any");
+  }
+  return out;
+}
+
+// Rule 6 of docs/kernel-abi-v2.md: a version-2 field whose judging this build
+// does not have yet is refused, so no kernel passes on something never tried.
+void refuse_unjudged(const hr_kernel* k, const std::string& kernel, const std::string& origin) {
+  struct Field {
+    const char* name;
+    bool set;
+    const char* what;
+  };
+  const Field fields[] = {
+      {"q_block", k->q_block != 0, "per-block scales"},
+      {"k_block", k->k_block != 0, "per-block scales"},
+      {"v_block", k->v_block != 0, "per-block scales"},
+      {"fp8_saturating", k->fp8_saturating != 0, "8-bit float conversions"},
+      {"p_quant", k->p_quant != HR_PQUANT_NONE, "probabilities rounded to 8 bits"},
+      {"p_scale", k->p_scale != 0.0f, "probabilities rounded to 8 bits"},
+      {"features", k->features != 0, "paged, packed, split, windowed, soft-capped and sink attention"},
+      {"split_kv_len", k->split_kv_len != 0, "split-KV partial results"},
+      {"run_backward", k->run_backward != nullptr, "backward kernels"},
+      {"backward_flags", k->backward_flags != 0, "backward kernels"},
+  };
+  for (const Field& f : fields) {
+    if (!f.set) continue;
+    refuse(origin, std::string("field \"") + f.name + "\" of " + kernel,
+           std::string(f.what) + " are not judged by this headroom yet",
+           std::string("leave ") + f.name + " at zero (NULL for a pointer): a version-2 field is neutral at zero");
+  }
 }
 
 }  // namespace
@@ -140,6 +205,49 @@ void check_declaration(const KernelDeclaration& d, const std::string& origin) {
     refuse(origin, "field \"max_kv_len\"", who(d) + " declares max_kv_len " + std::to_string(d.max_kv_len),
            "use 0 for no limit or the longest key sequence accepted");
   }
+  for (const auto& [field, dims] : {std::pair{"key_dims", &d.key_dims}, std::pair{"value_dims", &d.value_dims}}) {
+    std::vector<std::int64_t> sorted = *dims;
+    std::sort(sorted.begin(), sorted.end());
+    if (!sorted.empty() && sorted.front() < 1) {
+      refuse(origin, std::string("field \"") + field + "\"", who(d) + " lists head dim " + std::to_string(sorted.front()),
+             "list only positive head dims");
+    }
+    if (std::adjacent_find(sorted.begin(), sorted.end()) != sorted.end()) {
+      refuse(origin, std::string("field \"") + field + "\"", who(d) + " lists a head dim twice (" + dim_list(*dims) + ")",
+             "list each accepted head dim once");
+    }
+  }
+  const std::pair<const char*, std::int64_t> counts[] = {{"head_dim_multiple", d.head_dim_multiple},
+                                                         {"kv_len_multiple", d.kv_len_multiple},
+                                                         {"max_q_len", d.max_q_len},
+                                                         {"max_batch", d.max_batch}};
+  for (const auto& [field, v] : counts) {
+    if (v < 0) {
+      refuse(origin, std::string("field \"") + field + "\"", who(d) + " declares " + field + " " + std::to_string(v),
+             "use 0 for no constraint or a positive value");
+    }
+  }
+}
+
+std::optional<std::string> KernelDeclaration::shape_unfit(const CoreShape& s) const {
+  const auto listed = [](const std::vector<std::int64_t>& dims, std::int64_t v) {
+    return dims.empty() || std::find(dims.begin(), dims.end(), v) != dims.end();
+  };
+  if (!listed(key_dims, s.key_dim)) return "key dim " + std::to_string(s.key_dim) + " not declared (" + dim_list(key_dims) + ")";
+  if (!listed(value_dims, s.value_dim)) {
+    return "value dim " + std::to_string(s.value_dim) + " not declared (" + dim_list(value_dims) + ")";
+  }
+  if (head_dim_multiple > 1 && (s.key_dim % head_dim_multiple != 0 || s.value_dim % head_dim_multiple != 0)) {
+    const std::int64_t dim = s.key_dim % head_dim_multiple != 0 ? s.key_dim : s.value_dim;
+    return "head dim " + std::to_string(dim) + " not a multiple of the declared " + std::to_string(head_dim_multiple);
+  }
+  if (kv_len_multiple > 1 && s.kv_len % kv_len_multiple != 0) {
+    return "Tk " + std::to_string(s.kv_len) + " not a multiple of the declared " + std::to_string(kv_len_multiple);
+  }
+  if (max_q_len > 0 && s.q_len > max_q_len) return "Tq over the declared maximum " + std::to_string(max_q_len);
+  if (max_batch > 0 && s.batch > max_batch) return "batch over the declared maximum " + std::to_string(max_batch);
+  if (max_kv_len > 0 && s.kv_len > max_kv_len) return "Tk over the declared maximum " + std::to_string(max_kv_len);
+  return std::nullopt;
 }
 
 KernelDeclaration declaration_of(const hr_kernel* k, const std::string& origin) {
@@ -147,13 +255,14 @@ KernelDeclaration declaration_of(const hr_kernel* k, const std::string& origin) 
     refuse(origin, "declaration", "the declaration pointer is NULL",
            "return a pointer to a static const hr_kernel from " HEADROOM_KERNEL_ENTRY "()");
   }
-  if (k->abi_version != HEADROOM_ABI_VERSION) {
+  if (k->abi_version < HEADROOM_ABI_OLDEST_VERSION || k->abi_version > HEADROOM_ABI_VERSION) {
     refuse(origin, "field \"abi_version\"",
-           "built against kernel_abi.h version " + std::to_string(k->abi_version) + ", this headroom speaks version " +
-               std::to_string(HEADROOM_ABI_VERSION),
+           "built against kernel_abi.h version " + std::to_string(k->abi_version) + ", this headroom speaks versions " +
+               std::to_string(HEADROOM_ABI_OLDEST_VERSION) + " to " + std::to_string(HEADROOM_ABI_VERSION),
            "rebuild the kernel against this headroom's headroom/kernel_abi.h and set abi_version = HEADROOM_ABI_VERSION");
   }
   KernelDeclaration d;
+  d.interface_version = static_cast<int>(k->abi_version);
   if (k->name == nullptr) {
     refuse(origin, "field \"name\"", "the name is NULL", "give the kernel a short unique name of [a-z0-9_.-]");
   }
@@ -203,6 +312,16 @@ KernelDeclaration declaration_of(const hr_kernel* k, const std::string& origin) 
   d.returns_lse = k->returns_lse == 1;
   d.layouts = k->layouts;
   d.max_kv_len = k->max_kv_len;
+  // A version-1 plug-in's hr_kernel ends at run_block: nothing after it is read.
+  if (k->abi_version >= 2) {
+    d.key_dims = dims_of(k->key_dims, origin, "field \"key_dims\" of " + kernel);
+    d.value_dims = dims_of(k->value_dims, origin, "field \"value_dims\" of " + kernel);
+    d.head_dim_multiple = k->head_dim_multiple == 0 ? 1 : k->head_dim_multiple;
+    d.kv_len_multiple = k->kv_len_multiple == 0 ? 1 : k->kv_len_multiple;
+    d.max_q_len = k->max_q_len;
+    d.max_batch = k->max_batch;
+    refuse_unjudged(k, kernel, origin);
+  }
   check_declaration(d, origin);
   if (d.level == Level::core && k->run_core == nullptr) {
     refuse(origin, "field \"run_core\"", kernel + " is a core kernel without a run_core function",
@@ -235,6 +354,13 @@ std::string declaration_summary(const KernelDeclaration& d) {
   if (d.layouts & HR_LAYOUT_BTHD) layouts += layouts.empty() ? "BTHD" : ",BTHD";
   s += " layouts=" + layouts;
   s += " max_kv_len=" + (d.max_kv_len == 0 ? std::string("any") : std::to_string(d.max_kv_len));
+  // Version-2 shape limits, only where the kernel constrains something.
+  if (!d.key_dims.empty()) s += " key_dims=" + dim_list(d.key_dims);
+  if (!d.value_dims.empty()) s += " value_dims=" + dim_list(d.value_dims);
+  if (d.head_dim_multiple > 1) s += " head_dim_multiple=" + std::to_string(d.head_dim_multiple);
+  if (d.kv_len_multiple > 1) s += " kv_len_multiple=" + std::to_string(d.kv_len_multiple);
+  if (d.max_q_len > 0) s += " max_q_len=" + std::to_string(d.max_q_len);
+  if (d.max_batch > 0) s += " max_batch=" + std::to_string(d.max_batch);
   return s;
 }
 

@@ -1,6 +1,8 @@
 // headroom — an external program's declaration as JSON, read strictly (external_program.h).
+#include <algorithm>
 #include <set>
 #include <string>
+#include <vector>
 
 #include <nlohmann/json.hpp>
 
@@ -16,6 +18,9 @@ using nlohmann::json;
 const std::set<std::string> kFields = {"protocol",  "name",       "description", "level",       "input_format",
                                        "output_format", "q_quant", "k_quant",     "v_quant",     "mask_kinds",
                                        "masked_row", "returns_lse", "max_kv_len", "layouts"};
+// Protocol 2 (kernel_abi.h version 2): the shapes a kernel accepts.
+const std::set<std::string> kFieldsV2 = {"key_dims", "value_dims", "head_dim_multiple", "kv_len_multiple",
+                                         "max_q_len", "max_batch"};
 
 std::string place(const std::string& field) { return "describe output, field \"" + field + "\""; }
 
@@ -66,6 +71,31 @@ json scheme_json(const QuantScheme& s) {
   return json{{"granularity", std::string(granularity_name(s.granularity))}, {"asymmetric", s.asymmetric}};
 }
 
+std::int64_t count_field(const json& j, const char* field, const std::string& origin) {
+  auto it = j.find(field);
+  if (it == j.end()) return 0;
+  if (!it->is_number_integer() || it->get<std::int64_t>() < 0) {
+    refuse(origin, field, "expected an integer ≥ 0, found " + it->dump(), "give 0 for no constraint or a positive integer");
+  }
+  return it->get<std::int64_t>();
+}
+
+std::vector<std::int64_t> dims_field(const json& j, const char* field, const std::string& origin) {
+  std::vector<std::int64_t> out;
+  auto it = j.find(field);
+  if (it == j.end()) return out;
+  if (!it->is_array() || it->empty()) {
+    refuse(origin, field, "expected a non-empty array of head dims, found " + it->dump(),
+           "e.g. [64, 128, 256], or omit the field for any");
+  }
+  for (const json& v : *it) {
+    if (!v.is_number_integer()) refuse(origin, field, "expected integers, found " + v.dump(), "list positive integers");
+    out.push_back(v.get<std::int64_t>());
+  }
+  std::sort(out.begin(), out.end());
+  return out;
+}
+
 constexpr MaskKind kMaskKinds[] = {MaskKind::none,        MaskKind::causal_top_left, MaskKind::causal_bottom_right,
                                    MaskKind::key_padding, MaskKind::dense,           MaskKind::bias};
 
@@ -82,18 +112,26 @@ KernelDeclaration declaration_from_json(const std::string& text, const std::stri
   if (!j.is_object()) {
     throw InputError(origin, "describe output", "expected a JSON object", "print the declaration as one JSON object");
   }
-  for (auto it = j.begin(); it != j.end(); ++it) {
-    if (kFields.count(it.key()) == 0) {
-      refuse(origin, it.key(), "unknown field", "remove it or correct its spelling (see docs/external-program.md)");
-    }
-  }
   const json& protocol = required(j, "protocol", origin);
-  if (!protocol.is_number_integer() || protocol.get<long long>() != kExternalProtocolVersion) {
+  if (!protocol.is_number_integer() || protocol.get<long long>() < kOldestExternalProtocolVersion ||
+      protocol.get<long long>() > kExternalProtocolVersion) {
     refuse(origin, "protocol", "speaks protocol " + protocol.dump() + ", this headroom speaks " +
+                                   std::to_string(kOldestExternalProtocolVersion) + " to " +
                                    std::to_string(kExternalProtocolVersion),
            "update the program to protocol " + std::to_string(kExternalProtocolVersion) + " (docs/external-program.md)");
   }
+  const int version = static_cast<int>(protocol.get<long long>());
+  for (auto it = j.begin(); it != j.end(); ++it) {
+    if (kFieldsV2.count(it.key()) != 0 && version < 2) {
+      refuse(origin, it.key(), "is a protocol 2 field but the program declares protocol 1",
+             "declare \"protocol\": 2 (docs/external-program.md)");
+    }
+    if (kFields.count(it.key()) == 0 && kFieldsV2.count(it.key()) == 0) {
+      refuse(origin, it.key(), "unknown field", "remove it or correct its spelling (see docs/external-program.md)");
+    }
+  }
   KernelDeclaration d;
+  d.interface_version = version;
   d.name = string_field(required(j, "name", origin), "name", origin);
   if (auto it = j.find("description"); it != j.end()) d.description = string_field(*it, "description", origin);
   const std::string level = string_field(required(j, "level", origin), "level", origin);
@@ -152,6 +190,12 @@ KernelDeclaration declaration_from_json(const std::string& text, const std::stri
              "omit \"layouts\" or give [\"BHTD\"]");
     }
   }
+  d.key_dims = dims_field(j, "key_dims", origin);
+  d.value_dims = dims_field(j, "value_dims", origin);
+  d.head_dim_multiple = std::max<std::int64_t>(1, count_field(j, "head_dim_multiple", origin));
+  d.kv_len_multiple = std::max<std::int64_t>(1, count_field(j, "kv_len_multiple", origin));
+  d.max_q_len = count_field(j, "max_q_len", origin);
+  d.max_batch = count_field(j, "max_batch", origin);
   check_declaration(d, origin);
   return d;
 }
@@ -173,7 +217,13 @@ std::string declaration_to_json(const KernelDeclaration& d) {
       {"returns_lse", d.returns_lse},
       {"max_kv_len", d.max_kv_len},
       {"layouts", json::array({"BHTD"})},
+      {"head_dim_multiple", d.head_dim_multiple},
+      {"kv_len_multiple", d.kv_len_multiple},
+      {"max_q_len", d.max_q_len},
+      {"max_batch", d.max_batch},
   };
+  if (!d.key_dims.empty()) j["key_dims"] = d.key_dims;
+  if (!d.value_dims.empty()) j["value_dims"] = d.value_dims;
   if (d.input_format == Format::int8) {
     j["q_quant"] = scheme_json(d.q_quant);
     j["k_quant"] = scheme_json(d.k_quant);

@@ -179,7 +179,7 @@ class ProgramKernel final : public AttachedKernel {
 
 void write_exchange(const fs::path& dir, const ReceivedCase& c, const KernelDeclaration& d) {
   const Case& k = c.received;
-  json problem = {{"protocol", kExternalProtocolVersion},
+  json problem = {{"protocol", d.interface_version},
                   {"kernel", d.name},
                   {"case", k.name},
                   {"level", k.level == Level::core ? "core" : "block"},

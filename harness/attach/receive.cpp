@@ -84,10 +84,7 @@ std::optional<std::string> why_unfit(const Case& c, const KernelDeclaration& d) 
   if (!d.supports(mask.kind)) {
     return "kernel \"" + d.name + "\" does not declare mask kind " + std::string(mask_kind_name(mask.kind));
   }
-  if (d.max_kv_len > 0 && shape.kv_len > d.max_kv_len) {
-    return "the case has " + std::to_string(shape.kv_len) + " keys and kernel \"" + d.name + "\" accepts at most " +
-           std::to_string(d.max_kv_len);
-  }
+  if (auto reason = d.shape_unfit(shape)) return reason;
   if (c.level == Level::block && d.input_format == Format::int8) {
     return std::string("int8 input at block level is not supported (only Q, K, V are quantised)");
   }

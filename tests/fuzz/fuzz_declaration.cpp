@@ -23,7 +23,9 @@ bool same(const headroom::KernelDeclaration& a, const headroom::KernelDeclaratio
          a.input_format == b.input_format && a.output_format == b.output_format && a.q_quant == b.q_quant &&
          a.k_quant == b.k_quant && a.v_quant == b.v_quant && a.mask_kinds == b.mask_kinds &&
          a.masked_row == b.masked_row && a.returns_lse == b.returns_lse && a.layouts == b.layouts &&
-         a.max_kv_len == b.max_kv_len;
+         a.max_kv_len == b.max_kv_len && a.key_dims == b.key_dims && a.value_dims == b.value_dims &&
+         a.head_dim_multiple == b.head_dim_multiple && a.kv_len_multiple == b.kv_len_multiple &&
+         a.max_q_len == b.max_q_len && a.max_batch == b.max_batch;
 }
 
 }  // namespace

@@ -9,9 +9,16 @@ static int32_t run_core(const hr_core_problem* p) {
 }
 
 static const hr_kernel kFuture = {
-    HEADROOM_ABI_VERSION + 1, "future_kernel", "declares an ABI version this headroom does not speak",
-    HR_LEVEL_CORE, HR_FORMAT_FLOAT32, HR_FORMAT_FLOAT32, {0, 0}, {0, 0}, {0, 0},
-    HR_MASK_NONE, HR_MASKED_ROW_ZEROS, 0, HR_LAYOUT_BHTD, 0, run_core, NULL,
+    .abi_version = HEADROOM_ABI_VERSION + 1,
+    .name = "future_kernel",
+    .description = "declares an ABI version this headroom does not speak",
+    .level = HR_LEVEL_CORE,
+    .input_format = HR_FORMAT_FLOAT32,
+    .output_format = HR_FORMAT_FLOAT32,
+    .mask_kinds = HR_MASK_NONE,
+    .masked_row = HR_MASKED_ROW_ZEROS,
+    .layouts = HR_LAYOUT_BHTD,
+    .run_core = run_core,
 };
 
 const hr_kernel* headroom_kernel_entry(void) { return &kFuture; }

@@ -33,7 +33,7 @@ struct ReceivedCase {
 };
 
 /// Returns: why kernel `d` cannot be given case `c` (level, mask kind,
-/// max_kv_len, a fully masked row for a never_called kernel, int8 at block
+/// the declared shape limits of KernelDeclaration::shape_unfit, a fully masked row for a never_called kernel, int8 at block
 /// level), or nothing when it can. Callers skip such cases; receive refuses them.
 std::optional<std::string> why_unfit(const Case& c, const KernelDeclaration& d);
 

@@ -33,18 +33,24 @@
 namespace headroom {
 
 /// The exchange's version: "protocol" in describe's JSON and in problem.json.
-inline constexpr int kExternalProtocolVersion = 1;
+/// Protocol 2 follows kernel_abi.h version 2 field for field; protocol 1
+/// programs keep working (docs/external-program.md).
+inline constexpr int kExternalProtocolVersion = 2;
+inline constexpr int kOldestExternalProtocolVersion = 1;
 /// The exit status with which `CMD run DIR` declines a problem.
 inline constexpr int kExternalExitUnsupported = 77;
 
 /// Returns: the declaration in `text`, one JSON object with the fields
-///   "protocol" 1, "name", "level" ("core"|"block"), "input_format",
+///   "protocol" 1 or 2, "name", "level" ("core"|"block"), "input_format",
 ///   "output_format" (format names of format.h), "mask_kinds" (array of mask
 ///   kind names of problem.h), "masked_row" ("zeros"|"nan"|"never_called");
 ///   optional "description" (""), "returns_lse" (false), "max_kv_len" (0 = no
 ///   limit), "layouts" (["BHTD"]: the only layout of .npy files);
 ///   int8 input: "q_quant", "k_quant", "v_quant" each {"granularity":
-///   "per_tensor"|"per_head"|"per_token"|"per_channel", "asymmetric": bool}.
+///   "per_tensor"|"per_head"|"per_token"|"per_channel", "asymmetric": bool};
+///   protocol 2 also: "key_dims", "value_dims" (arrays of positive integers),
+///   "head_dim_multiple", "kv_len_multiple", "max_q_len", "max_batch"
+///   (integers ≥ 0), as in kernel_abi.h version 2.
 /// Throws InputError with `origin` as the file and the field as the place
 /// for malformed JSON, a missing, unknown or mistyped field, an unknown name,
 /// and every rule of check_declaration.

@@ -8,7 +8,9 @@
 #pragma once
 
 #include <cstdint>
+#include <optional>
 #include <string>
+#include <vector>
 
 #include "headroom/case.h"
 #include "headroom/format.h"
@@ -37,8 +39,26 @@ struct KernelDeclaration {
   std::uint32_t layouts = 1;              ///< HR_LAYOUT_* bits
   std::int64_t max_kv_len = 0;            ///< 0 = no limit
 
+  // Version 2 (kernel_abi.h): the shapes the kernel accepts. Empty lists,
+  // multiples of 1 and maxima of 0 mean "any".
+  std::vector<std::int64_t> key_dims;     ///< accepted Dk, ascending
+  std::vector<std::int64_t> value_dims;   ///< accepted Dv, ascending
+  std::int64_t head_dim_multiple = 1;     ///< Dk and Dv multiples of this
+  std::int64_t kv_len_multiple = 1;       ///< Tk a multiple of this
+  std::int64_t max_q_len = 0;             ///< 0 = no limit
+  std::int64_t max_batch = 0;             ///< 0 = no limit
+  /// The kernel_abi.h version (plug-ins) or exchange protocol (external
+  /// programs) the kernel was written against; informational.
+  int interface_version = 2;
+
   /// Returns: whether the kernel declares support for mask kind k.
   bool supports(MaskKind k) const;
+  /// Returns: why the kernel does not accept `s` (a head dim outside key_dims /
+  /// value_dims or not a multiple, Tk not a multiple, Tq or batch over the
+  /// maximum, Tk over max_kv_len), as a reason that names the declared limit
+  /// and not the case, so equal reasons count together ("key dim 80 not
+  /// declared (64, 128)"); nothing when it does.
+  std::optional<std::string> shape_unfit(const CoreShape& s) const;
 };
 
 /// Returns: the HR_MASK_* bit of mask kind k (HR_MASK_NONE for none, ...).
@@ -46,19 +66,27 @@ std::uint32_t mask_bit(MaskKind k);
 
 /// Returns: the declaration of `k`, fully checked. `origin` names where it came
 /// from (a library path, "bundled"); errors name it as the file.
+/// Reads a version-1 declaration's fields only (never past run_block) and a
+/// version-2 one's whole.
 /// Throws InputError naming origin, the kernel and the fix for: a null
-/// declaration, an abi_version other than HEADROOM_ABI_VERSION, a null, empty,
+/// declaration, an abi_version outside HEADROOM_ABI_OLDEST_VERSION ..
+/// HEADROOM_ABI_VERSION, a null, empty,
 /// over-long (> 64) or non-[a-z0-9_.-] name, an unknown level, format,
 /// granularity or masked-row value, an int8 output, int8 input at block
 /// level, quantisation schemes on a non-int8 kernel, mask bits outside
 /// HR_MASK_*, no mask kind, layout bits outside HR_LAYOUT_* or none,
 /// returns_lse other than 0/1 or on a block kernel, a negative max_kv_len,
-/// or no run function for its level (or one for the other level).
+/// or no run function for its level (or one for the other level); version 2:
+/// a head-dim list that is unterminated within 64 entries, holds a value < 1
+/// or a duplicate, a negative multiple or maximum, and any version-2 field
+/// this build does not judge yet (8-bit formats, per-block scales, P
+/// quantisation, features, split length, a backward entry) set non-neutral.
 KernelDeclaration declaration_of(const hr_kernel* k, const std::string& origin);
 
 /// Returns: nothing when `d` is consistent; throws InputError naming origin
 /// and the kernel for the format-independent rules listed above (name, int8
-/// output, int8 block, masks, layouts, lse, max_kv_len). declaration_of and
+/// output, int8 block, masks, layouts, lse, max_kv_len, the version-2 shape
+/// limits). declaration_of and
 /// the external-program reader both end with this check.
 void check_declaration(const KernelDeclaration& d, const std::string& origin);
 

@@ -23,6 +23,23 @@
  * and are fenced by canary bytes on both sides.
  *
  * No C++ here, no harness internals: this header stands alone.
+ *
+ * Versions (docs/kernel-abi-v2.md has the design and the rules of evolution):
+ *   1  forward kernels: level, formats (float64, float32, binary16, bfloat16,
+ *      int8 with scales), masks, masked-row convention, log-sum-exp, layouts,
+ *      max_kv_len.
+ *   2  appended, never reordered, so a version-1 plug-in still loads and runs:
+ *      - shapes a kernel accepts: key_dims, value_dims, head_dim_multiple,
+ *        kv_len_multiple, max_q_len, max_batch;
+ *      - 8-bit floats: HR_FORMAT_E4M3, HR_FORMAT_E5M2, HR_QUANT_PER_BLOCK with
+ *        q_block/k_block/v_block, fp8_saturating, p_quant, p_scale;
+ *      - inference variants: features (paged K/V, packed variable lengths,
+ *        split-KV partials, sliding windows, soft-capping, sink logits),
+ *        split_kv_len, and the tail of hr_core_problem that carries them;
+ *      - backward: hr_backward_problem, run_backward, backward_flags.
+ *      Every addition is neutral at zero; headroom gives a kernel only problems
+ *      its declaration covers, and refuses a declaration asking for something
+ *      this build of headroom does not judge yet, naming the field.
  */
 #ifndef HEADROOM_KERNEL_ABI_H
 #define HEADROOM_KERNEL_ABI_H
@@ -33,20 +50,27 @@
 extern "C" {
 #endif
 
-/* Bumped on any change to the structures below. */
-#define HEADROOM_ABI_VERSION 1
+/* Bumped on any change to the structures below. headroom loads every version
+ * from HEADROOM_ABI_OLDEST_VERSION to HEADROOM_ABI_VERSION. */
+#define HEADROOM_ABI_VERSION 2
+#define HEADROOM_ABI_OLDEST_VERSION 1
 
 /* The symbol a plug-in exports. */
 #define HEADROOM_KERNEL_ENTRY "headroom_kernel_entry"
 
 /* Element formats. Storage: float64 `double`, float32 `float`, binary16 and
- * bfloat16 `uint16_t` bit patterns, int8 `int8_t` codes (see hr_quant). */
+ * bfloat16 `uint16_t` bit patterns, int8 `int8_t` codes (see hr_quant), and
+ * (version 2) E4M3 / E5M2 `uint8_t` codes of the OCP 8-bit floating point
+ * formats, whose value is decode(code) * scale, the scales as for int8 with no
+ * zero points. */
 typedef enum hr_format {
   HR_FORMAT_FLOAT64 = 0,
   HR_FORMAT_FLOAT32 = 1,
   HR_FORMAT_BINARY16 = 2,
   HR_FORMAT_BFLOAT16 = 3,
-  HR_FORMAT_INT8 = 4
+  HR_FORMAT_INT8 = 4,
+  HR_FORMAT_E4M3 = 5, /* version 2: bias 7, no infinities, largest finite 448 */
+  HR_FORMAT_E5M2 = 6  /* version 2: bias 15, IEEE-like, largest finite 57344 */
 } hr_format;
 
 /* What the kernel computes: core attention, or the whole multi-head block. */
@@ -70,12 +94,15 @@ typedef enum hr_masked_row {
 
 /* int8 quantisation granularity of one input (see headroom/quant.h). On a
  * [B, H, T, D] tensor: per tensor 1 scale, per head H, per token B*H*T
- * (index (b*H + h)*T + t), per channel H*D (index h*D + d). */
+ * (index (b*H + h)*T + t), per channel H*D (index h*D + d), and (version 2)
+ * per block of blk tokens B*H*ceil(T/blk) (index (b*H + h)*ceil(T/blk) + t/blk),
+ * blk being the kernel's q_block, k_block or v_block. */
 typedef enum hr_granularity {
   HR_QUANT_PER_TENSOR = 0,
   HR_QUANT_PER_HEAD = 1,
   HR_QUANT_PER_TOKEN = 2,
-  HR_QUANT_PER_CHANNEL = 3
+  HR_QUANT_PER_CHANNEL = 3,
+  HR_QUANT_PER_BLOCK = 4 /* version 2 */
 } hr_granularity;
 
 typedef struct hr_quant {
@@ -93,7 +120,7 @@ typedef struct hr_tensor {
   int32_t format;       /* an hr_format */
   int64_t extents[4];
   int64_t strides[4];   /* in elements */
-  const float* scales;  /* int8 only: dequantised value = (code - zero_point) * scale */
+  const float* scales;  /* int8: value = (code - zero_point) * scale; E4M3/E5M2: decode(code) * scale */
   const int32_t* zero_points; /* int8 asymmetric only, one per scale */
 } hr_tensor;
 
@@ -116,6 +143,17 @@ typedef struct hr_mask {
                                  the right entry for every query head h */
 } hr_mask;
 
+/* Version 2: keys and values in pages. Logical key t of sequence b lives in page
+ * block_table[b * max_pages_per_seq + t / page_size], row t % page_size. */
+typedef struct hr_paged_kv {
+  hr_tensor k_pages;            /* [P, page_size, Hkv, Dk] */
+  hr_tensor v_pages;            /* [P, page_size, Hkv, Dv] */
+  const int32_t* block_table;   /* [B, max_pages_per_seq] page indices */
+  const int64_t* seq_lens;      /* [B] keys of each sequence */
+  int64_t page_size;            /* 0 when not paged */
+  int64_t max_pages_per_seq;
+} hr_paged_kv;
+
 /* Core attention: O[b,h,i,:] = softmax_j(scale * Q[b,h,i,:].K[b,g,j,:] + bias) V[b,g,j,:]
  * with g = h / (q_heads / kv_heads). */
 typedef struct hr_core_problem {
@@ -128,7 +166,45 @@ typedef struct hr_core_problem {
   hr_out_tensor o; /* [B, Hq, Tq, Dv], in hr_kernel.output_format */
   float* lse;      /* [B, Hq, Tq] contiguous natural-log log-sum-exp of the scaled
                       scores; non-NULL only when the kernel declares returns_lse */
+
+  /* ---- version 2 (always filled; neutral unless the case uses a feature the
+   * kernel declared in hr_kernel.features) ---- */
+  int64_t window_left, window_right; /* HR_FEATURE_WINDOW: key j visible to query i only
+                                        when i' - window_left <= j <= i' + window_right, i'
+                                        the query aligned as the causal mask aligns it
+                                        (bottom-right: i + Tk - Tq); -1: unbounded */
+  float softcap;                     /* HR_FEATURE_SOFTCAP: c > 0 replaces each scaled score
+                                        z by c * tanh(z / c) before bias and mask; 0: none */
+  const float* sinks;                /* HR_FEATURE_SINKS: [Hq] logits added to each row's
+                                        normaliser with no value row; NULL: none */
+  const int64_t* cu_q_lens;          /* HR_FEATURE_VARLEN: [B + 1] offsets of each sequence's
+                                        rows in the packed q and o (extents [1, H, total, D]);
+                                        q_len is then the largest length; NULL: dense */
+  const int64_t* cu_kv_lens;         /* HR_FEATURE_VARLEN: [B + 1], likewise for k and v */
+  hr_paged_kv paged;                 /* HR_FEATURE_PAGED_KV: k and v data are NULL and the
+                                        keys and values live in pages */
+  hr_out_tensor o_partials;          /* HR_FEATURE_SPLIT_PARTIALS: [S, B*Hq, Tq, Dv], split s
+                                        over keys [s*split_kv_len, (s+1)*split_kv_len);
+                                        data NULL otherwise */
+  float* lse_partials;               /* [S, B, Hq, Tq] contiguous, with o_partials */
+  int64_t num_splits;                /* S; 0 when o_partials is absent */
 } hr_core_problem;
+
+/* Version 2: the backward pass. With S = scale * Q K^T + mask, P = softmax(S),
+ * O = P V and the upstream gradient dO: dV = P^T dO, dP = dO V^T,
+ * D_i = sum_d dO_id O_id, dS = P o (dP - D), dQ = scale * dS K,
+ * dK = scale * dS^T Q; grouped-query dK and dV sum over every query head of
+ * the group; d(bias) = dS. */
+typedef struct hr_backward_problem {
+  hr_core_problem forward;     /* shape, scale, mask, q, k, v and the version-2 fields;
+                                  forward.o and forward.lse are unused (NULL) */
+  hr_tensor o;                 /* [B, Hq, Tq, Dv] the forward output given to the backward */
+  const float* lse;            /* [B, Hq, Tq] contiguous, natural log */
+  hr_tensor d_o;               /* [B, Hq, Tq, Dv] in the input format */
+  hr_out_tensor d_q, d_k, d_v; /* extents of q, k, v; in the output format */
+  float* d_bias;               /* [B, Hm, Tq, Tk] contiguous when the kernel declares
+                                  HR_BACKWARD_BIAS_GRAD and the mask is a bias; else NULL */
+} hr_backward_problem;
 
 /* The multi-head block: Q = X_q W_q + b_q (head h owns columns h*Dk .. h*Dk+Dk-1),
  * K = X_kv W_k + b_k, V = X_kv W_v + b_v, Y = concat_h(O_h) W_o + b_o. */
@@ -150,7 +226,28 @@ typedef struct hr_block_problem {
 #define HR_OK 0
 #define HR_UNSUPPORTED 1 /* the kernel declines this problem; not a fault, but counted */
 
-/* A kernel's declaration of itself. */
+/* Version 2: hr_kernel.features bits, what else a kernel accepts. */
+#define HR_FEATURE_PAGED_KV (1u << 0)       /* hr_core_problem.paged */
+#define HR_FEATURE_VARLEN (1u << 1)         /* cu_q_lens, cu_kv_lens */
+#define HR_FEATURE_SPLIT_PARTIALS (1u << 2) /* writes o_partials and lse_partials */
+#define HR_FEATURE_WINDOW (1u << 3)         /* window_left, window_right */
+#define HR_FEATURE_SOFTCAP (1u << 4)        /* softcap */
+#define HR_FEATURE_SINKS (1u << 5)          /* sinks */
+
+/* Version 2: hr_kernel.p_quant, the format the probabilities are rounded to
+ * before P V (after multiplying by p_scale; divided by it after). */
+#define HR_PQUANT_NONE 0
+#define HR_PQUANT_E4M3 1
+#define HR_PQUANT_E5M2 2
+
+/* Version 2: hr_kernel.backward_flags bits. */
+#define HR_BACKWARD_RECOMPUTES (1u << 0)       /* ignores o and lse and recomputes them */
+#define HR_BACKWARD_NONDETERMINISTIC (1u << 1) /* atomics: judged on spread, not bit equality */
+#define HR_BACKWARD_BIAS_GRAD (1u << 2)        /* writes d_bias */
+
+/* A kernel's declaration of itself. Version 2 fields follow run_block; a
+ * version-1 plug-in's declaration ends at run_block and headroom reads no
+ * further. Every version-2 field is neutral at zero (NULL lists mean any). */
 typedef struct hr_kernel {
   uint32_t abi_version;     /* HEADROOM_ABI_VERSION */
   const char* name;         /* short, unique, [a-z0-9_.-] */
@@ -166,6 +263,29 @@ typedef struct hr_kernel {
   int64_t max_kv_len;       /* longest key sequence accepted; 0 = no limit */
   int32_t (*run_core)(const hr_core_problem* p);   /* level core; else NULL */
   int32_t (*run_block)(const hr_block_problem* p); /* level block; else NULL */
+
+  /* ---- version 2: shapes accepted ---- */
+  const int32_t* key_dims;   /* zero-terminated list of accepted Dk (at most 64); NULL: any */
+  const int32_t* value_dims; /* likewise Dv; NULL: any */
+  int32_t head_dim_multiple; /* Dk and Dv must be multiples of this; 0 or 1: any */
+  int32_t kv_len_multiple;   /* Tk must be a multiple of this; 0 or 1: any */
+  int64_t max_q_len;         /* largest Tq accepted; 0: no limit */
+  int64_t max_batch;         /* largest batch accepted; 0: no limit */
+
+  /* ---- version 2: 8-bit floats ---- */
+  int32_t q_block, k_block, v_block; /* tokens per scale block with HR_QUANT_PER_BLOCK */
+  int32_t fp8_saturating;    /* 1: the kernel's conversions saturate to the largest finite
+                                value; 0: overflow gives NaN (E4M3) or infinity (E5M2) */
+  int32_t p_quant;           /* an HR_PQUANT_* value */
+  float p_scale;             /* P multiplied by this before rounding; 0 means 1 */
+
+  /* ---- version 2: inference variants ---- */
+  uint32_t features;         /* HR_FEATURE_* bits */
+  int64_t split_kv_len;      /* HR_FEATURE_SPLIT_PARTIALS: keys per split */
+
+  /* ---- version 2: backward ---- */
+  int32_t (*run_backward)(const hr_backward_problem* p); /* NULL: forward only */
+  uint32_t backward_flags;   /* HR_BACKWARD_* bits */
 } hr_kernel;
 
 /* The type of the exported entry point. */
