@@ -61,6 +61,29 @@ TEST(GenerateSuites, DeterministicUniqueAndCovering) {
   EXPECT_EQ(input_error_place([] { suite_requests("huge"); }), "--suite");
 }
 
+TEST(GenerateSuites, EverySuiteHasBlocksAModuleWithOneHeadDimCanTake) {
+  // torch.nn.MultiheadAttention takes only Hkv = Hq, Dk = Dv and Dm = Hq·Dk;
+  // each suite must give such a kernel several block cases, the base model of
+  // Vaswani et al. 2017 (512 / 8 / 64) among them, with a mask in some.
+  for (const SuiteInfo& info : kSuites) {
+    SCOPED_TRACE(std::string(info.name));
+    int full_head = 0, masked = 0;
+    bool base_model = false;
+    for (const CaseRequest& r : suite_requests(info.name)) {
+      const Case c = make_case(r);
+      if (c.level != Level::block) continue;
+      const BlockShape& s = c.block.shape;
+      if (s.kv_heads != s.q_heads || s.key_dim != s.value_dim || s.model_dim != s.q_heads * s.key_dim) continue;
+      ++full_head;
+      masked += c.block.mask.kind != MaskKind::none;
+      base_model |= s.model_dim == 512 && s.q_heads == 8 && s.key_dim == 64;
+    }
+    EXPECT_GE(full_head, 3);
+    EXPECT_GE(masked, 2);
+    EXPECT_TRUE(base_model);
+  }
+}
+
 TEST(GenerateSuites, QuickStaysSmall) {
   // The work of an exact reference grows with B·Hq·Tq·Tk·(Dk + Dv); the quick
   // suite must run in seconds, so most cases keep Tk ≤ 32 and all ≤ 129.

@@ -56,6 +56,19 @@ void ragged_causal(Builder& b, std::uint64_t base, int seeds) {
     }
 }
 
+// Blocks that a module with one head dim for Q, K and V and no shared key/value
+// heads can take (Hkv = Hq, Dk = Dv, Dm = Hq·Dk: torch.nn.MultiheadAttention's
+// constraints), led by the base model of Vaswani et al. 2017 (Table 3: d_model
+// 512, h 8, d_k = d_v 64). Model dim defaults to Hq·Dk (generate.h).
+void full_head_blocks(Builder& b, std::uint64_t base, int seeds) {
+  for (int s = 0; s < seeds; ++s) {
+    const std::uint64_t seed = base + 10 * static_cast<std::uint64_t>(s);
+    b.add("block_gaussian", seed, 20, shape(1, 8, 8, 16 + s, 16, 64, 64));
+    b.add("block_gaussian", seed + 1, 20, shape(2, 2, 2, 6, 9, 4, 4), MaskKind::key_padding);
+    b.add("block_gaussian", seed + 2, 20, shape(1, 4, 4, 7, 5, 8, 8), MaskKind::causal_bottom_right);
+  }
+}
+
 std::vector<CaseRequest> quick() {
   Builder b;
   every_family(b, 1, 2, {20});
@@ -68,6 +81,7 @@ std::vector<CaseRequest> quick() {
     b.add("tile_edges", 401, 100, shape(1, 1, 1, tk < 100 ? 17 : 15, tk, 17, 15));
   b.add("long_sequence", 501, 0);
   b.add("block_gaussian", 601, 20, shape(1, 4, 2, 8, 8, 8, 8));
+  full_head_blocks(b, 901, 1);
   return b.take();
 }
 
@@ -89,6 +103,7 @@ std::vector<CaseRequest> standard() {
     b.add("block_gaussian", 611 + s, 30, shape(2, 2, 1, 10, 10, 6, 5), std::nullopt, 17);
   }
   for (const FamilyInfo& f : kFamilies) b.add(f.name, 701, 30, std::nullopt, MaskKind::causal_bottom_right);
+  full_head_blocks(b, 901, 4);
   return b.take();
 }
 
@@ -111,6 +126,7 @@ std::vector<CaseRequest> deep() {
   }
   for (const FamilyInfo& f : kFamilies)
     for (MaskKind m : kAllMasks) b.add(f.name, 801, 30, std::nullopt, m);
+  full_head_blocks(b, 901, 8);
   return b.take();
 }
 
