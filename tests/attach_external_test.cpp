@@ -420,5 +420,29 @@ TEST(AttachProgramDeclaration, RefusesWhatItCannotTrust) {
   EXPECT_EQ(declaration_from_json("{" + good + "}", "ok").name, "k");
 }
 
+// What a SIGKILLed headroom leaves is removed by the next one; what a running
+// process (or another naming) holds is not touched.
+TEST(ExchangeFolders, AbandonedExchangeFoldersAreSwept) {
+  testing::PrivateTempDir tmp;
+  const fs::path t = fs::temp_directory_path();
+  const pid_t child = fork();
+  ASSERT_GE(child, 0);
+  if (child == 0) _exit(0);
+  ASSERT_EQ(waitpid(child, nullptr, 0), child);  // now a pid no process has
+  const fs::path dead = t / ("headroom-run-" + std::to_string(child) + "-abcdef");
+  const fs::path live = t / ("headroom-run-" + std::to_string(getppid()) + "-abcdef");
+  const fs::path old_form = t / "headroom-run-abcdef";
+  const fs::path elsewhere = t / "elsewhere";
+  for (const auto& d : {dead / "sub", live, old_form, elsewhere}) fs::create_directories(d);
+  std::ofstream(dead / "o.npy") << "x";
+  std::ofstream(elsewhere / "keep") << "x";
+  fs::create_directory_symlink(elsewhere, t / ("headroom-run-" + std::to_string(child) + "-link"));
+  EXPECT_EQ(sweep_abandoned_exchange_folders(t), 1);
+  EXPECT_FALSE(fs::exists(dead));
+  EXPECT_TRUE(fs::exists(live));
+  EXPECT_TRUE(fs::exists(old_form));
+  EXPECT_TRUE(fs::exists(elsewhere / "keep")) << "a link named like a folder was followed";
+}
+
 }  // namespace
 }  // namespace headroom

@@ -88,7 +88,8 @@ TEST(Cli, KilledRunResumesToTheUninterruptedRecord) {
 
 TEST(Cli, CtrlCOrSigtermTakesTheRunningExternalProgramDown) {
   // The program runs in a process group of its own, so neither a terminal's
-  // Ctrl-C nor a SIGTERM to headroom reaches it; headroom must end it itself.
+  // Ctrl-C nor a SIGTERM to headroom reaches it; headroom must end it itself,
+  // and remove the folder it exchanges files through.
   const auto dir = fresh_dir("signals");
   std::ofstream(dir / "prog.sh") << R"(#!/bin/sh
 here=$(dirname "$0")
@@ -101,12 +102,16 @@ echo $$ > "$here/program.pid.tmp" && mv "$here/program.pid.tmp" "$here/program.p
 exec sleep 120
 )";
   fs::permissions(dir / "prog.sh", fs::perms::owner_all);
-  for (const int sig : {SIGINT, SIGTERM}) {
+  const fs::path tmp = dir / "tmp";  // the exchange folders of this test's headroom only
+  for (const int sig : {SIGINT, SIGTERM, SIGHUP}) {
     fs::remove(dir / "program.pid");
+    fs::remove_all(tmp);
+    fs::create_directories(tmp);
     const pid_t headroom_pid = fork();
     ASSERT_GE(headroom_pid, 0);
     if (headroom_pid == 0) {
-      const std::string cmd = "exec " + kTool + " qualify --suite quick --time-limit 300 --kernel-cmd " +
+      const std::string cmd = "TMPDIR=" + tmp.string() + " exec " + kTool +
+                              " qualify --suite quick --time-limit 300 --kernel-cmd " +
                               (dir / "prog.sh").string() + " --json " + (dir / "out.json").string() +
                               " >/dev/null 2>&1";
       ::execl("/bin/sh", "sh", "-c", cmd.c_str(), static_cast<char*>(nullptr));
@@ -123,6 +128,8 @@ exec sleep 120
     ASSERT_GT(program, 0) << "the program never ran";
     EXPECT_TRUE(WIFSIGNALED(status) && WTERMSIG(status) == sig) << "headroom should end of signal " << sig;
     EXPECT_TRUE(testing::ends_within(program, 5.0)) << "the program outlived headroom after signal " << sig;
+    EXPECT_TRUE(fs::is_empty(tmp)) << "an exchange folder outlived headroom after signal " << sig << ": "
+                                   << fs::directory_iterator(tmp)->path();
     if (!testing::ends_within(program, 0.0)) ::kill(program, SIGKILL);  // a failing run leaves nothing either
   }
 }

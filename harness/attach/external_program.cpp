@@ -1,8 +1,6 @@
 // headroom — running a kernel that is an external program, through .npy files (external_program.h).
 #include "headroom/external_program.h"
 
-#include <stdlib.h>
-
 #include <cerrno>
 #include <cmath>
 #include <cstdio>
@@ -12,6 +10,7 @@
 
 #include <nlohmann/json.hpp>
 
+#include "attach/exchange_folder.h"
 #include "attach/packing.h"
 #include "attach/process.h"
 #include "headroom/input_error.h"
@@ -22,29 +21,6 @@ namespace {
 
 namespace fs = std::filesystem;
 using nlohmann::json;
-
-// The exchange folder: made with mkdtemp (mode 0700), removed whatever happens.
-class ExchangeDir {
- public:
-  ExchangeDir() {
-    std::string pattern = (fs::temp_directory_path() / "headroom-run-XXXXXX").string();
-    if (mkdtemp(pattern.data()) == nullptr) {
-      throw std::runtime_error("cannot create an exchange folder under " + fs::temp_directory_path().string() + ": " +
-                               std::strerror(errno));
-    }
-    path_ = pattern;
-  }
-  ExchangeDir(const ExchangeDir&) = delete;
-  ExchangeDir& operator=(const ExchangeDir&) = delete;
-  ~ExchangeDir() {
-    std::error_code ec;
-    fs::remove_all(path_, ec);
-  }
-  const fs::path& path() const { return path_; }
-
- private:
-  fs::path path_;
-};
 
 // Plain writes, not write_npy's flushed atomic rename: the folder is private,
 // short-lived and read only after this process has closed every file, so
@@ -144,7 +120,7 @@ class ProgramKernel final : public AttachedKernel {
 
   KernelRun run(const ReceivedCase& c, const RunOptions& opt) override {
     attach_detail::check_received(c, declaration_);
-    ExchangeDir dir;
+    attach_detail::ExchangeFolder dir;
     write_exchange(dir.path(), c, declaration_);
     const std::string line = command_ + " run " + attach_detail::shell_quote(dir.path().string());
     // No address-space limit here: GPU runtimes and sanitizer builds reserve

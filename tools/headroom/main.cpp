@@ -42,9 +42,11 @@ namespace {
 
 // Ctrl-C, SIGTERM or a closed terminal ends headroom as it would anyway
 // (finished cases are already in the journal), but first takes down a running
-// external kernel program, which sits in a process group of its own.
+// external kernel program, which sits in a process group of its own, and
+// removes the folder it exchanges its files through.
 extern "C" void on_ending_signal(int sig) {
   headroom::kill_running_programs();
+  headroom::remove_exchange_folders();
   raise(sig);  // SA_RESETHAND: the default action, once this handler returns
 }
 

@@ -74,4 +74,16 @@ KernelRun read_exchange(const std::filesystem::path& dir, const ReceivedCase& c,
 /// does not reach them. (A SIGKILLed headroom cannot call it; see docs/reliability.md.)
 void kill_running_programs() noexcept;
 
+/// Removes the exchange folder of every external-program call now in progress
+/// (files and folders in it included; links removed, never followed).
+/// Async-signal-safe, for the same handler, after kill_running_programs().
+void remove_exchange_folders() noexcept;
+
+/// Removes, from `temp_dir`, every "headroom-run-<pid>-*" folder owned by this
+/// user whose <pid> is not a running process: what a SIGKILLed headroom left.
+/// The first exchange folder a process makes calls it on the temporary
+/// directory. Returns: how many it removed. Folders of running processes, of
+/// other users, links and names of another form are left alone.
+int sweep_abandoned_exchange_folders(const std::filesystem::path& temp_dir);
+
 }  // namespace headroom
