@@ -14,6 +14,7 @@
 
 #include "headroom/compare.h"
 #include "headroom/families.h"
+#include "headroom/html_report.h"
 #include "headroom/input_error.h"
 #include "headroom/junit_report.h"
 #include "headroom/markdown_report.h"
@@ -363,6 +364,48 @@ std::string parse_junit(const fs::path& xml) {
   const std::string cmd = "/usr/bin/python3 " + script.string() + " " + xml.string() + " > " + out.string() + " 2>&1";
   const int rc = std::system(cmd.c_str());
   return rc == 0 ? read_file(out) : "";
+}
+
+// A block kernel that declined 15 block cases and could not take 4 more ran 2
+// of 21: every face must say so rather than print a plain "pass".
+TEST(ThinCoverage, EveryFaceAndTheJsonSayHowFewCasesOfALevelTheKernelTook) {
+  std::vector<CaseRecord> cases;
+  for (int i = 0; i < 17; ++i) {
+    CaseRecord c = make_case("block_gaussian-s" + std::to_string(900 + i), "block_gaussian", 0.5, 1);
+    c.level = "block";
+    c.shape = "1,8,8,512,8,8,64,64";
+    if (i >= 2) {
+      c.faults["unsupported"] = 1;  // what judge.cpp records for a declined case
+      c.figures = CaseFigures{};
+    }
+    cases.push_back(c);
+  }
+  RunRecord r = make_record(cases);
+  for (int i = 0; i < 4; ++i) r.skipped.push_back("block_gaussian-s" + std::to_string(950 + i) + "-z20: mask dense");
+  r.skipped.push_back("gaussian-s1-z20-1x2x2x8x8x16x16-none: the kernel is block-level");  // another level: not counted
+  ASSERT_EQ(r.verdict(), "pass");
+  const std::string line = "pass on 2 of 21 block cases";
+  EXPECT_EQ(r.verdict_line(), line);
+  const nlohmann::json j = to_json(r);
+  EXPECT_EQ(j.at("verdict"), "pass");  // the machine field keeps its two values
+  EXPECT_EQ(j.at("verdict_line"), line);
+  ASSERT_EQ(j.at("levels").size(), 1u);
+  EXPECT_EQ(j.at("levels")[0].at("taken"), 2);
+  EXPECT_EQ(j.at("levels")[0].at("of"), 21);
+  EXPECT_NE(terminal_summary(r, false).find(": " + line + "\n"), std::string::npos) << terminal_summary(r, false);
+  EXPECT_NE(markdown_report(r).find("— PASS on 2 of 21 block cases\n"), std::string::npos);
+  EXPECT_NE(markdown_report(r).find("took 2 of the 21 block-level cases"), std::string::npos);
+  EXPECT_NE(html_report(r).find("PASS</span> on 2 of 21 block cases</h1>"), std::string::npos);
+  EXPECT_NE(junit_report(r).find("name=\"verdict_line\" value=\"" + line + "\""), std::string::npos);
+
+  // Half taken is not thin; a level with no case run (all skipped) is another kernel's.
+  for (int i = 2; i < 9; ++i) r.cases[static_cast<std::size_t>(i)].faults.clear();
+  r.skipped.resize(1);
+  r.skipped[0] = "block_gaussian-s990: mask dense";
+  EXPECT_EQ(r.level_takes()[0].taken, 9u);
+  EXPECT_EQ(r.level_takes()[0].of, 18u);
+  EXPECT_EQ(r.verdict_line(), "pass");
+  EXPECT_EQ(to_json(r).at("verdict_line"), "pass");
 }
 
 TEST(JUnit, IsWellFormedWithOneTestcasePerFamilyAndFormatAndFailuresWithReplays) {

@@ -7,6 +7,7 @@
 #include <sstream>
 
 #include "headroom/atomic_file.h"
+#include "headroom/families.h"
 #include "headroom/input_error.h"
 
 namespace headroom {
@@ -171,6 +172,51 @@ std::string RunRecord::verdict() const {
   return "pass";
 }
 
+std::vector<LevelTake> RunRecord::level_takes() const {
+  std::vector<LevelTake> takes{{"core"}, {"block"}};
+  std::vector<bool> ran(takes.size(), false);
+  auto at = [&](const std::string& level) -> std::ptrdiff_t {
+    for (std::size_t i = 0; i < takes.size(); ++i)
+      if (takes[i].level == level) return static_cast<std::ptrdiff_t>(i);
+    return -1;
+  };
+  for (const CaseRecord& c : cases) {
+    const std::ptrdiff_t i = at(c.level);
+    if (i < 0) continue;
+    ran[static_cast<std::size_t>(i)] = true;
+    ++takes[static_cast<std::size_t>(i)].of;
+    if (c.faults.count("unsupported") == 0) ++takes[static_cast<std::size_t>(i)].taken;
+  }
+  for (const std::string& line : skipped) {
+    // Case names begin with their family (generate.h); the longest family that prefixes the name wins.
+    std::size_t best = 0;
+    std::ptrdiff_t level = -1;
+    for (const FamilyInfo& f : kFamilies) {
+      const std::string_view n = f.name;
+      if (n.size() > best && line.compare(0, n.size(), n) == 0 && line.size() > n.size() &&
+          (line[n.size()] == '-' || line[n.size()] == ':')) {
+        best = n.size();
+        level = at(f.level == Level::core ? "core" : "block");
+      }
+    }
+    if (level >= 0) ++takes[static_cast<std::size_t>(level)].of;
+  }
+  std::vector<LevelTake> out;
+  for (std::size_t i = 0; i < takes.size(); ++i)
+    if (ran[i]) out.push_back(takes[i]);
+  return out;
+}
+
+std::string RunRecord::verdict_line() const {
+  std::string line = verdict(), sep = " on ";
+  for (const LevelTake& t : level_takes()) {
+    if (!t.thin()) continue;
+    line += sep + std::to_string(t.taken) + " of " + std::to_string(t.of) + " " + t.level + " cases";
+    sep = " and ";
+  }
+  return line;
+}
+
 std::map<std::string, int> RunRecord::fault_totals() const {
   std::map<std::string, int> totals;
   for (const auto& c : cases)
@@ -200,6 +246,9 @@ json to_json(const CaseRecord& c) {
 }
 
 json to_json(const RunRecord& r) {
+  json levels = json::array();
+  for (const LevelTake& t : r.level_takes())
+    levels.push_back({{"level", t.level}, {"taken", t.taken}, {"of", t.of}, {"thin", t.thin()}});
   json cases = json::array();
   for (const auto& c : r.cases) cases.push_back(to_json(c));
   return {{"schema", r.schema},
@@ -213,6 +262,8 @@ json to_json(const RunRecord& r) {
           {"budget", r.budget},
           {"shard", r.shard},
           {"verdict", r.verdict()},
+          {"verdict_line", r.verdict_line()},
+          {"levels", levels},
           {"faults", r.fault_totals()},
           {"tolerated_faults", r.tolerated_faults},
           {"cases", cases},

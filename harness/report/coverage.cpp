@@ -74,6 +74,11 @@ void add_cautions(const RunRecord& r, Coverage& cov) {
                               "cover {}.",
                               cov.skipped == 1 ? "1 case" : fmt::format("{} cases", cov.skipped),
                               cov.skipped == 1 ? "was" : "were", cov.skipped == 1 ? "it" : "them"));
+  for (const LevelTake& t : r.level_takes())
+    if (t.thin())
+      say.push_back(fmt::format("The kernel took {} of the {} {}-level cases (it declined or could not take the rest): "
+                                "the verdict covers only those, as the verdict line says.",
+                                t.taken, t.of, t.level));
   if (cov.unparsed_shapes > 0)
     say.push_back(fmt::format("{} case(s) carry a shape that does not parse: their extents are not counted above.",
                               cov.unparsed_shapes));

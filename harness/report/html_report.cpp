@@ -131,8 +131,8 @@ std::string html_report(const RunRecord& r) {
   o += "<meta name=\"viewport\" content=\"width=device-width, initial-scale=1\">\n";
   o += fmt::format("<title>headroom review: {} — {}</title>\n<style>{}</style>\n</head>\n<body>\n", h(r.kernel),
                    pass ? "PASS" : "FAIL", kStyle);
-  o += fmt::format("<h1>headroom review: {} — <span class=\"verdict-{}\">{}</span></h1>\n", h(r.kernel),
-                   pass ? "pass" : "fail", pass ? "PASS" : "FAIL");
+  o += fmt::format("<h1>headroom review: {} — <span class=\"verdict-{}\">{}</span>{}</h1>\n", h(r.kernel),
+                   pass ? "pass" : "fail", pass ? "PASS" : "FAIL", h(r.verdict_line().substr(r.verdict().size())));
   o += "<table>\n";
   for (const auto& f : report_detail::run_facts(r)) o += table_row({"<b>" + h(f.label) + "</b>", h(f.text)}, "td");
   o += "</table>\n";

@@ -75,7 +75,7 @@ std::string junit_report(const RunRecord& r) {
   const std::pair<std::string, std::string> props[] = {
       {"kernel", r.kernel}, {"input_format", r.input_format}, {"output_format", r.output_format},
       {"suite", r.suite},   {"shard", r.shard},               {"budget", r.budget},
-      {"verdict", r.verdict()}, {"tool", r.tool}};
+      {"verdict", r.verdict()}, {"verdict_line", r.verdict_line()}, {"tool", r.tool}};
   for (const auto& [name, value] : props)
     x += fmt::format("      <property name=\"{}\" value=\"{}\"/>\n", name, xml_escape(value));
   x += "    </properties>\n";

@@ -91,7 +91,7 @@ std::vector<Line> run_facts(const RunRecord& r) {
                         {"Shard", r.shard},
                         {"Budget", r.budget},
                         {"Cases", fmt::format("{} run, {} failing, {} skipped", r.cases.size(), failing, r.skipped.size())},
-                        {"Verdict", r.verdict()},
+                        {"Verdict", r.verdict_line()},
                         {"Written by", r.tool + (r.command.empty() ? "" : " " + r.command)}};
   return out;
 }

@@ -58,7 +58,7 @@ std::string terminal_summary(const RunRecord& r, bool colour) {
   const char* verdict_colour = verdict == "pass" ? kGreen : kRed;
   std::string out = fmt::format("{} {} ({} → {}), suite {}, shard {}, budget {}: {}\n", paint("headroom", kBold, colour),
                                 r.kernel, r.input_format, r.output_format, r.suite, r.shard, r.budget,
-                                paint(verdict, verdict_colour, colour));
+                                paint(verdict, verdict_colour, colour) + r.verdict_line().substr(verdict.size()));
 
   const std::vector<std::string> header{"family", "format", "cases", "worst ulp", "worst scaled", "worst rmse",
                                         "faults", "verdict"};

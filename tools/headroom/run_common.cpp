@@ -99,7 +99,7 @@ int finish_run(RunRecord& record, const RunFlags& f, const RunSetup& setup) {
   write_reports(record, ReportOptions{f.markdown, f.html, f.junit});
   const std::string verdict = record.verdict();
   if (f.quiet) {
-    std::cout << "verdict: " << verdict << " (evidence over the cases tried, not a proof)\n";
+    std::cout << "verdict: " << record.verdict_line() << " (evidence over the cases tried, not a proof)\n";
   } else {
     std::cout.flush();
     print_summary(stdout, record);

@@ -70,6 +70,17 @@ struct CaseRecord {
   CaseLimits limits;                      ///< JSON "limits"; optional on read (absent: all NaN)
 };
 
+/// How many of a level's cases a kernel took: `of` = the cases of that level
+/// the run held (run, declined as unsupported, or skipped as unfit); `taken` =
+/// those it ran without declining.
+struct LevelTake {
+  std::string level;  ///< "core" | "block"
+  std::size_t taken = 0, of = 0;
+  /// Returns: true when the kernel declined or could not take most of them
+  /// (taken < of / 2): a pass there is thin evidence and says so.
+  bool thin() const { return 2 * taken < of; }
+};
+
 struct RunRecord {
   int schema = kRecordSchema;
   std::string tool = "headroom 0.1.0";
@@ -86,6 +97,14 @@ struct RunRecord {
 
   /// Returns: "pass" when every case is within budget, else "fail".
   std::string verdict() const;
+  /// Returns: per level with at least one case run (declined included), in
+  /// the order core, block, how many of its cases the kernel took. A skipped
+  /// case's level is its family's (families.h, by the case name's prefix).
+  std::vector<LevelTake> level_takes() const;
+  /// Returns: verdict(), followed for each thin level by how much the
+  /// kernel took, e.g. "pass on 2 of 21 block cases" (every report face and
+  /// the JSON "verdict_line" show this, so thin coverage is never a plain pass).
+  std::string verdict_line() const;
   /// Returns: fault counts summed over all cases, by class name.
   std::map<std::string, int> fault_totals() const;
 };
