@@ -20,7 +20,7 @@ const std::set<std::string> kFields = {"protocol",  "name",       "description",
                                        "masked_row", "returns_lse", "max_kv_len", "layouts"};
 // Protocol 2 (kernel_abi.h version 2): the shapes a kernel accepts.
 const std::set<std::string> kFieldsV2 = {"key_dims", "value_dims", "head_dim_multiple", "kv_len_multiple",
-                                         "max_q_len", "max_batch"};
+                                         "max_q_len", "max_batch", "serve"};
 
 std::string place(const std::string& field) { return "describe output, field \"" + field + "\""; }
 
@@ -101,7 +101,7 @@ constexpr MaskKind kMaskKinds[] = {MaskKind::none,        MaskKind::causal_top_l
 
 }  // namespace
 
-KernelDeclaration declaration_from_json(const std::string& text, const std::string& origin) {
+KernelDeclaration declaration_from_json(const std::string& text, const std::string& origin, int* serve) {
   json j;
   try {
     j = json::parse(text);
@@ -129,6 +129,15 @@ KernelDeclaration declaration_from_json(const std::string& text, const std::stri
     if (kFields.count(it.key()) == 0 && kFieldsV2.count(it.key()) == 0) {
       refuse(origin, it.key(), "unknown field", "remove it or correct its spelling (see docs/external-program.md)");
     }
+  }
+  if (serve != nullptr) *serve = 0;
+  if (auto it = j.find("serve"); it != j.end()) {
+    // The persistent mode's own version (docs/external-program.md, "Persistent mode"); 0 = one-shot.
+    if (!it->is_number_integer() || (it->get<long long>() != 0 && it->get<long long>() != kServeProtocolVersion))
+      refuse(origin, "serve", "expected 0 (one-shot) or " + std::to_string(kServeProtocolVersion) +
+                                  " (persistent mode, the version this headroom speaks), found " + it->dump(),
+             "declare \"serve\": " + std::to_string(kServeProtocolVersion) + " or leave it out");
+    if (serve != nullptr) *serve = static_cast<int>(it->get<long long>());
   }
   KernelDeclaration d;
   d.interface_version = version;

@@ -13,6 +13,7 @@
 #include "attach/exchange_folder.h"
 #include "attach/packing.h"
 #include "attach/process.h"
+#include "attach/served_program.h"
 #include "headroom/input_error.h"
 #include "headroom/npy.h"
 
@@ -251,7 +252,9 @@ std::unique_ptr<AttachedKernel> attach_program(const std::string& command, doubl
   if (p.out_truncated) {
     throw InputError(origin, "describe", "printed more than 1 MiB", "print only the declaration on stdout");
   }
-  KernelDeclaration d = declaration_from_json(p.out, origin);
+  int serve = 0;
+  KernelDeclaration d = declaration_from_json(p.out, origin, &serve);
+  if (serve != 0) return attach_detail::attach_served_program(command, std::move(d));
   return std::make_unique<ProgramKernel>(command, std::move(d));
 }
 

@@ -22,10 +22,6 @@
 namespace headroom::attach_detail {
 namespace {
 
-// glibc 2.36's <sys/pidfd.h> lacks C++ linkage guards, so call the system
-// call directly (Linux ≥ 5.3; −1 elsewhere, and the callers fall back to polling).
-int open_pidfd(pid_t pid) { return static_cast<int>(syscall(SYS_pidfd_open, pid, 0)); }
-
 constexpr std::size_t kErrTail = 2000;
 // After the leader ends, how long a straggler holding its pipes may keep them.
 constexpr double kDrainGrace_s = 0.2;
@@ -40,6 +36,12 @@ constexpr int kListedGroups = 16;
 std::atomic<pid_t> g_running_groups[kListedGroups];
 static_assert(std::atomic<pid_t>::is_always_lock_free);
 
+}  // namespace
+
+// glibc 2.36's <sys/pidfd.h> lacks C++ linkage guards, so call the system
+// call directly (Linux ≥ 5.3; −1 elsewhere, and the callers fall back to polling).
+int open_pidfd(pid_t pid) { return static_cast<int>(syscall(SYS_pidfd_open, pid, 0)); }
+
 int list_group(pid_t group) {
   for (int i = 0; i < kListedGroups; ++i) {
     pid_t empty = 0;
@@ -48,13 +50,17 @@ int list_group(pid_t group) {
   return -1;
 }
 
-[[noreturn]] void exec_child(const char* line, int devnull, int out_w, int err_w, std::uint64_t as_limit) {
+void unlist_group(int slot) {
+  if (slot >= 0 && slot < kListedGroups) g_running_groups[slot].store(0);
+}
+
+[[noreturn]] void exec_child(const char* line, int in, int out_w, int err_w, std::uint64_t as_limit) {
   setpgid(0, 0);
   sigset_t none;
   sigemptyset(&none);
   sigprocmask(SIG_SETMASK, &none, nullptr);
   signal(SIGPIPE, SIG_DFL);
-  dup2(devnull, 0);
+  dup2(in, 0);
   dup2(out_w, 1);
   dup2(err_w, 2);
   close_range(3, ~0u, 0);
@@ -67,6 +73,8 @@ int list_group(pid_t group) {
   execl("/bin/sh", "sh", "-c", line, static_cast<char*>(nullptr));
   _exit(127);
 }
+
+namespace {
 
 // Returns: false when the descriptor reached end of file (or failed).
 bool drain(int fd, std::string& into, std::size_t cap, bool keep_tail, bool& truncated) {
@@ -175,7 +183,7 @@ ProcessResult run_shell(const std::string& line, double time_limit_s, std::uint6
   }
   // The leader is not reaped yet, so its group id cannot have been reused.
   kill(-pid, SIGKILL);
-  if (listed >= 0) g_running_groups[listed].store(0);
+  unlist_group(listed);
   int status = 0;
   while (waitpid(pid, &status, 0) < 0 && errno == EINTR) {
   }

@@ -12,6 +12,8 @@
 #include <cstdint>
 #include <string>
 
+#include <sys/types.h>
+
 namespace headroom::attach_detail {
 
 struct ProcessResult {
@@ -31,6 +33,21 @@ struct ProcessResult {
 /// memory_limit_bytes 0: no RLIMIT_AS.
 ProcessResult run_shell(const std::string& line, double time_limit_s, std::uint64_t memory_limit_bytes,
                         std::size_t max_out = std::size_t{1} << 20);
+
+/// In a freshly forked child: makes it a process group leader, clears the
+/// signal mask, points descriptors 0, 1, 2 at `in`, `out_w`, `err_w`, closes
+/// every other one, disables core dumps, sets RLIMIT_AS when as_limit ≠ 0 and
+/// execs `/bin/sh -c line` (exit 127 when that fails). Async-signal-safe.
+[[noreturn]] void exec_child(const char* line, int in, int out_w, int err_w, std::uint64_t as_limit);
+
+/// Returns: a pidfd for `pid` (Linux ≥ 5.3), or −1 (callers then poll waitid).
+int open_pidfd(pid_t pid);
+
+/// Lists process group `group` for kill_running_programs() (external_program.h).
+/// Returns: the slot to pass to unlist_group, or −1 when every slot is taken.
+/// Unlist before reaping the leader, whose id could then be reused.
+int list_group(pid_t group);
+void unlist_group(int slot);
 
 /// Returns: `s` quoted for /bin/sh (single quotes; a ' inside becomes '\'').
 std::string shell_quote(const std::string& s);

@@ -72,15 +72,34 @@ int run(const fs::path& dir) {
   return 0;
 }
 
+// Persistent mode (docs/external-program.md): one ready line, then one reply per request line.
+int serve() {
+  std::cout << "{\"serve\": " << headroom::kServeProtocolVersion << "}" << std::endl;
+  std::string line;
+  while (std::getline(std::cin, line)) {
+    const nlohmann::json request = nlohmann::json::parse(line);
+    const int rc = run(request.at("run").get<std::string>());
+    const char* status = rc == 0 ? "ok" : rc == headroom::kExternalExitUnsupported ? "unsupported" : "error";
+    std::cout << nlohmann::json{{"call", request.at("call")}, {"status", status}}.dump() << std::endl;
+  }
+  return 0;
+}
+
 }  // namespace
 
+// protocol_driver [--serve] describe | run DIR | serve
 int main(int argc, char** argv) {
+  const bool serving = argc >= 2 && std::strcmp(argv[1], "--serve") == 0;
+  if (serving) --argc, ++argv;
   if (argc == 2 && std::strcmp(argv[1], "describe") == 0) {
-    std::cout << headroom::declaration_to_json(headroom::declaration_of(headroom_kernel_entry(), "protocol_driver"))
-              << '\n';
+    nlohmann::json d = nlohmann::json::parse(
+        headroom::declaration_to_json(headroom::declaration_of(headroom_kernel_entry(), "protocol_driver")));
+    if (serving) d["serve"] = headroom::kServeProtocolVersion;
+    std::cout << d.dump(2) << '\n';
     return 0;
   }
   if (argc == 3 && std::strcmp(argv[1], "run") == 0) return run(argv[2]);
-  std::cerr << "usage: protocol_driver describe | run DIR\n";
+  if (argc == 2 && std::strcmp(argv[1], "serve") == 0) return serve();
+  std::cerr << "usage: protocol_driver [--serve] describe | run DIR | serve\n";
   return 2;
 }

@@ -37,6 +37,9 @@ namespace headroom {
 /// programs keep working (docs/external-program.md).
 inline constexpr int kExternalProtocolVersion = 2;
 inline constexpr int kOldestExternalProtocolVersion = 1;
+/// The version of persistent mode ("serve" in describe's JSON, and the
+/// program's ready line): `CMD serve` answers many calls over stdin/stdout.
+inline constexpr int kServeProtocolVersion = 1;
 /// The exit status with which `CMD run DIR` declines a problem.
 inline constexpr int kExternalExitUnsupported = 77;
 
@@ -53,8 +56,10 @@ inline constexpr int kExternalExitUnsupported = 77;
 ///   (integers ≥ 0), as in kernel_abi.h version 2.
 /// Throws InputError with `origin` as the file and the field as the place
 /// for malformed JSON, a missing, unknown or mistyped field, an unknown name,
-/// and every rule of check_declaration.
-KernelDeclaration declaration_from_json(const std::string& text, const std::string& origin);
+/// and every rule of check_declaration. Protocol 2 may add "serve": 0 or
+/// kServeProtocolVersion (persistent mode); it is stored in `*serve` when
+/// given (0 when absent), since it says how to run the program, not what the kernel is.
+KernelDeclaration declaration_from_json(const std::string& text, const std::string& origin, int* serve = nullptr);
 
 /// Returns: `d` as `CMD describe` would print it (declaration_from_json reads
 /// it back to an equal declaration).
