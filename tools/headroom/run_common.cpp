@@ -16,7 +16,7 @@ namespace headroom::cli {
 
 void add_run_flags(CLI::App* cmd, RunFlags& f) {
   cmd->add_option("--kernel", f.kernel, "bundled kernel name (see `headroom kernels`) or path to a plug-in .so");
-  cmd->add_option("--kernel-cmd", f.kernel_cmd, "external kernel program, e.g. 'python3 my_kernel.py'");
+  cmd->add_option("--kernel-cmd", f.kernel_cmd, "external kernel program, e.g. '/usr/bin/python3 my_kernel.py'");
   cmd->add_option("--budget", f.budget, "budget file (TOML; docs/budget-format.md); default: built-in budgets");
   cmd->add_option("--json", f.json, "write the result record (docs/result-schema.md) here");
   cmd->add_option("--markdown", f.markdown, "write a review report in Markdown here");

@@ -1,0 +1,146 @@
+"""headroom_kernel.kernel: the declaration, masks, grouped heads, and both protocol modes,
+on exchange folders written as docs/external-program.md lays them out."""
+import json
+import os
+import subprocess
+import sys
+import textwrap
+
+import numpy as np
+import pytest
+
+from headroom_kernel import Problem, Unsupported, kernel
+
+PYTHON = "/usr/bin/python3"
+HERE = os.path.dirname(os.path.abspath(__file__))
+
+
+def exchange(folder, mask="none", b=2, hq=4, hkv=2, tq=3, tk=5, d=4, fmt="float32", lse=True):
+    """Writes a core problem as headroom would (external_program.cpp's write_exchange)."""
+    rng = np.random.default_rng(1)
+    shape = {"batch": b, "q_heads": hq, "kv_heads": hkv, "q_len": tq, "kv_len": tk, "key_dim": d, "value_dim": d}
+    outputs = {"o": {"file": "o.npy", "dtype": "<f4", "shape": [b, hq, tq, d]}}
+    if lse:
+        outputs["lse"] = {"file": "lse.npy", "dtype": "<f4", "shape": [b, hq, tq]}
+    problem = {"protocol": 2, "kernel": "k", "case": "c", "level": "core", "layout": "BHTD", "shape": shape,
+               "scale": 0.5, "scale_hex": "0x1p-1", "mask": {"kind": mask}, "input_format": fmt,
+               "output_format": fmt, "inputs": {"q": "q.npy", "k": "k.npy", "v": "v.npy"}, "returns_lse": lse,
+               "outputs": outputs}
+    for name, heads in (("q", hq), ("k", hkv), ("v", hkv)):
+        np.save(os.path.join(folder, name + ".npy"), rng.standard_normal((b, heads, tq if name == "q" else tk, d)).astype("<f4"))
+    if mask == "key_padding":
+        np.save(os.path.join(folder, "key_lengths.npy"), np.array([2, 0], "<i8"))
+        problem["mask"]["file"] = "key_lengths.npy"
+    if mask == "bias":
+        bias = rng.standard_normal((b, 1, tq, tk)).astype("<f4")
+        bias[0, 0, 0, 1] = -np.inf
+        np.save(os.path.join(folder, "bias.npy"), bias)
+        problem["mask"]["file"] = "bias.npy"
+    with open(os.path.join(folder, "problem.json"), "w") as f:
+        json.dump(problem, f)
+    return Problem(folder)
+
+
+@pytest.mark.parametrize("kind,rule", [
+    ("causal_top_left", lambda b, i, j: j <= i),
+    ("causal_bottom_right", lambda b, i, j: j <= i + 5 - 3),
+    ("key_padding", lambda b, i, j: j < [2, 0][b]),
+])
+def test_masks_as_booleans_and_as_bias(tmp_path, kind, rule):
+    p = exchange(str(tmp_path), kind)
+    seen, add = p.visible(), p.additive()
+    for b in range(2):
+        for i in range(3):
+            for j in range(5):
+                assert seen[b, 0, i, j] == rule(b, i, j)
+                assert add[b, 0, i, j] == (0 if rule(b, i, j) else -np.inf)
+
+
+def test_bias_mask_is_the_bias_and_cannot_be_booleans(tmp_path):
+    p = exchange(str(tmp_path), "bias")
+    assert np.array_equal(p.additive(), p.load("bias.npy"))
+    assert not p.visible()[0, 0, 0, 1] and p.visible()[0, 0, 0, 0]
+    with pytest.raises(ValueError, match="bias"):
+        kernel(name="k", input_format="float32", output_format="float32", masks=["bias"])(lambda q, k, v, scale, mask: q)
+
+
+def test_grouped_heads_expand_so_query_head_h_sees_kv_head_h_over_group(tmp_path):
+    p = exchange(str(tmp_path), lse=False)
+    got = {}
+
+    @kernel(name="k", input_format="float32", output_format="float32", expand_groups=True)
+    def echo(q, k, v, scale, mask):
+        got.update(k=k, scale=scale, mask=mask)
+        return v[:, :, :3, :]
+
+    echo.solve(p.folder)
+    k = p.load("k.npy")
+    for h in range(4):
+        assert np.array_equal(got["k"][:, h], k[:, h // 2])
+    assert got["scale"] == 0.5 and got["mask"] is None
+    assert np.array_equal(np.load(os.path.join(p.folder, "o.npy")), p.load("v.npy")[:, [0, 0, 1, 1], :3, :])
+
+
+def test_output_of_the_wrong_shape_is_refused(tmp_path):
+    p = exchange(str(tmp_path), lse=False)
+    k = kernel(name="k", input_format="float32", output_format="float32")(lambda q, k, v, scale, mask: q[:, :, :2])
+    with pytest.raises(ValueError, match="shape"):
+        k.solve(p.folder)
+
+
+SCRIPT = textwrap.dedent("""
+    import sys
+    sys.path.insert(0, %r)
+    import numpy as np
+    from headroom_kernel import Unsupported, kernel
+
+    @kernel(name="scripted", input_format="float32", output_format="float32", returns_lse=True, expand_groups=True)
+    def attend(q, k, v, scale, mask):
+        print("chatter on stdout")  # must not reach the protocol channel
+        if q.shape[0] == 1:
+            raise Unsupported("batch 1")
+        if q.shape[0] == 3:
+            raise RuntimeError("kernel exploded")
+        z = scale * q @ k.swapaxes(-1, -2)
+        e = np.exp(z - z.max(-1, keepdims=True))
+        return (e / e.sum(-1, keepdims=True)) @ v, np.log(e.sum(-1)) + z.max(-1)
+
+    attend.main()
+""") % os.path.join(HERE, "..")
+
+
+def test_one_shot_mode_describe_run_and_decline(tmp_path):
+    script = tmp_path / "k.py"
+    script.write_text(SCRIPT)
+    d = json.loads(subprocess.run([PYTHON, str(script), "describe"], capture_output=True, text=True, check=True).stdout)
+    assert d["protocol"] == 2 and d["serve"] == 1 and d["returns_lse"] is True and d["name"] == "scripted"
+    folder = tmp_path / "ok"
+    folder.mkdir()
+    exchange(str(folder))
+    assert subprocess.run([PYTHON, str(script), "run", str(folder)]).returncode == 0
+    o, lse = np.load(folder / "o.npy"), np.load(folder / "lse.npy")
+    assert o.dtype == np.dtype("<f4") and o.shape == (2, 4, 3, 4) and lse.shape == (2, 4, 3)
+    one = tmp_path / "one"
+    one.mkdir()
+    exchange(str(one), b=1)
+    assert subprocess.run([PYTHON, str(script), "run", str(one)]).returncode == 77
+
+
+def test_serve_mode_answers_many_calls_and_survives_an_exception(tmp_path):
+    script = tmp_path / "k.py"
+    script.write_text(SCRIPT)
+    folders = []
+    for i, b in enumerate([2, 1, 3, 2]):
+        folder = tmp_path / str(i)
+        folder.mkdir()
+        exchange(str(folder), b=b)
+        folders.append(folder)
+    requests = "".join(json.dumps({"call": i + 1, "run": str(f)}) + "\n" for i, f in enumerate(folders))
+    done = subprocess.run([PYTHON, str(script), "serve"], input=requests, capture_output=True, text=True, timeout=60)
+    lines = [json.loads(line) for line in done.stdout.splitlines()]
+    assert lines[0] == {"serve": 1}
+    assert [(r["call"], r["status"]) for r in lines[1:]] == [(1, "ok"), (2, "unsupported"), (3, "error"), (4, "ok")]
+    assert "RuntimeError: kernel exploded" in lines[3]["detail"]
+    assert "chatter on stdout" in done.stderr and "Traceback" in done.stderr
+    assert done.returncode == 0
+    assert (folders[3] / "o.npy").exists() and not (folders[1] / "o.npy").exists()
