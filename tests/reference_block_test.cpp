@@ -135,5 +135,121 @@ RC_GTEST_PROP(ReferenceBlockProperties, ThreadCountChangesNoBit, ()) {
   RC_ASSERT(bit_identical(a.out, b.out) && bit_identical(a.bound, b.bound) && bit_identical(a.magnitude, b.magnitude));
 }
 
+// The fast block and the all-MPFR block enclose the same exact values.
+// Returns: the fast reference (for its stats).
+BlockReference expect_fast_and_mpfr_agree(const testing::BlockCase& c) {
+  ReferenceOptions mp;
+  mp.method = ReferenceMethod::multiprecision;
+  const BlockReference f = reference_block(c.problem, c.inputs), m = reference_block(c.problem, c.inputs, mp);
+  double worst = 0;
+  RC_ASSERT(f.certified && m.certified);
+  RC_ASSERT(enclose_same(f.out, f.bound, m.out, m.bound, &worst));
+  RC_ASSERT(f.fully_masked == m.fully_masked);
+  for (std::size_t i = 0; i < f.out.values.size(); ++i) {
+    if (std::isnan(f.out.values[i])) continue;
+    RC_ASSERT(f.bound.values[i] <= std::ldexp(f.magnitude.values[i], -80) * (1 + 0x1p-30));
+  }
+  return f;
+}
+
+enum class Stress { none, cancelling_values, huge_activations, masked_rows };
+
+testing::BlockCase draw_stressed(Stress stress) {
+  auto c = draw_block();
+  BlockInputs& in = c.inputs;
+  const BlockShape& s = c.problem.shape;
+  const auto mask = *rc::gen::inRange(0, 3);
+  if (mask == 1) c.problem.mask.kind = MaskKind::causal_bottom_right;
+  if (mask == 2) c.problem.mask.kind = MaskKind::causal_top_left;
+  switch (stress) {
+    case Stress::none:
+      break;
+    case Stress::cancelling_values:
+      // Two model channels nearly equal and W_v rows of opposite sign on them,
+      // every other W_v row zero: each V value is a difference of nearly equal
+      // products, far below Σ|X||W_v| — the head outputs shrink against the
+      // projections' uncertainty, and the block must escalate.
+      if (s.model_dim >= 2) {
+        for (std::int64_t j = 0; j < s.kv_len; ++j)
+          in.x_kv.at(0, j, 1) = in.x_kv.at(0, j, 0) * (1 + 0x1p-30 * static_cast<double>(j + 1));
+        for (std::int64_t m = 0; m < s.model_dim; ++m)
+          for (std::int64_t e = 0; e < s.kv_heads * s.value_dim; ++e)
+            in.w_v.values[static_cast<std::size_t>(m * s.kv_heads * s.value_dim + e)] =
+                m == 0 ? 1.0 : (m == 1 ? -1.0 : 0.0);
+        in.b_v = in.b_o = Tensor();  // a bias on Y would dwarf the cancelled values
+      }
+      break;
+    case Stress::huge_activations:
+      // Activations 2^12 times the usual (massive activations, Sun et al. 2024):
+      // scores of order 2^24, far past what the double-double exponent bound
+      // certifies.
+      for (double& x : in.x_q.values) x *= 0x1p12;
+      for (double& x : in.x_kv.values) x *= 0x1p12;
+      break;
+    case Stress::masked_rows:
+      c.problem.mask = Mask{};
+      c.problem.mask.kind = MaskKind::key_padding;
+      c.problem.mask.key_lengths = {*rc::gen::inRange<std::int64_t>(0, s.kv_len + 1)};
+      break;
+  }
+  return c;
+}
+
+RC_GTEST_PROP(ReferenceBlockProperties, FastAndMultiprecisionAgreeWithinTheirBounds, ()) {
+  const BlockReference f = expect_fast_and_mpfr_agree(draw_stressed(Stress::none));
+  RC_ASSERT(f.stats.redone_batches == 0);  // well-scaled cases stay on the fast path
+}
+
+RC_GTEST_PROP(ReferenceBlockProperties, CancellingValuesEscalateAndAgree, ()) {
+  const BlockReference f = expect_fast_and_mpfr_agree(draw_stressed(Stress::cancelling_values));
+  RC_CLASSIFY(f.stats.escalated_rows > 0, "escalated rows");
+  RC_CLASSIFY(f.stats.redone_batches > 0, "redone batch");
+}
+
+RC_GTEST_PROP(ReferenceBlockProperties, HugeActivationsEscalateAndAgree, ()) {
+  const BlockReference f = expect_fast_and_mpfr_agree(draw_stressed(Stress::huge_activations));
+  RC_CLASSIFY(f.stats.escalated_rows > 0, "escalated rows");
+  RC_CLASSIFY(f.stats.redone_batches > 0, "redone batch");
+}
+
+// Fixed cases where escalation must happen (the properties above only count it).
+TEST(ReferenceBlock, EscalatesWhereTheFastBoundMissesAndStaysCertified) {
+  for (const Stress stress : {Stress::cancelling_values, Stress::huge_activations}) {
+    auto c = random_block(block_shape(8, 2, 1, 4, 6, 4, 3), 33, true);
+    if (stress == Stress::cancelling_values) {
+      for (std::int64_t j = 0; j < 6; ++j) c.inputs.x_kv.at(0, j, 1) = c.inputs.x_kv.at(0, j, 0) * (1 + 0x1p-30 * (j + 1));
+      for (std::int64_t m = 0; m < 8; ++m)
+        for (std::int64_t e = 0; e < 3; ++e) c.inputs.w_v.values[static_cast<std::size_t>(m * 3 + e)] = m == 0 ? 1.0 : (m == 1 ? -1.0 : 0.0);
+      c.inputs.b_v = c.inputs.b_o = Tensor();  // a bias on Y would dwarf the cancelled values
+    } else {
+      for (double& x : c.inputs.x_q.values) x *= 0x1p12;
+      for (double& x : c.inputs.x_kv.values) x *= 0x1p12;
+    }
+    ReferenceOptions mp;
+    mp.method = ReferenceMethod::multiprecision;
+    const BlockReference f = reference_block(c.problem, c.inputs), m = reference_block(c.problem, c.inputs, mp);
+    EXPECT_TRUE(f.certified && m.certified);
+    EXPECT_GT(f.stats.escalated_rows, 0);
+    double worst = 0;
+    EXPECT_TRUE(enclose_same(f.out, f.bound, m.out, m.bound, &worst));
+    expect_within_target(f, -80);
+    std::printf("stress %d: %lld rows of Y escalated, %lld head elements in MPFR, %lld batches redone; worst |fast - mpfr| / allowance %.3g\n",
+                static_cast<int>(stress), static_cast<long long>(f.stats.escalated_rows),
+                static_cast<long long>(f.stats.escalated_elements), static_cast<long long>(f.stats.redone_batches), worst);
+  }
+}
+
+RC_GTEST_PROP(ReferenceBlockProperties, FullyMaskedRowsAgree, ()) {
+  expect_fast_and_mpfr_agree(draw_stressed(Stress::masked_rows));
+}
+
+RC_GTEST_PROP(ReferenceBlockProperties, FastThreadCountChangesNoBit, ()) {
+  const auto c = draw_stressed(static_cast<Stress>(*rc::gen::inRange(0, 4)));
+  ReferenceOptions many;
+  many.threads = *rc::gen::inRange(2u, 5u);
+  const BlockReference a = reference_block(c.problem, c.inputs), b = reference_block(c.problem, c.inputs, many);
+  RC_ASSERT(bit_identical(a.out, b.out) && bit_identical(a.bound, b.bound) && bit_identical(a.magnitude, b.magnitude));
+}
+
 }  // namespace
 }  // namespace headroom

@@ -66,6 +66,13 @@ inline double nonneg_sum_up(double computed, std::int64_t ops) {
   return mul_up(add_up(computed, slack), add_up(1.0, gamma_up(ops, 0x1p-53)));
 }
 
+/// Returns: an upper bound of sqrt(Σ x_c²) for n values `stride` apart.
+inline double norm_up(const double* x, std::int64_t n, std::int64_t stride = 1) {
+  double s = 0;
+  for (std::int64_t c = 0; c < n; ++c) s += x[c * stride] * x[c * stride];
+  return std::nextafter(std::sqrt(nonneg_sum_up(s, 2 * n)), kInf);  // sqrt is correctly rounded (IEEE 754 §5.4.1)
+}
+
 /// Returns: an upper bound of e^r − 1 for 0 ≤ r ≤ 2^-10, via e^r − 1 ≤ r + r²
 /// (the series r + r²/2 + r³/6 + … is below r + r²(e − 2) for r ≤ 1); +inf
 /// beyond 2^-10, where the reference treats the quantity as uncertifiable

@@ -37,6 +37,23 @@
 // Whatever misses its target is recomputed on the multiprecision path (the
 // elements and the lse separately); a row the kernel could not finish (a
 // non-finite value, a reduction out of range) is recomputed whole.
+//
+// Wide inputs (block level, WideCoreInputs): the values held are double-doubles
+// q̃ = q + q_lo, k̃, ṽ, and the exact inputs lie within radii of them:
+// ‖q − q̃‖₂ ≤ ρ_q, ‖k_j − k̃_j‖₂ ≤ ρ_k,j, |v_jd − ṽ_jd| ≤ ρ_v,d for every key.
+//  (a') The score's dot product is formed on q̃, k̃ (fast_row.inc,
+//      score_blocks, wide: coefficient γ_{Dk+3}·u·(Dk+4) + u² in place of
+//      γ_{Dk+1}·u·(Dk+2)), and the exact inputs move it by at most
+//      ρ_q‖k̃_j‖ + ‖q̃‖ρ_k,j + ρ_qρ_k,j (Cauchy–Schwarz), which the kernel adds
+//      to E_z,j: the exponent uncertainty r_j — and so φ̄ and everything after
+//      it — then covers exact scores, not the scores of q̃, k̃.
+//  (c') The weighted sums also take ŵ·v_lo (fast_row.inc, weighted_sums,
+//      wide): e_acc = n(6B+14)u²(1 + 2^-38), and Σ|ŵ_j||ṽ_jd| ≤ (1+u)²G_d, so
+//      the factor (1+u) of (c)–(d) becomes (1 + 2^-51) ≥ (1+u)².
+//  (d') So far the bound encloses Σ_j p_j ṽ_jd with the exact weights p_j;
+//      the exact output Σ_j p_j v_jd differs from it by ≤ Σ_j p_j ρ_v,d = ρ_v,d
+//      (Σ_j p_j = 1), added to bound_d.
+//  The output o_ref = q1 + q2 is returned exactly as out + out_lo.
 #include "fast_core.h"
 
 #include <algorithm>
@@ -59,18 +76,11 @@ bool float32_valued(const Tensor& t) {
   return true;
 }
 
-// Returns: an upper bound of sqrt(Σ x_c²) for n values.
-double norm_up(const double* x, std::int64_t n) {
-  double s = 0;
-  for (std::int64_t c = 0; c < n; ++c) s += x[c] * x[c];
-  return std::nextafter(std::sqrt(nonneg_sum_up(s, 2 * n)), kInf);  // sqrt is correctly rounded (IEEE 754 §5.4.1)
-}
-
 }  // namespace
 
 FastCore::FastCore(const CoreProblem& p, const CoreInputs& in, const ReferenceOptions& opt, unsigned workers,
-                   const FastKernels* kernels)
-    : p_(p), in_(in), opt_(opt), kernels_(kernels != nullptr ? kernels : &fast_kernels()) {
+                   const FastKernels* kernels, const WideCoreInputs* wide)
+    : p_(p), in_(in), opt_(opt), kernels_(kernels != nullptr ? kernels : &fast_kernels()), wide_(wide) {
   const CoreShape& s = p.shape;
   blocks_ = (s.kv_len + kLanes - 1) / kLanes;
   dv_pad_ = (s.value_dim + kLanes - 1) / kLanes * kLanes;
@@ -79,9 +89,17 @@ FastCore::FastCore(const CoreProblem& p, const CoreInputs& in, const ReferenceOp
   exact_products_ = float32_valued(in.q) && float32_valued(in.k);
   // fast_row.inc, score_blocks: |hi + lo − q·k| ≤ γ_{Dk+1}·u·(Dk + 2)·A.
   score_coef_ = mul_up(mul_up(gamma_up(s.key_dim + 1, kU), kU), static_cast<double>(s.key_dim + 2));
+  if (wide_ != nullptr) {  // (a')
+    exact_products_ = false;
+    score_coef_ = add_up(mul_up(mul_up(gamma_up(s.key_dim + 3, kU), kU), static_cast<double>(s.key_dim + 4)), kU2);
+  }
   const std::int64_t heads = s.batch * s.kv_heads;
   kt_.assign(static_cast<std::size_t>(heads * blocks_ * s.key_dim * kLanes), 0.0);
   vp_.assign(static_cast<std::size_t>(heads * s.kv_len * dv_pad_), 0.0);
+  if (wide_ != nullptr) {
+    kt_lo_.assign(kt_.size(), 0.0);
+    vp_lo_.assign(vp_.size(), 0.0);
+  }
   k_norm_.assign(static_cast<std::size_t>(heads * s.kv_len), 0.0);
   parallel_for(heads, workers, [&](std::int64_t bg, unsigned) {
     const std::int64_t b = bg / s.kv_heads, g = bg % s.kv_heads;
@@ -94,6 +112,14 @@ FastCore::FastCore(const CoreProblem& p, const CoreInputs& in, const ReferenceOp
       k_norm_[static_cast<std::size_t>(bg * s.kv_len + j)] = norm_up(k, s.key_dim);
       const double* v = &in.v.values[static_cast<std::size_t>(in.v.offset(b, g, j, 0))];
       std::copy(v, v + s.value_dim, vp + j * dv_pad_);
+      if (wide_ != nullptr) {
+        const std::size_t at = static_cast<std::size_t>(bg * blocks_ * s.key_dim * kLanes);
+        const double* kl = &wide_->k_lo.values[static_cast<std::size_t>(in.k.offset(b, g, j, 0))];
+        for (std::int64_t c = 0; c < s.key_dim; ++c)
+          kt_lo_[at + static_cast<std::size_t>(((j / kLanes) * s.key_dim + c) * kLanes + j % kLanes)] = kl[c];
+        const double* vl = &wide_->v_lo.values[static_cast<std::size_t>(in.v.offset(b, g, j, 0))];
+        std::copy(vl, vl + s.value_dim, &vp_lo_[static_cast<std::size_t>(bg * s.kv_len * dv_pad_ + j * dv_pad_)]);
+      }
     }
   });
 }
@@ -116,6 +142,7 @@ void FastCore::prepare_row(std::int64_t row, RowScratch& rs, FastRowArgs& a, Fas
   rs.w_lo.resize(n_pad);
   rs.acc.resize(static_cast<std::size_t>(4 * dv_pad_));
   rs.out.resize(static_cast<std::size_t>(dv));
+  rs.out_lo.resize(static_cast<std::size_t>(dv));
   rs.g.resize(static_cast<std::size_t>(dv));
   rs.neg_vmax.resize(static_cast<std::size_t>(dv));
   rs.want.assign(static_cast<std::size_t>(dv), 0);
@@ -133,6 +160,13 @@ void FastCore::prepare_row(std::int64_t row, RowScratch& rs, FastRowArgs& a, Fas
   a.score_coef_a = score_coef_;
   a.q_norm = norm_up(a.q, s.key_dim);
   a.exact_products = exact_products_;
+  if (wide_ != nullptr) {
+    a.q_lo = &wide_->q_lo.values[static_cast<std::size_t>(in_.q.offset(b, h, i, 0))];
+    a.kt_lo = &kt_lo_[static_cast<std::size_t>(bg * blocks_ * s.key_dim * kLanes)];
+    a.vp_lo = &vp_lo_[static_cast<std::size_t>(bg * s.kv_len * dv_pad_)];
+    a.q_rad = wide_->q_rad[static_cast<std::size_t>(row)];
+    a.k_rad = &wide_->k_rad[static_cast<std::size_t>(bg * s.kv_len)];
+  }
   a.tables = &fast_tables();
   a.raw_hi = rs.raw_hi.data();
   a.raw_lo = rs.raw_lo.data();
@@ -141,11 +175,12 @@ void FastCore::prepare_row(std::int64_t row, RowScratch& rs, FastRowArgs& a, Fas
   a.acc = rs.acc.data();
   o = FastRowOut{};
   o.out = rs.out.data();
+  if (wide_ != nullptr) o.out_lo = rs.out_lo.data();
   o.g = rs.g.data();
   o.neg_vmax = rs.neg_vmax.data();
 }
 
-bool FastCore::run_group(std::int64_t group, CoreReference& ref, Scratch& sc, MpCoreRows& mp,
+bool FastCore::run_group(std::int64_t group, CoreReference& ref, Scratch& sc, RowRecompute& mp,
                          ReferenceStats& stats) const {
   const CoreShape& s = p_.shape;
   const std::int64_t per_head = (s.q_len + kMaxGroup - 1) / kMaxGroup;
@@ -184,7 +219,7 @@ bool FastCore::run_group(std::int64_t group, CoreReference& ref, Scratch& sc, Mp
   return ok;
 }
 
-bool FastCore::finish_row(std::int64_t row, RowScratch& sc, const FastRowOut& o, CoreReference& ref, MpCoreRows& mp,
+bool FastCore::finish_row(std::int64_t row, RowScratch& sc, const FastRowOut& o, CoreReference& ref, RowRecompute& mp,
                           ReferenceStats& stats) const {
   const CoreShape& s = p_.shape;
   const std::int64_t dv = s.value_dim;
@@ -203,14 +238,16 @@ bool FastCore::finish_row(std::int64_t row, RowScratch& sc, const FastRowOut& o,
   const double r = add_up(mul_up(o.r_max, 1.0 + 0x1p-40), 0x1p-1000);
   const double phi = weight_uncertainty_up(r, kFastExpRelErr);
   if (!std::isfinite(phi)) return escalate_all();
-  const double e_acc = mul_up(mul_up(static_cast<double>(n), static_cast<double>(4 * kRenormEvery + 8)),
+  const bool wide = wide_ != nullptr;
+  const double e_acc = mul_up(mul_up(static_cast<double>(n), static_cast<double>(wide ? 6 * kRenormEvery + 14
+                                                                                      : 4 * kRenormEvery + 8)),
                               mul_up(kU2, 1.0 + 0x1p-38));
   const double s_low = sub_down(o.s_hi, std::fabs(o.s_lo)), s_up = add_up(o.s_hi, std::fabs(o.s_lo));
   const double tiny_sum = mul_up(static_cast<double>(n), 0x1p-1071);
   const double neg = mul_up(static_cast<double>(o.negligible), 0x1p-937);
   const double eps_s = add_up(div_up(add_up(phi, e_acc), sub_down(1.0, e_acc)), div_up(add_up(neg, tiny_sum), s_low));
   if (!(eps_s < 0.5)) return escalate_all();
-  const double one_u = 1.0 + kU;
+  const double one_u = wide ? 1.0 + 0x1p-51 : 1.0 + kU;  // (c')
   const double c = add_up(mul_up(add_up(e_acc, phi), one_u),
                           div_up(mul_up(mul_up(eps_s, add_up(1.0, phi)), one_u), sub_down(1.0, eps_s)));
   const double cg = div_up(mul_up(c, 1.0 + 0x1p-49), s_low);
@@ -227,10 +264,15 @@ bool FastCore::finish_row(std::int64_t row, RowScratch& sc, const FastRowOut& o,
     if (o.negligible > 0) nu = add_up(nu, mul_up(neg, sc.neg_vmax[static_cast<std::size_t>(d)]));
     double bound = add_up(mul_up(cg, gd), div_up(mul_up(2.0, nu), s_low));
     bound = add_up(bound, add_up(mul_up(16 * kU2 * (1 + 0x1p-40), std::fabs(out)), 0x1p-1060));
+    if (wide) {  // (d')
+      const std::int64_t g = kv_head_of(s, (row / s.q_len) % s.q_heads), b = row / (s.q_len * s.q_heads);
+      bound = add_up(bound, wide_->v_rad[static_cast<std::size_t>((b * s.kv_heads + g) * dv + d)]);
+      wide_->out_lo[base + static_cast<std::size_t>(d)] = sc.out_lo[static_cast<std::size_t>(d)];
+    }
     ref.out.values[base + static_cast<std::size_t>(d)] = out;
     ref.bound.values[base + static_cast<std::size_t>(d)] = bound;
     ref.magnitude.values[base + static_cast<std::size_t>(d)] = gd / o.s_hi;
-    if (!(bound <= mul_down(allowed_rel, mul_down(gd, low)))) {
+    if (!wide && !(bound <= mul_down(allowed_rel, mul_down(gd, low)))) {
       sc.want[static_cast<std::size_t>(d)] = 1;
       any = true;
       ++stats.escalated_elements;
@@ -241,7 +283,7 @@ bool FastCore::finish_row(std::int64_t row, RowScratch& sc, const FastRowOut& o,
                                   div_up(eps_s, sub_down(1.0, eps_s)));
   ref.lse.values[static_cast<std::size_t>(row)] = o.lse;
   ref.lse_bound.values[static_cast<std::size_t>(row)] = lse_bound;
-  const bool lse_miss = !(lse_bound <= allowed_rel);
+  const bool lse_miss = !wide && !(lse_bound <= allowed_rel);
   if (lse_miss) ++stats.escalated_lse;
   if (!any && !lse_miss) return true;
   ++stats.escalated_rows;

@@ -10,6 +10,18 @@
 
 namespace headroom::detail {
 
+/// Block level: the core inputs as double-doubles known to within radii. The
+/// CoreInputs passed beside it hold the high parts; the exact inputs lie within
+/// the radii of high + low. `out_lo`, when set, receives o_ref − out per
+/// element ([rows·Dv], so the output is o_ref as a double-double).
+struct WideCoreInputs {
+  Tensor q_lo, k_lo, v_lo;    ///< low parts, shaped as q, k, v; |lo| ≤ u|hi|
+  std::vector<double> q_rad;  ///< [B·Hq·Tq] upper bounds of ‖δq‖₂ per query row
+  std::vector<double> k_rad;  ///< [B·Hkv·Tk] upper bounds of ‖δk_j‖₂
+  std::vector<double> v_rad;  ///< [B·Hkv·Dv] upper bounds of max_j |δv_jd| over the kv head's keys
+  double* out_lo = nullptr;
+};
+
 /// A core problem laid out for the fast kernel: keys in lane blocks and
 /// values in padded rows per (batch, kv head), and key norms. O((Tk)·D)
 /// doubles per kv head, the size of the inputs themselves.
@@ -17,13 +29,16 @@ class FastCore {
  public:
   /// `kernels`: null for the best the CPU runs (fast_kernels()); tests pass
   /// fast_kernels_baseline() to compare the two builds.
+  /// `wide`: block level (inputs as double-doubles with radii); then the
+  /// elements are not judged against the target here — the block judges its
+  /// outputs — and only rows the kernel cannot finish are recomputed.
   FastCore(const CoreProblem& p, const CoreInputs& in, const ReferenceOptions& opt, unsigned workers,
-           const FastKernels* kernels = nullptr);
+           const FastKernels* kernels = nullptr, const WideCoreInputs* wide = nullptr);
 
   /// One row's scratch, reused across rows.
   struct RowScratch {
     std::vector<std::int64_t> keys;
-    std::vector<double> bias, raw_hi, raw_lo, w_hi, w_lo, acc, out, g, neg_vmax;
+    std::vector<double> bias, raw_hi, raw_lo, w_hi, w_lo, acc, out, out_lo, g, neg_vmax;
     std::vector<std::uint8_t> want;
   };
   /// Per-worker scratch: one RowScratch per row of a group.
@@ -39,11 +54,11 @@ class FastCore {
   /// the same keys go through the kernel together); the elements (and lse)
   /// whose certified bound misses the target are recomputed by `mp`.
   /// Returns: whether all its rows ended certified. Adds to `stats`.
-  bool run_group(std::int64_t group, CoreReference& ref, Scratch& sc, MpCoreRows& mp, ReferenceStats& stats) const;
+  bool run_group(std::int64_t group, CoreReference& ref, Scratch& sc, RowRecompute& mp, ReferenceStats& stats) const;
 
  private:
   void prepare_row(std::int64_t row, RowScratch& rs, FastRowArgs& a, FastRowOut& o) const;
-  bool finish_row(std::int64_t row, RowScratch& rs, const FastRowOut& o, CoreReference& ref, MpCoreRows& mp,
+  bool finish_row(std::int64_t row, RowScratch& rs, const FastRowOut& o, CoreReference& ref, RowRecompute& mp,
                   ReferenceStats& stats) const;
 
   const CoreProblem& p_;
@@ -54,6 +69,8 @@ class FastCore {
   bool exact_products_ = false;
   double score_coef_ = 0;
   std::vector<double> kt_, vp_, k_norm_;  // per (b, g), concatenated
+  const WideCoreInputs* wide_ = nullptr;
+  std::vector<double> kt_lo_, vp_lo_;     // wide: the low parts in the same layouts
 };
 
 }  // namespace headroom::detail

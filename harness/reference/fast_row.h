@@ -49,6 +49,15 @@ struct FastRowArgs {
   double score_coef_a = 0;  ///< dot-product error ≤ score_coef_a·‖q‖‖k_j‖ (the kernel adds the rest of E_z,j)
   double q_norm = 0;        ///< upper bound of ‖q‖₂
   bool exact_products = false;  ///< every q_c·k_jc exact in double (both float32-valued)
+  // Double-double inputs (block level; null at core level): q + q_lo, keys kt + kt_lo (same
+  // layout), values vp + vp_lo, each normalised (|lo| ≤ u|hi|); score_coef_a is then the
+  // wide one (fast_row.inc, score_blocks). Radii: the exact inputs lie within q_rad (an
+  // upper bound of ‖δq‖₂) and k_rad[j] (of ‖δk_j‖₂) of them.
+  const double* q_lo = nullptr;
+  const double* kt_lo = nullptr;
+  const double* vp_lo = nullptr;
+  double q_rad = 0;
+  const double* k_rad = nullptr;
   const FastTables* tables = nullptr;
   // Scratch, caller-owned: raw_hi/raw_lo ≥ Tk rounded up to kLanes, w_hi/w_lo ≥ n rounded up
   // to kLanes, acc ≥ 4·dv_pad.
@@ -57,6 +66,7 @@ struct FastRowArgs {
 
 struct FastRowOut {
   double* out = nullptr;  ///< dv values: RN(o_ref), o_ref = q1 + q2 the double-double quotient
+  double* out_lo = nullptr;  ///< dv values or null: o_ref − out exactly
   double* g = nullptr;    ///< dv values: Ĝ_d ≈ Σ_j w_hi,j |v_jd| (relative error ≤ 2^-49.5)
   double s_hi = 0, s_lo = 0;  ///< Ŝ = Σ_j ŵ_j, normalised
   double r_max = 0;       ///< max over keys of the exponent uncertainty r_j (before the final inflation)
@@ -70,8 +80,12 @@ struct FastRowOut {
 /// The kernel entry points, one set per instruction set. group(rows, outs,
 /// count) computes `count` ≤ kMaxGroup rows whose visible key lists are equal
 /// (each row's results are those it would get alone).
+/// weighted(rows, count): for `count` ≤ kMaxGroup rows sharing keys and
+/// values, acc = the weighted sums H, L, GH, GL from zero (fast_row.inc,
+/// weighted_group_kernel): a double-double matrix–vector product.
 struct FastKernels {
   void (*group)(const FastRowArgs* rows, FastRowOut* outs, int count);
+  void (*weighted)(const FastRowArgs* rows, int count);
   const char* name;
 };
 
@@ -84,10 +98,12 @@ namespace fast_avx2 {
 /// Returns: whether this build has the AVX2 kernels (x86 and a GCC-compatible compiler).
 bool available();
 void group(const FastRowArgs* rows, FastRowOut* outs, int count);
+void weighted(const FastRowArgs* rows, int count);
 }  // namespace fast_avx2
 
 namespace fast_baseline {
 void group(const FastRowArgs* rows, FastRowOut* outs, int count);
+void weighted(const FastRowArgs* rows, int count);
 }  // namespace fast_baseline
 
 }  // namespace headroom::detail

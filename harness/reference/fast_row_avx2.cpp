@@ -55,6 +55,7 @@ inline Vec operator+(Vec a, double b) { return vadd(a, vset1(b)); }
 }  // namespace
 
 void group(const FastRowArgs* rows, FastRowOut* outs, int count) { group_kernel(rows, outs, count); }
+void weighted(const FastRowArgs* rows, int count) { weighted_group_kernel(rows, count); }
 
 #if defined(__clang__)
 #pragma clang attribute pop
@@ -68,6 +69,7 @@ bool available() { return __builtin_cpu_supports("avx2") && __builtin_cpu_suppor
 
 bool available() { return false; }
 void group(const FastRowArgs* rows, FastRowOut* outs, int count) { fast_baseline::group(rows, outs, count); }
+void weighted(const FastRowArgs* rows, int count) { fast_baseline::weighted(rows, count); }
 
 #endif
 

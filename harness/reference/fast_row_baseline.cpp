@@ -56,6 +56,7 @@ inline Vec operator+(Vec a, double b) { return vadd(a, vset1(b)); }
 }  // namespace
 
 void group(const FastRowArgs* rows, FastRowOut* outs, int count) { group_kernel(rows, outs, count); }
+void weighted(const FastRowArgs* rows, int count) { weighted_group_kernel(rows, count); }
 
 #if !defined(__clang__)
 #pragma GCC pop_options

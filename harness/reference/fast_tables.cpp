@@ -54,12 +54,12 @@ const FastTables& fast_tables() {
 }
 
 const FastKernels& fast_kernels_baseline() {
-  static const FastKernels k{&fast_baseline::group, "baseline"};
+  static const FastKernels k{&fast_baseline::group, &fast_baseline::weighted, "baseline"};
   return k;
 }
 
 const FastKernels& fast_kernels() {
-  static const FastKernels k = fast_avx2::available() ? FastKernels{&fast_avx2::group, "avx2+fma"}
+  static const FastKernels k = fast_avx2::available() ? FastKernels{&fast_avx2::group, &fast_avx2::weighted, "avx2+fma"}
                                                       : fast_kernels_baseline();
   return k;
 }

@@ -11,12 +11,24 @@ namespace headroom::detail {
 /// Largest working precision tried before a row is declared uncertified.
 inline constexpr long kMaxPrecision = 4096;
 
+/// Recomputes on the multiprecision path the rows (or elements of rows) the
+/// fast path could not certify: MpCoreRows at core level, the block level's
+/// own on double-double inputs (fast_block.cpp).
+class RowRecompute {
+ public:
+  virtual ~RowRecompute() = default;
+  /// Computes row `row` (= (b·Hq + h)·Tq + i) into `ref` — every element when
+  /// `want` is null, else those with want[d] != 0, and the lse when `with_lse`.
+  /// Returns: whether the computed elements (and lse) met the target.
+  virtual bool run(std::int64_t row, CoreReference& ref, const std::uint8_t* want, bool with_lse) = 0;
+};
+
 /// Per-worker scratch and driver for multiprecision core rows. Not shareable
 /// between threads; one per worker.
-class MpCoreRows {
+class MpCoreRows : public RowRecompute {
  public:
   MpCoreRows(const CoreProblem& p, const CoreInputs& in, const ReferenceOptions& opt);
-  ~MpCoreRows();
+  ~MpCoreRows() override;
   MpCoreRows(const MpCoreRows&) = delete;
   MpCoreRows& operator=(const MpCoreRows&) = delete;
 
@@ -26,7 +38,7 @@ class MpCoreRows {
   /// the target is met or kMaxPrecision is reached.
   /// Returns: whether the computed elements (and lse) met the target. A row
   /// with no visible key is written as fully masked (NaN) and returns true.
-  bool run(std::int64_t row, CoreReference& ref, const std::uint8_t* want, bool with_lse);
+  bool run(std::int64_t row, CoreReference& ref, const std::uint8_t* want, bool with_lse) override;
 
   /// Returns: the highest precision any row of this worker needed.
   long max_precision_used() const;

@@ -1,5 +1,9 @@
 // headroom — reference_block: projections, attention per head, output projection, certified.
 //
+// Method fast runs fast_block.cpp first; the batches it could not certify, and
+// every batch with method multiprecision or the cpp_bin_float backend, take
+// the multiprecision path below.
+//
 // Per batch, at working precision p (unit u, see mp_arith.h):
 //
 //  (1) Projections Q̂ = RN(Σ_m RN(X_tm·W_mc) + b_c), likewise K̂, V̂, kept in
@@ -24,7 +28,9 @@
 #include <memory>
 #include <vector>
 
+#include "block_source.h"
 #include "bound_arith.h"
+#include "fast_block.h"
 #include "headroom/reference.h"
 #include "input_check.h"
 #include "mp_arith.h"
@@ -70,37 +76,6 @@ struct Scratch {
   Num acc, tmp;
   std::vector<std::int64_t> keys;
   std::vector<double> bias, abs_dot;
-};
-
-// The operands of one block attention row for mp_row (see mp_row.h).
-template <class Ar>
-struct BlockSource {
-  using Num = typename Ar::Num;
-  const Num* q;
-  const double* aq;
-  const Num* k;
-  const double* ak;
-  std::int64_t k_stride;
-  const Num* v;
-  const double* av;
-  std::int64_t v_stride;
-  std::int64_t dk, dv;
-  double gin;
-  const double* abs_dot;
-
-  std::int64_t key_dim() const { return dk; }
-  std::int64_t value_dim() const { return dv; }
-  double gamma_in() const { return gin; }
-  double abs_dot_up(std::int64_t j) const { return abs_dot[j]; }
-  double abs_v(std::int64_t j, std::int64_t d) const { return av[j * v_stride + d]; }
-  void begin_row(const Ar&, detail::MpWorkspace<Ar>&) const {}
-  void dot(const Ar& ar, detail::MpWorkspace<Ar>& ws, Num& acc, std::int64_t j) const {
-    ar.zero(acc);
-    for (std::int64_t c = 0; c < dk; ++c) ar.add_prod(acc, ws.tmp, q[c], k[j * k_stride + c]);
-  }
-  void add_v(const Ar& ar, Num& acc, Num& tmp, const Num& w, std::int64_t j, std::int64_t d) const {
-    ar.add_prod(acc, tmp, w, v[j * v_stride + d]);
-  }
 };
 
 class BlockRun {
@@ -183,7 +158,7 @@ class BlockRun {
         for (std::int64_t c = 0; c < dk; ++c) a += aq[c] * ak[c];
         sc.abs_dot[static_cast<std::size_t>(j)] = nonneg_sum_up(a, 2 * dk);
       }
-      const BlockSource<Ar> src{&q.value[static_cast<std::size_t>(i * q.cols + h * dk)],
+      const detail::BlockSource<Ar> src{&q.value[static_cast<std::size_t>(i * q.cols + h * dk)],
                                 aq,
                                 &k.value[static_cast<std::size_t>(g * dk)],
                                 &k.abs[static_cast<std::size_t>(g * dk)],
@@ -274,8 +249,13 @@ BlockReference reference_block(const BlockProblem& p, const BlockInputs& in, con
   ref.bound = Tensor(ref.out.shape);
   ref.magnitude = Tensor(ref.out.shape);
   ref.fully_masked.assign(static_cast<std::size_t>(s.batch * s.q_heads * s.q_len), 0);
+  std::vector<std::uint8_t> fast_ok(static_cast<std::size_t>(s.batch), 0);
+  if (opt.method == ReferenceMethod::fast && opt.backend == ReferenceBackend::mpfr)
+    fast_ok = detail::fast_block(p, in, opt, ref);
   BlockRun run(p, in, opt, ref);
   for (std::int64_t b = 0; b < s.batch; ++b) {
+    if (fast_ok[static_cast<std::size_t>(b)] != 0) continue;
+    if (opt.method == ReferenceMethod::fast && opt.backend == ReferenceBackend::mpfr) ++ref.stats.redone_batches;
     bool ok = false;
     if (opt.backend == ReferenceBackend::mpfr) {
       for (long prec = 192;;) {

@@ -20,7 +20,8 @@
 //   fast            double-double arithmetic with error-free transformations
 //                   and an a-posteriori bound per element (fast_row.h); the
 //                   elements whose bound misses the target, and the lse if
-//                   it does, are recomputed on the multiprecision path.
+//                   it does, are recomputed on the multiprecision path. The
+//                   block level's projections too (fast_block.cpp).
 //   multiprecision  every row on the multiprecision path (mp_row.h): MPFR at a
 //                   precision chosen per row and raised until the target is
 //                   met — the straightforward baseline.
@@ -48,7 +49,7 @@ enum class ReferenceMethod : unsigned char {
 struct ReferenceOptions {
   int target_log2 = -80;  ///< certified bound target, relative to Σ_j p_j |v_j|; lse: absolute
   ReferenceBackend backend = ReferenceBackend::mpfr;  ///< the multiprecision path's arithmetic
-  ReferenceMethod method = ReferenceMethod::fast;     ///< core level; the block is multiprecision throughout
+  ReferenceMethod method = ReferenceMethod::fast;     ///< both levels (block: see reference_block)
   unsigned threads = 1;   ///< 0: one per hardware thread; results are bit-identical for every count
 };
 
@@ -59,6 +60,7 @@ struct ReferenceStats {
   std::int64_t escalated_elements = 0;  ///< output elements recomputed in multiprecision
   std::int64_t escalated_lse = 0;       ///< lse values recomputed in multiprecision
   long max_precision = 0;               ///< highest multiprecision precision used (bits; 0 if none)
+  std::int64_t redone_batches = 0;      ///< block, method fast: batches redone whole in multiprecision
 };
 
 struct CoreReference {
@@ -82,11 +84,25 @@ struct BlockReference {
   Tensor magnitude;  ///< [B, Tq, Dm] Σ_c |concat_c| |W_o[c, m]| + |b_o[m]|, the scaled-error unit
   std::vector<std::uint8_t> fully_masked;  ///< [B·Hq·Tq]; a Y row is NaN when any head's row is masked
   bool certified = true;
+  /// Method fast: rows = rows of Y formed, escalated_rows = rows of Y whose head
+  /// outputs were recomputed in multiprecision to a tighter target,
+  /// escalated_elements = head output elements recomputed in multiprecision,
+  /// redone_batches = batches redone whole on the multiprecision path.
+  ReferenceStats stats;
 };
 
 /// Returns: the certified reference of a block problem (projections, attention
-/// per head, concatenation, output projection, all exact to the bound), on the
-/// multiprecision path. Throws InputError as reference_core.
+/// per head, concatenation, output projection, all exact to the bound), to the
+/// contract above with the block's magnitude: |y_ref − y_exact| ≤ bound ≤
+/// 2^target_log2 · (Σ_c |concat_c||W_o[c, m]| + |b_o[m]|) where certified.
+/// Method fast (with the mpfr backend): projections as double-doubles from
+/// error-free products, each projected element carried with its certified
+/// radius into the core fast path (which widens its bound by the propagated
+/// input uncertainty), the output projection likewise (fast_block.cpp); a
+/// row of Y that misses the target has its head outputs recomputed in MPFR,
+/// and a batch that still misses is redone on the multiprecision path.
+/// Method multiprecision, or the cpp_bin_float backend: every batch in
+/// multiprecision throughout (the cross-check). Throws InputError as reference_core.
 BlockReference reference_block(const BlockProblem& p, const BlockInputs& in, const ReferenceOptions& opt = {});
 
 }  // namespace headroom

@@ -1,0 +1,540 @@
+// headroom — fast_block: the certified block on the double-double fast path.
+//
+// u = 2^-53, B = kRenormEvery. Every batch at once, in three stages:
+//
+//  (1) Projections Q = X_q W_q + b_q (likewise K, V) by the fast kernel's
+//      weighted sums (fast_row.inc, weighted_group_kernel): the weights are
+//      the row X_t, 1 (for the bias), the values the rows of W, then b. The
+//      products are error-free and accumulated in double-double, so with
+//      n = Dm + 1 terms and A_tc = Σ_m |X_tm||W_mc| + |b_c|,
+//        |Q̃_tc − Q_tc| ≤ γ_P·A_tc,  γ_P = n(4B+8)u²(1 + 2^-38)
+//      (weighted_sums' bound, the exact terms being X_tm·W_mc; underflows
+//      cost ≤ n·2^-1071, covered by the floor 2^-950 added to A). Q̃ = hi + lo
+//      exactly (two_sum of H and L, so |lo| ≤ u|hi|), and
+//      A_up = Ĝ(1 + 2^-49) + 2^-950 ≥ A (Ĝ is within 2^-49.5 of A).
+//  (2) Core attention per head on Q̃, K̃, Ṽ with radii (fast_core.cpp, wide):
+//      ρ_q = γ_P‖A_q,row‖₂ ≥ ‖δq‖₂, ρ_k,j likewise, ρ_v,d = γ_P·max_j A_v,jd.
+//      Each head output O_c comes back as a double-double Õ_c = hi + lo with
+//      a certified B_c ≥ |Õ_c − O_c|. A row the kernel cannot finish is
+//      recomputed by BlockRows in MPFR on the same double-double inputs
+//      (mp_row.h with γ' = γ_P + 2^-127: the inputs converted to p ≥ 128
+//      bits err by ≤ 2^-128|Q̃| more; the result is taken back as a
+//      double-double within 2^-105|hi| + 2^-1074 more, added to B_c).
+//  (3) Y_tm = Σ_c O_c·W_o,cm + b_o,m by the weighted sums again, weights
+//      Õ_c = hi + lo (normalised) and 1: with C = Hq·Dv, n = C + 1 terms,
+//      G = Σ_c |hi_c||W_o,cm| + |b_o,m| ≤ Ĝ(1 + 2^-49), the exact terms
+//      Õ_c·W_o,cm summing in absolute value to ≤ (1+u)G,
+//        |Ŷ − Y| ≤ P + n(4B+8)u²(1 + 2^-38)(1+u)(1 + 2^-49)·Ĝ + n·2^-1071,
+//      P = Σ_c B_c|W_o,cm| the propagated head errors — first bounded by
+//      ‖B_t‖₂‖W_o[:, m]‖₂ (Cauchy–Schwarz), summed exactly where that misses.
+//      The magnitude Σ_c |O_c||W_o,cm| + |b_o,m| (reference.h) is reported as
+//      Ĝ; it is at least Ĝ(1 − 2^-49)(1 − u) − P (|O_c| ≥ |hi_c|(1 − u) − B_c),
+//      and the element is certified when its bound is within 2^target of that.
+// Escalation: a row of Y with an element that misses has its head rows
+// recomputed in MPFR to a target lowered by the shortfall (plus 4 bits), and
+// is formed again; if it still misses (the projections' γ_P then dominates:
+// huge activations, values that cancel), the batch is redone whole on the
+// multiprecision path by the caller, projections included.
+#include "fast_block.h"
+
+#include <algorithm>
+#include <cmath>
+#include <limits>
+#include <memory>
+#include <vector>
+
+#include "block_source.h"
+#include "bound_arith.h"
+#include "fast_core.h"
+#include "fast_row.h"
+#include "input_check.h"
+#include "mp_arith.h"
+#include "mp_core.h"
+#include "mp_row.h"
+#include "parallel.h"
+
+namespace headroom::detail {
+namespace {
+
+constexpr double kU = 0x1p-53;
+constexpr double kU2 = 0x1p-106;
+constexpr double kNaN = std::numeric_limits<double>::quiet_NaN();
+constexpr double kAbsFloor = 0x1p-950;
+constexpr long kMaxRowPrecision = 1024;  // past it the projections' γ_P dominates: redo the batch
+
+// Returns: an upper bound of n(4B+8)u²(1 + 2^-38), the weighted sums' relative error for n terms.
+double weighted_error(std::int64_t n) {
+  return mul_up(mul_up(static_cast<double>(n), static_cast<double>(4 * kRenormEvery + 8)), mul_up(kU2, 1.0 + 0x1p-38));
+}
+
+// A matrix W [n − 1, cols] and a bias row (zeros when absent) as the kernel's values.
+struct Operand {
+  std::vector<double> vp;  // [n, pad]
+  std::vector<std::int64_t> keys;
+  std::int64_t n = 0, cols = 0, pad = 0;
+};
+
+Operand operand(const Tensor& w, const Tensor& bias) {
+  Operand m;
+  m.cols = w.shape[1];
+  m.n = w.shape[0] + 1;
+  m.pad = (m.cols + kLanes - 1) / kLanes * kLanes;
+  m.vp.assign(static_cast<std::size_t>(m.n * m.pad), 0.0);
+  for (std::int64_t r = 0; r < m.n; ++r)
+    for (std::int64_t c = 0; c < m.cols; ++c) {
+      const bool last = r == m.n - 1;
+      if (last && bias.values.empty()) continue;
+      m.vp[static_cast<std::size_t>(r * m.pad + c)] =
+          last ? bias.values[static_cast<std::size_t>(c)] : w.values[static_cast<std::size_t>(r * m.cols + c)];
+    }
+  m.keys.resize(static_cast<std::size_t>(m.n));
+  for (std::int64_t r = 0; r < m.n; ++r) m.keys[static_cast<std::size_t>(r)] = r;
+  return m;
+}
+
+// Scratch for kMaxGroup rows of weighted sums.
+struct SumScratch {
+  std::vector<double> w_hi[kMaxGroup], w_lo[kMaxGroup], acc[kMaxGroup];
+  FastRowArgs args[kMaxGroup];
+
+  void bind(const Operand& m, int r) {
+    const auto n_pad = static_cast<std::size_t>((m.n + kLanes - 1) / kLanes * kLanes);
+    w_hi[r].assign(n_pad, 0.0);
+    w_lo[r].assign(n_pad, 0.0);
+    acc[r].resize(static_cast<std::size_t>(4 * m.pad));
+    FastRowArgs& a = args[r];
+    a = FastRowArgs{};
+    a.vp = m.vp.data();
+    a.keys = m.keys.data();
+    a.n = m.n;
+    a.dv = m.cols;
+    a.dv_pad = m.pad;
+    a.w_hi = w_hi[r].data();
+    a.w_lo = w_lo[r].data();
+    a.acc = acc[r].data();
+  }
+  double h(int r, std::int64_t c) const { return acc[r][static_cast<std::size_t>(c)]; }
+  double l(int r, std::int64_t c, std::int64_t pad) const { return acc[r][static_cast<std::size_t>(pad + c)]; }
+  double g(int r, std::int64_t c, std::int64_t pad) const {
+    return acc[r][static_cast<std::size_t>(2 * pad + c)] + acc[r][static_cast<std::size_t>(3 * pad + c)];
+  }
+};
+
+inline void two_sum(double a, double b, double& s, double& e) {
+  s = a + b;
+  const double bb = s - a;
+  e = (a - (s - bb)) + (b - bb);
+}
+
+// (1) X·W + b for every row of x ([B, T, Dm]) as double-doubles and bounds A_up.
+struct Projection {
+  std::vector<double> hi, lo, a;  // [B·T, cols]
+  std::int64_t cols = 0;
+};
+
+Projection project(const FastKernels& kr, const Tensor& x, const Tensor& w, const Tensor& bias, unsigned workers) {
+  const Operand m = operand(w, bias);
+  const std::int64_t rows = x.shape[0] * x.shape[1], dm = x.shape[2];
+  Projection out;
+  out.cols = m.cols;
+  out.hi.resize(static_cast<std::size_t>(rows * m.cols));
+  out.lo.resize(out.hi.size());
+  out.a.resize(out.hi.size());
+  std::vector<SumScratch> scratch(workers);
+  const std::int64_t groups = (rows + kMaxGroup - 1) / kMaxGroup;
+  parallel_for(groups, workers, [&](std::int64_t grp, unsigned wk) {
+    SumScratch& sc = scratch[wk];
+    const int count = static_cast<int>(std::min<std::int64_t>(kMaxGroup, rows - grp * kMaxGroup));
+    for (int r = 0; r < count; ++r) {
+      sc.bind(m, r);
+      const double* xr = &x.values[static_cast<std::size_t>((grp * kMaxGroup + r) * dm)];
+      std::copy(xr, xr + dm, sc.w_hi[r].begin());
+      sc.w_hi[r][static_cast<std::size_t>(dm)] = 1.0;
+    }
+    kr.weighted(sc.args, count);
+    for (int r = 0; r < count; ++r)
+      for (std::int64_t c = 0; c < m.cols; ++c) {
+        const auto at = static_cast<std::size_t>((grp * kMaxGroup + r) * m.cols + c);
+        two_sum(sc.h(r, c), sc.l(r, c, m.pad), out.hi[at], out.lo[at]);
+        out.a[at] = add_up(mul_up(sc.g(r, c, m.pad), 1.0 + 0x1p-49), kAbsFloor);
+      }
+  });
+  return out;
+}
+
+// Core attention rows in MPFR on the double-double inputs (stage (2)); the
+// target can be lowered for a row of Y that needs tighter head outputs.
+class BlockRows final : public RowRecompute {
+ public:
+  using Num = MpfrArith::Num;
+  BlockRows(const CoreProblem& p, const CoreInputs& hi, const WideCoreInputs& wide, const std::vector<double>& aq,
+            const std::vector<double>& ak, const std::vector<double>& av, double gamma_in, int target)
+      : target_log2(target), p_(p), hi_(hi), wide_(wide), aq_(aq), ak_(ak), av_(av), gin_(gamma_in) {}
+
+  int target_log2;  // the row target, lowered by the caller for a row of Y that needs it
+  std::int64_t elements = 0;
+  long max_precision = 0;
+
+  bool run(std::int64_t row, CoreReference& ref, const std::uint8_t* want, bool with_lse) override {
+    const CoreShape& s = p_.shape;
+    const std::int64_t i = row % s.q_len, h = (row / s.q_len) % s.q_heads, b = row / (s.q_len * s.q_heads);
+    const std::int64_t g = kv_head_of(s, h), dk = s.key_dim, dv = s.value_dim;
+    visible_keys(s, p_.mask, b, h, i, keys_, bias_);
+    const auto n = static_cast<std::int64_t>(keys_.size());
+    if (n == 0) {
+      write_fully_masked(row, ref);
+      return true;
+    }
+    const auto qat = static_cast<std::size_t>(hi_.q.offset(b, h, i, 0));
+    const auto kat = static_cast<std::size_t>(hi_.k.offset(b, g, 0, 0));
+    const auto vat = static_cast<std::size_t>(hi_.v.offset(b, g, 0, 0));
+    const double* aq = &aq_[qat];
+    const double* ak = &ak_[kat];
+    // Prepass in double: Ā_j, and rough scores that only steer the precision (as mp_core.cpp).
+    abs_dot_.resize(static_cast<std::size_t>(s.kv_len));
+    double a_max = 0, z_max = -kInf, z_min = kInf;
+    for (std::int64_t idx = 0; idx < n; ++idx) {
+      const std::int64_t j = keys_[static_cast<std::size_t>(idx)];
+      double a = 0, z = 0;
+      for (std::int64_t c = 0; c < dk; ++c) {
+        a += aq[c] * ak[j * dk + c];
+        z += hi_.q.values[qat + static_cast<std::size_t>(c)] * hi_.k.values[kat + static_cast<std::size_t>(j * dk + c)];
+      }
+      abs_dot_[static_cast<std::size_t>(j)] = nonneg_sum_up(a, 2 * dk);
+      const double beta = bias_.empty() ? 0.0 : bias_[static_cast<std::size_t>(idx)];
+      z = p_.scale * z + beta;
+      a_max = std::max(a_max, std::fabs(p_.scale) * abs_dot_[static_cast<std::size_t>(j)] + std::fabs(beta));
+      z_max = std::max(z_max, z);
+      z_min = std::min(z_min, z);
+    }
+    const double r = 2.0 * static_cast<double>(dk + 3) * a_max + 2.0 * (z_max - z_min) + 2.0 * static_cast<double>(n) + 8;
+    long prec = a_priori_precision(target_log2, r, kMaxRowPrecision);
+
+    RowSpec spec;
+    spec.keys = keys_.data();
+    spec.bias = bias_.empty() ? nullptr : bias_.data();
+    spec.n = n;
+    spec.scale = p_.scale;
+    spec.target_log2 = target_log2;
+    for (;;) {
+      const MpfrArith ar(prec);
+      max_precision = std::max(max_precision, prec);
+      load(ar, q_, qat, dk, 1, nullptr, hi_.q, wide_.q_lo);
+      load(ar, k_, kat, dk, s.kv_len, &keys_, hi_.k, wide_.k_lo);
+      load(ar, v_, vat, dv, s.kv_len, &keys_, hi_.v, wide_.v_lo);
+      keep_.resize(static_cast<std::size_t>(dv));
+      const BlockSource<MpfrArith> src{q_.data(), aq, k_.data(), ak, dk, v_.data(), &av_[vat], dv, dk, dv, gin_,
+                                       abs_dot_.data()};
+      RowOut<Num> o;
+      const auto at = static_cast<std::size_t>(row * dv);
+      o.out = &ref.out.values[at];
+      o.bound = &ref.bound.values[at];
+      o.magnitude = &ref.magnitude.values[at];
+      if (with_lse) {
+        o.lse = &ref.lse.values[static_cast<std::size_t>(row)];
+        o.lse_bound = &ref.lse_bound.values[static_cast<std::size_t>(row)];
+      }
+      o.want = want;
+      o.keep = keep_.data();
+      const RowVerdict verdict = mp_row(ar, ws_, src, spec, o);
+      if (verdict.certified || prec >= kMaxRowPrecision) {
+        for (std::int64_t d = 0; d < dv; ++d) {
+          if (want != nullptr && want[d] == 0) continue;
+          ++elements;
+          // keep − hi is exact at p bits (|keep − hi| ≤ ½ulp₅₃(hi)); lo = RN of it.
+          const double hi = ref.out.values[at + static_cast<std::size_t>(d)];
+          mpfr_sub_d(MpfrArith::raw(keep_[static_cast<std::size_t>(d)]), MpfrArith::raw(keep_[static_cast<std::size_t>(d)]),
+                     hi, MPFR_RNDN);
+          wide_.out_lo[at + static_cast<std::size_t>(d)] = ar.nearest(keep_[static_cast<std::size_t>(d)]);
+          double& bound = ref.bound.values[at + static_cast<std::size_t>(d)];
+          bound = add_up(bound, add_up(mul_up(0x1p-105, std::fabs(hi)), 0x1p-1074));
+        }
+        return verdict.certified;
+      }
+      prec = next_precision(prec, verdict.worst_excess, kMaxRowPrecision);
+    }
+  }
+
+ private:
+  // Sets dst's rows (row 0 when `keys` is null, else the rows in keys) of
+  // `cols` values, hi and lo read from `at` with row stride cols, to hi + lo
+  // at the arithmetic's precision.
+  static void load(const MpfrArith& ar, std::vector<Num>& dst, std::size_t at, std::int64_t cols, std::int64_t rows,
+                   const std::vector<std::int64_t>* keys, const Tensor& hi, const Tensor& lo) {
+    if (dst.size() < static_cast<std::size_t>(rows * cols)) dst.resize(static_cast<std::size_t>(rows * cols));
+    auto one = [&](std::int64_t j) {
+      for (std::int64_t c = 0; c < cols; ++c) {
+        const auto e = static_cast<std::size_t>(j * cols + c);
+        ar.init(dst[e]);
+        ar.set_d(dst[e], hi.values[at + e]);
+        ar.add_d(dst[e], lo.values[at + e]);
+      }
+    };
+    if (keys == nullptr) one(0);
+    else for (const std::int64_t j : *keys) one(j);
+  }
+
+  const CoreProblem& p_;
+  const CoreInputs& hi_;
+  const WideCoreInputs& wide_;
+  const std::vector<double>&aq_, &ak_, &av_;
+  double gin_;
+  MpWorkspace<MpfrArith> ws_;
+  std::vector<Num> q_, k_, v_, keep_;
+  std::vector<std::int64_t> keys_;
+  std::vector<double> bias_, abs_dot_;
+};
+
+// Copies a projection [B·T, H·D] into the core layout [B, H, T, D] (hi, lo, a).
+void to_core(const Projection& pr, std::int64_t batch, std::int64_t len, std::int64_t heads, std::int64_t dim,
+             Tensor& hi, Tensor& lo, std::vector<double>& a) {
+  hi = Tensor({batch, heads, len, dim});
+  lo = Tensor(hi.shape);
+  a.resize(hi.values.size());
+  for (std::int64_t b = 0; b < batch; ++b)
+    for (std::int64_t h = 0; h < heads; ++h)
+      for (std::int64_t t = 0; t < len; ++t)
+        for (std::int64_t e = 0; e < dim; ++e) {
+          const auto from = static_cast<std::size_t>((b * len + t) * pr.cols + h * dim + e);
+          const auto to = static_cast<std::size_t>(hi.offset(b, h, t, e));
+          hi.values[to] = pr.hi[from];
+          lo.values[to] = pr.lo[from];
+          a[to] = pr.a[from];
+        }
+}
+
+struct Worker {
+  std::unique_ptr<BlockRows> mp;
+  FastCore::Scratch core;
+  SumScratch sums;
+  ReferenceStats stats;
+};
+
+// The output projection of one batch's rows of Y (stage (3)).
+class OutputStage {
+ public:
+  OutputStage(const BlockProblem& p, const BlockInputs& in, const ReferenceOptions& opt, const FastKernels& kr,
+              const CoreReference& cref, const std::vector<double>& out_lo, BlockReference& ref)
+      : p_(p), opt_(opt), kr_(kr), cref_(cref), out_lo_(out_lo), ref_(ref), m_(operand(in.w_o, in.b_o)) {
+    const std::int64_t dm = p.shape.model_dim, cat = m_.n - 1;
+    col_norm_.resize(static_cast<std::size_t>(dm));
+    for (std::int64_t m = 0; m < dm; ++m)
+      col_norm_[static_cast<std::size_t>(m)] = norm_up(&in.w_o.values[static_cast<std::size_t>(m)], cat, dm);
+    w_o_ = &in.w_o;
+    g_y_ = mul_up(mul_up(weighted_error(m_.n), 1.0 + kU), 1.0 + 0x1p-49);
+    slack_ = mul_up(static_cast<double>(m_.n), 0x1p-1071);
+  }
+
+  /// Returns: whether any head row of Y row (b, t) is fully masked.
+  bool masked(std::int64_t b, std::int64_t t) const {
+    const BlockShape& s = p_.shape;
+    for (std::int64_t h = 0; h < s.q_heads; ++h)
+      if (cref_.fully_masked[static_cast<std::size_t>((b * s.q_heads + h) * s.q_len + t)] != 0) return true;
+    return false;
+  }
+
+  /// Forms rows y[0..count) (each b·Tq + t, none fully masked) into ref_.
+  /// Returns (in excess[r]): the worst bound/allowed of each row (≤ 1: certified).
+  void rows(const std::int64_t* y, int count, SumScratch& sc, double* excess) {
+    const BlockShape& s = p_.shape;
+    const std::int64_t dv = s.value_dim, cat = m_.n - 1;
+    double b_norm[kMaxGroup];
+    for (int r = 0; r < count; ++r) {
+      sc.bind(m_, r);
+      const std::int64_t b = y[r] / s.q_len, t = y[r] % s.q_len;
+      for (std::int64_t h = 0; h < s.q_heads; ++h) {
+        const auto at = static_cast<std::size_t>(((b * s.q_heads + h) * s.q_len + t) * dv);
+        for (std::int64_t d = 0; d < dv; ++d) {
+          sc.w_hi[r][static_cast<std::size_t>(h * dv + d)] = cref_.out.values[at + static_cast<std::size_t>(d)];
+          sc.w_lo[r][static_cast<std::size_t>(h * dv + d)] = out_lo_[at + static_cast<std::size_t>(d)];
+        }
+      }
+      sc.w_hi[r][static_cast<std::size_t>(cat)] = 1.0;
+      b_norm[r] = head_bound_norm(b, t);
+    }
+    kr_.weighted(sc.args, count);
+    const double allowed_rel = std::ldexp(1.0, opt_.target_log2);
+    for (int r = 0; r < count; ++r) {
+      excess[r] = 0;
+      const std::int64_t b = y[r] / s.q_len, t = y[r] % s.q_len;
+      for (std::int64_t m = 0; m < s.model_dim; ++m) {
+        const auto at = static_cast<std::size_t>(ref_.out.offset(b, t, m));
+        double hi = 0, lo = 0;
+        two_sum(sc.h(r, m), sc.l(r, m, m_.pad), hi, lo);
+        const double g = sc.g(r, m, m_.pad);
+        double prop = mul_up(b_norm[r], col_norm_[static_cast<std::size_t>(m)]);
+        auto judge = [&] {
+          const double bound = add_up(add_up(prop, mul_up(g_y_, g)), slack_);
+          const double low = sub_down(mul_down(g, (1.0 - 0x1p-49) * (1.0 - kU)), prop);
+          ref_.bound.values[at] = bound;
+          const double allowed = mul_down(allowed_rel, low);
+          const double e = allowed > 0 ? bound / allowed : kInf;
+          return std::isnan(e) ? kInf : e;
+        };
+        double e = judge();
+        if (e > 1) {  // Cauchy–Schwarz was too coarse: the exact sum Σ_c B_c|W_o,cm|
+          prop = exact_prop(b, t, m);
+          e = judge();
+        }
+        ref_.out.values[at] = hi;
+        ref_.magnitude.values[at] = g;
+        excess[r] = std::max(excess[r], e);
+      }
+    }
+  }
+
+  void write_masked(std::int64_t b, std::int64_t t) {
+    for (std::int64_t m = 0; m < p_.shape.model_dim; ++m) {
+      const auto at = static_cast<std::size_t>(ref_.out.offset(b, t, m));
+      ref_.out.values[at] = ref_.bound.values[at] = ref_.magnitude.values[at] = kNaN;
+    }
+  }
+
+ private:
+  double head_bound_norm(std::int64_t b, std::int64_t t) const {
+    const BlockShape& s = p_.shape;
+    double sum = 0;
+    for (std::int64_t h = 0; h < s.q_heads; ++h) {
+      const auto at = static_cast<std::size_t>(((b * s.q_heads + h) * s.q_len + t) * s.value_dim);
+      for (std::int64_t d = 0; d < s.value_dim; ++d) {
+        const double x = cref_.bound.values[at + static_cast<std::size_t>(d)];
+        sum += x * x;
+      }
+    }
+    return std::nextafter(std::sqrt(nonneg_sum_up(sum, 2 * s.q_heads * s.value_dim)), kInf);
+  }
+  double exact_prop(std::int64_t b, std::int64_t t, std::int64_t m) const {
+    const BlockShape& s = p_.shape;
+    double sum = 0;
+    for (std::int64_t h = 0; h < s.q_heads; ++h) {
+      const auto at = static_cast<std::size_t>(((b * s.q_heads + h) * s.q_len + t) * s.value_dim);
+      for (std::int64_t d = 0; d < s.value_dim; ++d)
+        sum += cref_.bound.values[at + static_cast<std::size_t>(d)] *
+               std::fabs(w_o_->values[static_cast<std::size_t>((h * s.value_dim + d) * s.model_dim + m)]);
+    }
+    return nonneg_sum_up(sum, 2 * s.q_heads * s.value_dim);
+  }
+
+  const BlockProblem& p_;
+  const ReferenceOptions& opt_;
+  const FastKernels& kr_;
+  const CoreReference& cref_;
+  const std::vector<double>& out_lo_;
+  BlockReference& ref_;
+  const Tensor* w_o_ = nullptr;
+  Operand m_;
+  std::vector<double> col_norm_;
+  double g_y_ = 0, slack_ = 0;
+};
+
+}  // namespace
+
+std::vector<std::uint8_t> fast_block(const BlockProblem& p, const BlockInputs& in, const ReferenceOptions& opt,
+                                     BlockReference& ref) {
+  const BlockShape& s = p.shape;
+  const FastKernels& kr = fast_kernels();
+  const std::int64_t items = std::max(s.q_len, s.kv_len) * s.batch * s.q_heads;
+  const unsigned workers = worker_count(items, opt.threads);
+
+  // (1) projections, in the core layout, with radii.
+  CoreProblem cp;
+  cp.shape = s.core();
+  cp.scale = p.scale;
+  cp.mask = p.mask;
+  CoreInputs hi;
+  WideCoreInputs wide;
+  std::vector<double> aq, ak, av;
+  to_core(project(kr, in.x_q, in.w_q, in.b_q, workers), s.batch, s.q_len, s.q_heads, s.key_dim, hi.q, wide.q_lo, aq);
+  to_core(project(kr, in.x_kv, in.w_k, in.b_k, workers), s.batch, s.kv_len, s.kv_heads, s.key_dim, hi.k, wide.k_lo, ak);
+  to_core(project(kr, in.x_kv, in.w_v, in.b_v, workers), s.batch, s.kv_len, s.kv_heads, s.value_dim, hi.v, wide.v_lo,
+          av);
+  const double gamma_p = weighted_error(s.model_dim + 1);
+  auto radii = [&](const std::vector<double>& a, std::int64_t rows, std::int64_t dim, std::vector<double>& rad) {
+    rad.resize(static_cast<std::size_t>(rows));
+    for (std::int64_t r = 0; r < rows; ++r) rad[static_cast<std::size_t>(r)] = mul_up(gamma_p, norm_up(&a[static_cast<std::size_t>(r * dim)], dim));
+  };
+  radii(aq, s.batch * s.q_heads * s.q_len, s.key_dim, wide.q_rad);
+  radii(ak, s.batch * s.kv_heads * s.kv_len, s.key_dim, wide.k_rad);
+  wide.v_rad.assign(static_cast<std::size_t>(s.batch * s.kv_heads * s.value_dim), 0.0);
+  for (std::int64_t bg = 0; bg < s.batch * s.kv_heads; ++bg)
+    for (std::int64_t j = 0; j < s.kv_len; ++j)
+      for (std::int64_t d = 0; d < s.value_dim; ++d) {
+        double& r = wide.v_rad[static_cast<std::size_t>(bg * s.value_dim + d)];
+        r = std::max(r, mul_up(gamma_p, av[static_cast<std::size_t>((bg * s.kv_len + j) * s.value_dim + d)]));
+      }
+
+  // (2) core attention, wide.
+  const std::int64_t core_rows = s.batch * s.q_heads * s.q_len;
+  CoreReference cref;
+  cref.out = Tensor({s.batch, s.q_heads, s.q_len, s.value_dim});
+  cref.bound = Tensor(cref.out.shape);
+  cref.magnitude = Tensor(cref.out.shape);
+  cref.lse = Tensor({s.batch, s.q_heads, s.q_len});
+  cref.lse_bound = Tensor(cref.lse.shape);
+  cref.fully_masked.assign(static_cast<std::size_t>(core_rows), 0);
+  std::vector<double> out_lo(cref.out.values.size(), 0.0);
+  wide.out_lo = out_lo.data();
+  const FastCore core(cp, hi, opt, workers, &kr, &wide);
+  std::vector<Worker> pool(workers);
+  const double gamma_in = add_up(gamma_p, 0x1p-127);
+  auto mp_of = [&](unsigned w) -> BlockRows& {
+    if (!pool[w].mp) pool[w].mp = std::make_unique<BlockRows>(cp, hi, wide, aq, ak, av, gamma_in, opt.target_log2);
+    return *pool[w].mp;
+  };
+  parallel_for(core.groups(), workers, [&](std::int64_t group, unsigned w) {
+    core.run_group(group, cref, pool[w].core, mp_of(w), pool[w].stats);
+  });
+
+  // (3) output projection, rows of Y in groups; escalation per row.
+  OutputStage stage(p, in, opt, kr, cref, out_lo, ref);
+  const std::int64_t y_rows = s.batch * s.q_len;
+  std::vector<std::uint8_t> row_ok(static_cast<std::size_t>(y_rows), 1);
+  std::vector<std::int64_t> escalated(static_cast<std::size_t>(y_rows), 0);
+  parallel_for((y_rows + kMaxGroup - 1) / kMaxGroup, workers, [&](std::int64_t grp, unsigned w) {
+    std::int64_t live[kMaxGroup];
+    int count = 0;
+    for (std::int64_t y = grp * kMaxGroup; y < std::min(y_rows, (grp + 1) * kMaxGroup); ++y) {
+      if (stage.masked(y / s.q_len, y % s.q_len)) stage.write_masked(y / s.q_len, y % s.q_len);
+      else live[count++] = y;
+    }
+    if (count == 0) return;
+    double excess[kMaxGroup];
+    stage.rows(live, count, pool[w].sums, excess);
+    for (int r = 0; r < count; ++r) {
+      if (excess[r] <= 1) continue;
+      // Tighter head outputs for this row, then the row again.
+      BlockRows& mp = mp_of(w);
+      const std::int64_t y = live[r], b = y / s.q_len, t = y % s.q_len;
+      escalated[static_cast<std::size_t>(y)] = 1;
+      const double lower = std::isfinite(excess[r]) ? std::ceil(std::log2(excess[r])) + 4 : 1e9;
+      bool ok = lower < 400;
+      if (ok) {
+        mp.target_log2 = opt.target_log2 - static_cast<int>(lower);
+        for (std::int64_t h = 0; h < s.q_heads && ok; ++h) ok = mp.run((b * s.q_heads + h) * s.q_len + t, cref, nullptr, false);
+        mp.target_log2 = opt.target_log2;
+      }
+      if (ok) {
+        double again = 0;
+        stage.rows(&live[r], 1, pool[w].sums, &again);
+        ok = again <= 1;
+      }
+      row_ok[static_cast<std::size_t>(y)] = ok ? 1 : 0;
+    }
+  });
+
+  std::vector<std::uint8_t> batch_ok(static_cast<std::size_t>(s.batch), 1);
+  for (std::int64_t y = 0; y < y_rows; ++y) {
+    if (row_ok[static_cast<std::size_t>(y)] == 0) batch_ok[static_cast<std::size_t>(y / s.q_len)] = 0;
+    if (!stage.masked(y / s.q_len, y % s.q_len)) ++ref.stats.rows;
+    ref.stats.escalated_rows += escalated[static_cast<std::size_t>(y)];
+  }
+  ref.fully_masked = cref.fully_masked;
+  for (const Worker& w : pool) {
+    if (!w.mp) continue;
+    ref.stats.escalated_elements += w.mp->elements;
+    ref.stats.max_precision = std::max(ref.stats.max_precision, w.mp->max_precision);
+  }
+  return batch_ok;
+}
+
+}  // namespace headroom::detail
