@@ -30,6 +30,7 @@ const hr_kernel bf16_f32acc = {
     .max_kv_len = 0,
     .run_core = run,
     .run_block = nullptr,
+    .features = HR_FEATURE_WINDOW,  // MaskView(*p) applies the sliding window
 };
 
 }  // namespace hr_kernels

@@ -33,6 +33,8 @@ const hr_bundled_kernel kTable[] = {
     {&crash_one_token, 1, "crash", "score buffer is null when Tk == 1: SIGSEGV on the first row"},
     {&f16_late_scale, 1, "non_finite",
      "binary16 QK^T formed before the scale: raw dot overflows 65504 while the logit is in range"},
+    {&window_off_by_one, 1, "mask_leak",
+     "sliding window tested as j >= i' - left - 1: one key left of the window attended"},
     {nullptr, 0, nullptr, nullptr},  // sentinel, not counted
 };
 

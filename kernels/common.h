@@ -91,10 +91,15 @@ inline bool formats_are(const hr_core_problem& p, std::int32_t in, std::int32_t 
   return p.q.format == in && p.k.format == in && p.v.format == in && p.o.format == out;
 }
 
-/// The mask of one problem, with the lengths it applies to.
+/// The mask of one problem, with the lengths it applies to, and (for a kernel
+/// declaring HR_FEATURE_WINDOW) its sliding window.
 class MaskView {
  public:
   MaskView(const hr_mask& m, std::int64_t q_len, std::int64_t kv_len) : m_(m), q_len_(q_len), kv_len_(kv_len) {}
+  /// The mask and window of `p` (kernel_abi.h version 2: window_left/right, −1 open).
+  explicit MaskView(const hr_core_problem& p) : m_(p.mask), q_len_(p.q_len), kv_len_(p.kv_len) {
+    if (p.features & HR_FEATURE_WINDOW) window_left_ = p.window_left, window_right_ = p.window_right;
+  }
 
   /// Returns: whether the kind is one of the six of kernel_abi.h.
   bool known() const { return (m_.kind & kAllMasks) != 0 && (m_.kind & (m_.kind - 1)) == 0; }
@@ -107,26 +112,31 @@ class MaskView {
   /// b, in [0, Tk]; Tk for dense and bias. Causal bounds from kernel_abi.h:
   /// top-left j ≤ i, bottom-right j ≤ i + (Tk − Tq).
   std::int64_t key_end(std::int64_t b, std::int64_t i) const {
+    std::int64_t end = kv_len_;
     switch (m_.kind) {
-      case HR_MASK_CAUSAL_TOP_LEFT:
-        return std::clamp<std::int64_t>(i + 1, 0, kv_len_);
-      case HR_MASK_CAUSAL_BOTTOM_RIGHT:
-        return std::clamp<std::int64_t>(i + 1 + kv_len_ - q_len_, 0, kv_len_);
-      case HR_MASK_KEY_PADDING:
-        return std::clamp<std::int64_t>(m_.key_lengths[b], 0, kv_len_);
-      default:
-        return kv_len_;
+      case HR_MASK_CAUSAL_TOP_LEFT: end = i + 1; break;
+      case HR_MASK_CAUSAL_BOTTOM_RIGHT: end = i + 1 + kv_len_ - q_len_; break;
+      case HR_MASK_KEY_PADDING: end = m_.key_lengths[b]; break;
+      default: break;
     }
+    if (window_right_ >= 0) end = std::min(end, window_at(i) + window_right_ + 1);
+    return std::clamp<std::int64_t>(end, 0, kv_len_);
+  }
+
+  /// Returns: the first key the window lets query i see (0 without a left side).
+  std::int64_t key_begin(std::int64_t i) const {
+    return window_left_ < 0 ? 0 : std::clamp<std::int64_t>(window_at(i) - window_left_, 0, kv_len_);
   }
 
   /// Returns: whether key j is visible to query i of head h in batch b. A bias
   /// of −inf masks (kernel_abi.h, HR_MASK_BIAS).
   bool visible(std::int64_t b, std::int64_t h, std::int64_t i, std::int64_t j) const {
+    if (j < key_begin(i)) return false;
     switch (m_.kind) {
       case HR_MASK_DENSE:
-        return m_.allowed[mask_offset(b, h, i, j)] != 0;
+        return j < key_end(b, i) && m_.allowed[mask_offset(b, h, i, j)] != 0;
       case HR_MASK_BIAS:
-        return m_.bias[mask_offset(b, h, i, j)] != kNegInf;
+        return j < key_end(b, i) && m_.bias[mask_offset(b, h, i, j)] != kNegInf;
       default:
         return j < key_end(b, i);
     }
@@ -138,6 +148,12 @@ class MaskView {
   }
 
  private:
+  // The query's position on the key axis for the window (kernel_abi.h):
+  // i under causal top-left, i + Tk − Tq otherwise.
+  std::int64_t window_at(std::int64_t i) const {
+    return m_.kind == HR_MASK_CAUSAL_TOP_LEFT ? i : i + kv_len_ - q_len_;
+  }
+
   // The dense/bias tensor may have extent 1 on the head axis (one mask for all
   // heads), and any axis of extent 1 broadcasts whatever its stride says.
   std::int64_t mask_offset(std::int64_t b, std::int64_t h, std::int64_t i, std::int64_t j) const {
@@ -147,6 +163,7 @@ class MaskView {
 
   const hr_mask& m_;
   std::int64_t q_len_, kv_len_;
+  std::int64_t window_left_ = -1, window_right_ = -1;
 };
 
 /// Returns: where the log-sum-exp of row (b, h, i) goes, or nullptr when the

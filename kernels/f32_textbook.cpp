@@ -17,7 +17,7 @@ namespace hr_kernels {
 namespace {
 
 std::int32_t run(const hr_core_problem* p) {
-  const MaskView mask(p->mask, p->q_len, p->kv_len);
+  const MaskView mask(*p);
   if (!formats_are(*p, HR_FORMAT_FLOAT32, HR_FORMAT_FLOAT32) || !mask.known()) return HR_UNSUPPORTED;
   std::vector<float> q(p->key_dim), k(p->key_dim), v(p->value_dim), z(p->kv_len), acc(p->value_dim);
   for (std::int64_t b = 0; b < p->batch; ++b) {
@@ -72,6 +72,7 @@ const hr_kernel f32_textbook = {
     .max_kv_len = 0,
     .run_core = run,
     .run_block = nullptr,
+    .features = HR_FEATURE_WINDOW,  // MaskView(*p) applies the sliding window
 };
 
 }  // namespace hr_kernels

@@ -21,7 +21,7 @@ namespace {
 
 template <std::int64_t kTile>
 std::int32_t run(const hr_core_problem* p) {
-  const MaskView mask(p->mask, p->q_len, p->kv_len);
+  const MaskView mask(*p);
   if (!formats_are(*p, HR_FORMAT_FLOAT32, HR_FORMAT_FLOAT32) || !mask.known()) return HR_UNSUPPORTED;
   const std::int64_t dk = p->key_dim, dv = p->value_dim;
   std::vector<float> q(kTile * dk), k(kTile * dk), v(kTile * dv), s(kTile * kTile);
@@ -101,6 +101,7 @@ constexpr hr_kernel declare(const char* name, const char* description, std::int3
       .max_kv_len = 0,
       .run_core = fn,
       .run_block = nullptr,
+      .features = HR_FEATURE_WINDOW,  // MaskView(*p): key_end includes the window's right side
   };
 }
 

@@ -19,7 +19,7 @@ namespace hr_kernels {
 namespace {
 
 std::int32_t run(const hr_core_problem* p) {
-  const MaskView mask(p->mask, p->q_len, p->kv_len);
+  const MaskView mask(*p);
   if (!formats_are(*p, HR_FORMAT_FLOAT32, HR_FORMAT_FLOAT32) || !mask.known()) return HR_UNSUPPORTED;
   const std::int64_t group = p->q_heads / p->kv_heads, dk = p->key_dim, dv = p->value_dim;
   std::vector<float> q(group * dk), k(dk), v(dv), m(group), l(group), acc(group * dv);
@@ -87,6 +87,7 @@ const hr_kernel gqa_f32 = {
     .max_kv_len = 0,
     .run_core = run,
     .run_block = nullptr,
+    .features = HR_FEATURE_WINDOW,  // MaskView(*p) applies the sliding window
 };
 
 }  // namespace hr_kernels

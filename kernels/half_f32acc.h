@@ -28,7 +28,7 @@ namespace hr_kernels {
 /// the problem's formats or mask kind are not the declared ones.
 template <float (*round_p)(float)>
 std::int32_t run_half_f32acc(const hr_core_problem* p, std::int32_t format) {
-  const MaskView mask(p->mask, p->q_len, p->kv_len);
+  const MaskView mask(*p);
   if (!formats_are(*p, format, format) || !mask.known()) return HR_UNSUPPORTED;
   std::vector<float> q(p->key_dim), k(p->key_dim), v(p->value_dim), z(p->kv_len), acc(p->value_dim);
   for (std::int64_t b = 0; b < p->batch; ++b) {

@@ -37,7 +37,7 @@ float token_scale(const hr_tensor& t, std::int64_t b, std::int64_t h, std::int64
 }
 
 std::int32_t run(const hr_core_problem* p) {
-  const MaskView mask(p->mask, p->q_len, p->kv_len);
+  const MaskView mask(*p);
   const bool symmetric = p->q.zero_points == nullptr && p->k.zero_points == nullptr && p->v.zero_points == nullptr;
   if (!formats_are(*p, HR_FORMAT_INT8, HR_FORMAT_FLOAT32) || !mask.known() || !symmetric || p->kv_len > kMaxKvLen ||
       p->key_dim > kMaxKeyDim) {
@@ -105,6 +105,7 @@ const hr_kernel i8_tokenwise = {
     .max_kv_len = kMaxKvLen,
     .run_core = run,
     .run_block = nullptr,
+    .features = HR_FEATURE_WINDOW,  // MaskView(*p) applies the sliding window
 };
 
 }  // namespace hr_kernels

@@ -30,5 +30,6 @@ extern const hr_kernel block_heads_swapped;
 extern const hr_kernel hang_on_shape;
 extern const hr_kernel crash_one_token;
 extern const hr_kernel f16_late_scale;
+extern const hr_kernel window_off_by_one;
 
 }  // namespace hr_kernels

@@ -113,6 +113,8 @@ void expect_same_mask(const Mask& a, const Mask& b) {
   EXPECT_EQ(a.key_lengths, b.key_lengths);
   EXPECT_TRUE(bit_identical(a.allowed, b.allowed));
   EXPECT_TRUE(bit_identical(a.bias, b.bias));
+  EXPECT_EQ(a.window_left, b.window_left);
+  EXPECT_EQ(a.window_right, b.window_right);
 }
 
 void expect_same(const Case& a, const Case& b) {
@@ -188,6 +190,23 @@ TEST(CaseFolder, RoundTripsEverySourceFormatAndMaskKind) {
   int entries = 0;
   for ([[maybe_unused]] const auto& e : fs::directory_iterator(tmp.path())) ++entries;
   EXPECT_EQ(entries, 1);
+}
+
+TEST(CaseFolder, RoundTripsASlidingWindow) {
+  TempDir tmp;
+  Case c = core_case(Format::float32, MaskKind::causal_bottom_right);
+  c.core.mask.window_left = 3;
+  c.core.mask.window_right = 0;
+  write_case(c, tmp.path() / "w");
+  const Case back = read_case(tmp.path() / "w");
+  expect_same(back, c);
+  EXPECT_EQ(back.core.mask.window_left, 3);
+  EXPECT_EQ(back.core.mask.window_right, 0);
+  const std::string manifest = slurp(tmp.path() / "w" / "manifest.json");
+  EXPECT_NE(manifest.find("\"window\""), std::string::npos) << manifest;
+  // A case without a window writes no "window" key (older readers stay happy).
+  write_case(core_case(Format::float32, MaskKind::none), tmp.path() / "plain");
+  EXPECT_EQ(slurp(tmp.path() / "plain" / "manifest.json").find("window"), std::string::npos);
 }
 
 TEST(CaseFolder, RoundTripsABlockCaseWithSomeBiases) {
@@ -363,6 +382,9 @@ TEST(CaseFolder, RefusesBadManifests) {
       {[](json& j) { j["mask"]["kind"] = "causal"; }, "field \"mask.kind\"", "unknown mask kind"},
       {[](json& j) { j["mask"]["kind"] = "none"; }, "field \"mask.key_lengths\"", "key_lengths given"},
       {[](json& j) { j["source_format"] = "f32"; }, "field \"source_format\"", "unknown source format"},
+      {[](json& j) { j["mask"]["window"] = {{"left", -2}, {"right", -1}}; }, "field \"mask.window\"", "sides must be"},
+      {[](json& j) { j["mask"]["window"] = {{"left", 3}}; }, "field \"mask.window.right\"", "missing field"},
+      {[](json& j) { j["mask"]["window"] = {{"left", 3}, {"right", 0}, {"up", 1}}; }, "field \"mask.window.up\"", "unknown key"},
       {[](json& j) { j["source_format"] = "int8"; }, "field \"source_format\"", "unknown source format"},
       {[](json& j) { j["level"] = "layer"; }, "field \"level\"", "unknown level"},
       {[](json& j) { j["headroom_case"] = 2; }, "field \"headroom_case\"", "version 2"},

@@ -27,7 +27,7 @@ TEST(GenerateFamilies, ListedOnceWithDocsAndFound) {
     ASSERT_NE(found, nullptr) << f.name;
     EXPECT_EQ(found->name, f.name);
   }
-  EXPECT_EQ(names.size(), 17u);
+  EXPECT_EQ(names.size(), 18u);
   EXPECT_EQ(find_family("no_such_family"), nullptr);
   EXPECT_EQ(find_family("block_gaussian")->level, Level::block);
   EXPECT_EQ(find_family("gaussian")->level, Level::core);
@@ -77,11 +77,32 @@ TEST(GenerateValidity, EveryFamilyValidAcrossSeedsAndSizes) {
           }
         const float scale = c.level == Level::core ? c.core.scale : c.block.scale;
         EXPECT_TRUE(std::isfinite(scale) && scale > 0);
-        // Default sizes keep the reference quick: Tk ≤ 64 but for the two long families.
-        if (c.level == Level::core && f.name != "tile_edges" && f.name != "long_sequence") {
+        // Default sizes keep the reference quick: Tk ≤ 64 but for the long families
+        // (a sliding window needs rows longer than the window).
+        if (c.level == Level::core && f.name != "tile_edges" && f.name != "long_sequence" &&
+            f.name != "sliding_window") {
           EXPECT_LE(c.core.shape.kv_len, 64);
         }
       }
+}
+
+TEST(GenerateFamilies, SlidingWindowCasesCarryAWindowThatHidesKeys) {
+  int hiding = 0;
+  for (std::uint64_t seed = 0; seed < 20; ++seed) {
+    const Case c = make_case(request("sliding_window", seed, 100));
+    SCOPED_TRACE(c.name);
+    ASSERT_TRUE(c.core.mask.has_window());
+    // Count the cases where the window hides a key the mask kind alone shows.
+    Mask plain = c.core.mask;
+    plain.window_left = plain.window_right = -1;
+    const CoreShape& s = c.core.shape;
+    bool hides = false;
+    for (std::int64_t i = 0; i < s.q_len && !hides; ++i)
+      for (std::int64_t j = 0; j < s.kv_len && !hides; ++j)
+        hides = plain.visible(s, 0, 0, i, j) && !c.core.mask.visible(s, 0, 0, i, j);
+    hiding += hides;
+  }
+  EXPECT_GE(hiding, 10);
 }
 
 TEST(GenerateValidity, RequestedShapeAndMaskAreObeyed) {

@@ -95,6 +95,43 @@ TEST(CausalMask, AlignmentsDifferWhenLengthsDiffer) {
   }
 }
 
+// Sliding window (kernel_abi.h version 2): on top of the kind, key j is hidden
+// from query i when j < i' − L or j > i' + R, i' = i (top-left) or i + Tk − Tq.
+TEST(SlidingWindow, HidesExactlyTheKeysOutsideItsSides) {
+  const CoreShape s = shape_of(3, 9);
+  for (MaskKind kind : {MaskKind::none, MaskKind::causal_top_left, MaskKind::causal_bottom_right}) {
+    for (std::int64_t left : {-1, 0, 1, 4}) {
+      for (std::int64_t right : {-1, 0, 2}) {
+        Mask plain, windowed;
+        plain.kind = windowed.kind = kind;
+        windowed.window_left = left;
+        windowed.window_right = right;
+        for (std::int64_t i = 0; i < s.q_len; ++i) {
+          const std::int64_t at = kind == MaskKind::causal_top_left ? i : i + s.kv_len - s.q_len;
+          for (std::int64_t j = 0; j < s.kv_len; ++j) {
+            const bool inside = (left < 0 || j >= at - left) && (right < 0 || j <= at + right);
+            EXPECT_EQ(windowed.visible(s, 1, 2, i, j), plain.visible(s, 1, 2, i, j) && inside)
+                << mask_kind_name(kind) << " L=" << left << " R=" << right << " i=" << i << " j=" << j;
+          }
+        }
+      }
+    }
+  }
+  // Decoding: one query at the end of 9 keys with a 2-key window sees keys 6, 7, 8.
+  Mask decode;
+  decode.kind = MaskKind::causal_bottom_right;
+  decode.window_left = 2;
+  const CoreShape one = shape_of(1, 9);
+  for (std::int64_t j = 0; j < 9; ++j) EXPECT_EQ(decode.visible(one, 0, 0, 0, j), j >= 6) << j;
+}
+
+TEST(SlidingWindow, SidesBelowMinusOneAreFindings) {
+  CoreProblem p;
+  p.shape = shape_of(2, 4);
+  p.mask.window_left = -2;
+  EXPECT_NE(find_field(validate(p), "mask.window_left"), nullptr);
+}
+
 TEST(KeyPaddingMask, LengthPerBatch) {
   const CoreShape s = shape_of(2, 6);
   Mask m;

@@ -16,6 +16,8 @@ constexpr std::size_t kMaxDimList = 64;  // entries read from a zero-terminated 
 constexpr std::uint32_t kAllMasks = HR_MASK_NONE | HR_MASK_CAUSAL_TOP_LEFT | HR_MASK_CAUSAL_BOTTOM_RIGHT |
                                     HR_MASK_KEY_PADDING | HR_MASK_DENSE | HR_MASK_BIAS;
 constexpr std::uint32_t kAllLayouts = HR_LAYOUT_BHTD | HR_LAYOUT_BTHD;
+// The HR_FEATURE_* bits this build judges; the others are refused (refuse_unjudged).
+constexpr std::uint32_t kJudgedFeatures = HR_FEATURE_WINDOW;
 constexpr MaskKind kMaskKinds[] = {MaskKind::none,        MaskKind::causal_top_left, MaskKind::causal_bottom_right,
                                    MaskKind::key_padding, MaskKind::dense,           MaskKind::bias};
 
@@ -122,7 +124,7 @@ void refuse_unjudged(const hr_kernel* k, const std::string& kernel, const std::s
       {"fp8_saturating", k->fp8_saturating != 0, "8-bit float conversions"},
       {"p_quant", k->p_quant != HR_PQUANT_NONE, "probabilities rounded to 8 bits"},
       {"p_scale", k->p_scale != 0.0f, "probabilities rounded to 8 bits"},
-      {"features", k->features != 0, "paged, packed, split, windowed, soft-capped and sink attention"},
+      {"features", (k->features & ~kJudgedFeatures) != 0, "paged, packed, split, soft-capped and sink attention"},
       {"split_kv_len", k->split_kv_len != 0, "split-KV partial results"},
       {"run_backward", k->run_backward != nullptr, "backward kernels"},
       {"backward_flags", k->backward_flags != 0, "backward kernels"},
@@ -159,6 +161,10 @@ std::uint32_t mask_bit(MaskKind k) {
 }
 
 bool KernelDeclaration::supports(MaskKind k) const { return (mask_kinds & mask_bit(k)) != 0; }
+
+bool KernelDeclaration::accepts(const Mask& m) const {
+  return supports(m.kind) && (!m.has_window() || (features & HR_FEATURE_WINDOW) != 0);
+}
 
 void check_declaration(const KernelDeclaration& d, const std::string& origin) {
   if (d.name.empty() || d.name.size() > kMaxNameLength) {
@@ -216,6 +222,10 @@ void check_declaration(const KernelDeclaration& d, const std::string& origin) {
       refuse(origin, std::string("field \"") + field + "\"", who(d) + " lists a head dim twice (" + dim_list(*dims) + ")",
              "list each accepted head dim once");
     }
+  }
+  if ((d.features & ~kJudgedFeatures) != 0) {
+    refuse(origin, "field \"features\"", who(d) + " declares features this headroom does not judge yet",
+           "declare only HR_FEATURE_WINDOW (\"window\") for now");
   }
   const std::pair<const char*, std::int64_t> counts[] = {{"head_dim_multiple", d.head_dim_multiple},
                                                          {"kv_len_multiple", d.kv_len_multiple},
@@ -321,6 +331,7 @@ KernelDeclaration declaration_of(const hr_kernel* k, const std::string& origin) 
     d.max_q_len = k->max_q_len;
     d.max_batch = k->max_batch;
     refuse_unjudged(k, kernel, origin);
+    d.features = k->features;
   }
   check_declaration(d, origin);
   if (d.level == Level::core && k->run_core == nullptr) {
@@ -361,6 +372,7 @@ std::string declaration_summary(const KernelDeclaration& d) {
   if (d.kv_len_multiple > 1) s += " kv_len_multiple=" + std::to_string(d.kv_len_multiple);
   if (d.max_q_len > 0) s += " max_q_len=" + std::to_string(d.max_q_len);
   if (d.max_batch > 0) s += " max_batch=" + std::to_string(d.max_batch);
+  if (d.features & HR_FEATURE_WINDOW) s += " window=yes";
   return s;
 }
 

@@ -19,8 +19,10 @@ const std::set<std::string> kFields = {"protocol",  "name",       "description",
                                        "output_format", "q_quant", "k_quant",     "v_quant",     "mask_kinds",
                                        "masked_row", "returns_lse", "max_kv_len", "layouts"};
 // Protocol 2 (kernel_abi.h version 2): the shapes a kernel accepts.
-const std::set<std::string> kFieldsV2 = {"key_dims", "value_dims", "head_dim_multiple", "kv_len_multiple",
-                                         "max_q_len", "max_batch", "serve"};
+const std::set<std::string> kFieldsV2 = {"key_dims",  "value_dims", "head_dim_multiple", "kv_len_multiple",
+                                         "max_q_len", "max_batch",  "serve",             "features"};
+// The protocol-2 names of kernel_abi.h's HR_FEATURE_* bits this build judges.
+const std::pair<const char*, std::uint32_t> kFeatureNames[] = {{"window", HR_FEATURE_WINDOW}};
 
 std::string place(const std::string& field) { return "describe output, field \"" + field + "\""; }
 
@@ -205,6 +207,17 @@ KernelDeclaration declaration_from_json(const std::string& text, const std::stri
   d.kv_len_multiple = std::max<std::int64_t>(1, count_field(j, "kv_len_multiple", origin));
   d.max_q_len = count_field(j, "max_q_len", origin);
   d.max_batch = count_field(j, "max_batch", origin);
+  if (auto it = j.find("features"); it != j.end()) {
+    if (!it->is_array()) refuse(origin, "features", "expected an array of feature names, found " + it->dump(), "e.g. [\"window\"]");
+    for (const json& f : *it) {
+      const std::string name = string_field(f, "features", origin);
+      bool known = false;
+      for (const auto& [n, bit] : kFeatureNames) {
+        if (name == n) d.features |= bit, known = true;
+      }
+      if (!known) refuse(origin, "features", "unknown or not yet judged feature \"" + name + "\"", "use \"window\"");
+    }
+  }
   check_declaration(d, origin);
   return d;
 }
@@ -232,6 +245,11 @@ std::string declaration_to_json(const KernelDeclaration& d) {
       {"max_batch", d.max_batch},
   };
   if (!d.key_dims.empty()) j["key_dims"] = d.key_dims;
+  json features = json::array();
+  for (const auto& [n, bit] : kFeatureNames) {
+    if (d.features & bit) features.push_back(n);
+  }
+  if (!features.empty()) j["features"] = features;
   if (!d.value_dims.empty()) j["value_dims"] = d.value_dims;
   if (d.input_format == Format::int8) {
     j["q_quant"] = scheme_json(d.q_quant);

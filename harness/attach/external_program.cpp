@@ -71,6 +71,8 @@ json put_mask(const fs::path& dir, const Mask& m) {
     put(dir, "bias.npy", tensor_to_npy(m.bias, "<f4"));
     j["file"] = "bias.npy";
   }
+  // Protocol 2: only a program that declared the "window" feature gets one.
+  if (m.has_window()) j["window"] = {{"left", m.window_left}, {"right", m.window_right}};
   return j;
 }
 

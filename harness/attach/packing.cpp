@@ -224,8 +224,11 @@ void pack_core(const ReceivedCase& c, const KernelDeclaration& d, PackedCall& p)
   cp.k = fill_input(p.arena, k, f);
   cp.v = fill_input(p.arena, v, f);
   cp.o = fill_output(p);
-  cp.window_left = -1;  // version-2 neutral values (kernel_abi.h): no window
-  cp.window_right = -1;
+  if (c.received.core.mask.has_window()) {
+    cp.features |= HR_FEATURE_WINDOW;
+    cp.window_left = c.received.core.mask.window_left;
+    cp.window_right = c.received.core.mask.window_right;
+  }
   if (p.lse_slot) {
     fill_unwritten(Format::float32, p.arena.data(*p.lse_slot), p.arena.bytes(*p.lse_slot) / sizeof(float));
     cp.lse = reinterpret_cast<float*>(p.arena.data(*p.lse_slot));

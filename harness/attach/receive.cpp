@@ -84,6 +84,7 @@ std::optional<std::string> why_unfit(const Case& c, const KernelDeclaration& d) 
   if (!d.supports(mask.kind)) {
     return "kernel \"" + d.name + "\" does not declare mask kind " + std::string(mask_kind_name(mask.kind));
   }
+  if (!d.accepts(mask)) return std::string("sliding window not declared");
   if (auto reason = d.shape_unfit(shape)) return reason;
   if (c.level == Level::block && d.input_format == Format::int8) {
     return std::string("int8 input at block level is not supported (only Q, K, V are quantised)");

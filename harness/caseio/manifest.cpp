@@ -250,7 +250,7 @@ Case parse_manifest(std::string_view text, const std::string& file) {
   c.source_format = *format;
 
   const json& mask_j = r.object_at(root, "mask", "");
-  r.only_keys(mask_j, {"kind", "key_lengths"}, "mask");
+  r.only_keys(mask_j, {"kind", "key_lengths", "window"}, "mask");
   Mask mask;
   const std::string kind = r.string_at(mask_j, "kind", "mask");
   const auto mk = parse_mask_kind(kind);
@@ -265,6 +265,15 @@ Case parse_manifest(std::string_view text, const std::string& file) {
       mask.key_lengths.push_back(r.int_of(lengths[b], "mask.key_lengths[" + std::to_string(b) + "]"));
   } else if (mask_j.contains("key_lengths")) {
     r.fail("mask.key_lengths", "key_lengths given for mask kind " + kind, "remove it, or set mask.kind to key_padding");
+  }
+  if (mask_j.contains("window")) {
+    const json& window = r.object_at(mask_j, "window", "mask");
+    r.only_keys(window, {"left", "right"}, "mask.window");
+    mask.window_left = r.int_at(window, "left", "mask.window");
+    mask.window_right = r.int_at(window, "right", "mask.window");
+    if (mask.window_left < -1 || mask.window_right < -1 || !mask.has_window())
+      r.fail("mask.window", "sides must be -1 (open) or key counts >= 0, at least one of them >= 0",
+             "give e.g. {\"left\": 127, \"right\": 0}, or remove \"window\"");
   }
 
   const json& prov = r.object_at(root, "provenance", "");
@@ -314,6 +323,7 @@ std::string format_manifest(const Case& c) {
   ordered m;
   m["kind"] = std::string(mask_kind_name(mask.kind));
   if (mask.kind == MaskKind::key_padding) m["key_lengths"] = mask.key_lengths;
+  if (mask.has_window()) m["window"] = ordered{{"left", mask.window_left}, {"right", mask.window_right}};
   j["mask"] = m;
   ordered prov;
   prov["family"] = c.provenance.family;

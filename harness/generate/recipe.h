@@ -83,6 +83,7 @@ std::vector<FamilyImpl>
 score_families();  // large_logits, near_ties, dominant_key, attention_sink, repeated_maxima, common_offset
 std::vector<FamilyImpl> activation_families();  // outlier_channels, sparse_outliers, massive_activations
 std::vector<FamilyImpl> edge_families();        // format_edges, masks, cancelling_values
+std::vector<FamilyImpl> window_families();      // sliding_window
 
 // ---- shared helpers (shapes.cpp) ----
 

@@ -160,6 +160,8 @@ void check_mask_tensor(const std::string& name, const Tensor& t, const CoreShape
 
 void check_mask(const Mask& m, const CoreShape& s, Findings& f) {
   const std::string kind{mask_kind_name(m.kind)};
+  if (m.window_left < -1) f.add("mask.window_left", "-1 (open) or a key count >= 0", std::to_string(m.window_left));
+  if (m.window_right < -1) f.add("mask.window_right", "-1 (open) or a key count >= 0", std::to_string(m.window_right));
   if (m.kind == MaskKind::key_padding) {
     if (m.key_lengths.size() != static_cast<std::size_t>(s.batch)) {
       f.add("mask.key_lengths", std::to_string(s.batch) + " entries (one per batch)",
@@ -225,8 +227,10 @@ std::optional<MaskKind> parse_mask_kind(std::string_view name) {
   return std::nullopt;
 }
 
-bool Mask::visible(const CoreShape& s, std::int64_t b, std::int64_t h, std::int64_t i, std::int64_t j) const {
-  switch (kind) {
+namespace {
+
+bool kind_visible(const Mask& m, const CoreShape& s, std::int64_t b, std::int64_t h, std::int64_t i, std::int64_t j) {
+  switch (m.kind) {
     case MaskKind::none:
       return true;
     case MaskKind::causal_top_left:
@@ -235,13 +239,23 @@ bool Mask::visible(const CoreShape& s, std::int64_t b, std::int64_t h, std::int6
       // Aligned so the last query row sees every key: row Tq−1 ↔ key Tk−1.
       return j <= i + (s.kv_len - s.q_len);
     case MaskKind::key_padding:
-      return j < key_lengths[static_cast<std::size_t>(b)];
+      return j < m.key_lengths[static_cast<std::size_t>(b)];
     case MaskKind::dense:
-      return allowed.at(b, mask_head(allowed, h), i, j) != 0.0;
+      return m.allowed.at(b, mask_head(m.allowed, h), i, j) != 0.0;
     case MaskKind::bias:
-      return bias.at(b, mask_head(bias, h), i, j) != -std::numeric_limits<double>::infinity();
+      return m.bias.at(b, mask_head(m.bias, h), i, j) != -std::numeric_limits<double>::infinity();
   }
   return false;
+}
+
+}  // namespace
+
+bool Mask::visible(const CoreShape& s, std::int64_t b, std::int64_t h, std::int64_t i, std::int64_t j) const {
+  if (!kind_visible(*this, s, b, h, i, j)) return false;
+  if (!has_window()) return true;
+  const std::int64_t at = kind == MaskKind::causal_top_left ? i : i + (s.kv_len - s.q_len);
+  if (window_left >= 0 && j < at - window_left) return false;
+  return window_right < 0 || j <= at + window_right;
 }
 
 double Mask::bias_at(std::int64_t b, std::int64_t h, std::int64_t i, std::int64_t j) const {

@@ -3,7 +3,7 @@
 // A family turns (seed, size) into a case (generate.h). Every family chooses a
 // shape from `size` unless the request fixes one, and its own mask kind unless
 // the request forces one; at the default size 100 tokens stay ≤ 64 (except
-// tile_edges and long_sequence) so the exact reference stays quick. Source
+// tile_edges, long_sequence and sliding_window) so the exact reference stays quick. Source
 // values are float32. Magnitudes named "typical" are the N(0, 1) base noise.
 // Values from a paper are cited with the section; "(from memory)" marks a
 // figure recalled rather than re-read.
@@ -144,6 +144,15 @@ inline constexpr FamilyInfo kFamilies[] = {
      "Dm = Hq·Dk as in the base model of the paper (512 = 8·64) half the time. Tests projections, "
      "head split and concatenation around the attention.",
      "Vaswani et al. 2017, §3.2.2 (multi-head attention)", Level::block},
+    {"sliding_window", "local attention windows on causal, padded and open masks, edges at tile widths",
+     "Gaussian Q, K, V under a sliding window (kernel_abi.h version 2, HR_FEATURE_WINDOW): key j is hidden "
+     "from query i when j < i' − L or j > i' + R, i' = i + Tk − Tq (i under causal top-left). L from "
+     "{0, 1, 3, 7, 8, 9, 15, 16, 17, 31, 32, 33, 63, 64, 65, 127}, so a window's first key lands on, just "
+     "before and just after tile boundaries; R open, 0, 1 or 4; on causal (mostly bottom-right, with "
+     "Tq = 1 decoding rows), key-padding and open masks, Tk up to 200 at the default size. A window "
+     "counted one key too wide or too narrow at a tile edge is the typical defect; key padding shorter "
+     "than a window start leaves rows fully masked. Only kernels declaring the feature get these cases.",
+     "Beltagy et al. 2020, Longformer, §3.1 (sliding window attention; from memory)", Level::core},
 };
 
 /// Returns: every family, in the order above.

@@ -47,12 +47,16 @@ struct KernelDeclaration {
   std::int64_t kv_len_multiple = 1;       ///< Tk a multiple of this
   std::int64_t max_q_len = 0;             ///< 0 = no limit
   std::int64_t max_batch = 0;             ///< 0 = no limit
+  std::uint32_t features = 0;             ///< HR_FEATURE_* bits (kernel_abi.h version 2)
   /// The kernel_abi.h version (plug-ins) or exchange protocol (external
   /// programs) the kernel was written against; informational.
   int interface_version = 2;
 
   /// Returns: whether the kernel declares support for mask kind k.
   bool supports(MaskKind k) const;
+  /// Returns: whether the kernel accepts mask `m`: its kind, and a sliding
+  /// window only with HR_FEATURE_WINDOW.
+  bool accepts(const Mask& m) const;
   /// Returns: why the kernel does not accept `s` (a head dim outside key_dims /
   /// value_dims or not a multiple, Tk not a multiple, Tq or batch over the
   /// maximum, Tk over max_kv_len), as a reason that names the declared limit

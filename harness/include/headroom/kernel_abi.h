@@ -167,12 +167,14 @@ typedef struct hr_core_problem {
   float* lse;      /* [B, Hq, Tq] contiguous natural-log log-sum-exp of the scaled
                       scores; non-NULL only when the kernel declares returns_lse */
 
-  /* ---- version 2 (always filled; neutral unless the case uses a feature the
+  /* ---- version 2 (zero, hence neutral, unless the case uses a feature the
    * kernel declared in hr_kernel.features) ---- */
+  uint32_t features;                 /* the HR_FEATURE_* bits this problem uses; a field
+                                        below means something only when its bit is set */
   int64_t window_left, window_right; /* HR_FEATURE_WINDOW: key j visible to query i only
-                                        when i' - window_left <= j <= i' + window_right, i'
-                                        the query aligned as the causal mask aligns it
-                                        (bottom-right: i + Tk - Tq); -1: unbounded */
+                                        when i' - window_left <= j <= i' + window_right,
+                                        i' = i under HR_MASK_CAUSAL_TOP_LEFT, else
+                                        i + Tk - Tq; -1 leaves that side open */
   float softcap;                     /* HR_FEATURE_SOFTCAP: c > 0 replaces each scaled score
                                         z by c * tanh(z / c) before bias and mask; 0: none */
   const float* sinks;                /* HR_FEATURE_SINKS: [Hq] logits added to each row's

@@ -42,7 +42,14 @@ struct Mask {
   std::vector<std::int64_t> key_lengths;  ///< key_padding: [B], each in [0, Tk]
   Tensor allowed;  ///< dense: [B, 1 or Hq, Tq, Tk], nonzero = visible
   Tensor bias;     ///< bias: [B, 1 or Hq, Tq, Tk], finite or −inf
+  /// A sliding (local) window on top of any kind: key j is also hidden from
+  /// query i when j < i' − window_left or j > i' + window_right, where i' = i
+  /// under causal_top_left and i + Tk − Tq otherwise (aligned as a decoder's
+  /// cache: the last query sits on the last key). −1 leaves that side open.
+  std::int64_t window_left = -1, window_right = -1;
 
+  /// Returns: whether a window restricts visibility.
+  bool has_window() const { return window_left >= 0 || window_right >= 0; }
   /// Returns: whether key j is visible to query i of head h in batch b.
   bool visible(const CoreShape& s, std::int64_t b, std::int64_t h, std::int64_t i, std::int64_t j) const;
   /// Returns: the additive bias of (b, h, i, j) (0 unless kind is bias).
@@ -92,7 +99,7 @@ struct ProblemError {
 
 /// Returns: every inconsistency of the shape, scale and mask (empty when valid):
 /// extents ≥ 1, Hq a multiple of Hkv, finite nonzero scale, mask tensors shaped
-/// as documented, key lengths in [0, Tk].
+/// as documented, key lengths in [0, Tk], window sides ≥ −1.
 std::vector<ProblemError> validate(const CoreProblem& p);
 /// Returns: validate(p) plus the shapes of Q, K, V against p.shape.
 std::vector<ProblemError> validate(const CoreProblem& p, const CoreInputs& in);
