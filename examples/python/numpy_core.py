@@ -1,10 +1,12 @@
 #!/usr/bin/python3
 """A headroom kernel in NumPy, written with the headroom_kernel package (python/).
 
-Textbook float32 attention, every mask kind, grouped-query heads expanded by
-the package, log-sum-exp returned. Qualify it with
+Textbook attention computed in float32, every mask kind, grouped-query heads
+expanded by the package, log-sum-exp returned; inputs in the format the first
+word names (f32, f16 = binary16, bf16, i8 = int8 per token, dequantised by the
+package), output in float32 (i8) or that format. Qualify it with
 
-    headroom qualify --kernel-cmd '/usr/bin/python3 examples/python/numpy_core.py' --suite quick
+    headroom qualify --kernel-cmd '/usr/bin/python3 examples/python/numpy_core.py f32' --suite quick
 """
 import os
 import sys
@@ -15,11 +17,18 @@ import numpy as np  # noqa: E402
 from headroom_kernel import kernel  # noqa: E402
 
 
-@kernel(name="numpy_core_f32", input_format="float32", output_format="float32", mask_as="bias",
+FORMATS = {"f32": "float32", "f16": "binary16", "bf16": "bfloat16", "i8": "int8"}
+variant = sys.argv[1] if len(sys.argv) > 1 and sys.argv[1] in FORMATS else "f32"
+fmt = FORMATS[variant]
+int8 = {f + "_quant": {"granularity": "per_token", "asymmetric": False} for f in "qkv"} if fmt == "int8" else {}
+
+
+@kernel(name="numpy_core_" + variant, input_format=fmt, output_format="float32" if fmt == "int8" else fmt,
         masks=["none", "causal_top_left", "causal_bottom_right", "key_padding", "dense", "bias"],
-        returns_lse=True, expand_groups=True)
+        mask_as="bias", returns_lse=True, expand_groups=True, **int8)
 def attend(q, k, v, scale, mask):
     """max-shifted softmax in float32, NumPy"""
+    q, k, v = (x.astype(np.float32) for x in (q, k, v))
     z = np.float32(scale) * (q @ k.swapaxes(-1, -2))
     if mask is not None:
         z = z + mask
