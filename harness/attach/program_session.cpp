@@ -60,10 +60,13 @@ ProgramSession::~ProgramSession() {
 }
 
 void ProgramSession::drain_stderr() {
-  if (err_ < 0) return;
-  while (true) {
+  while (err_ >= 0) {
     const std::size_t before = err_tail_.size();
-    if (!read_some(err_, err_tail_) || err_tail_.size() == before) break;
+    if (!read_some(err_, err_tail_)) {
+      close_fd(err_);  // closed by the program: poll must not wake on it again (poll skips fd -1)
+      break;
+    }
+    if (err_tail_.size() == before) break;
     if (err_tail_.size() > kErrTail) err_tail_.erase(0, err_tail_.size() - kErrTail);
   }
 }
