@@ -12,12 +12,18 @@
 //      cost ≤ n·2^-1071, covered by the floor 2^-950 added to A). Q̃ = hi + lo
 //      exactly (two_sum of H and L, so |lo| ≤ u|hi|), and
 //      A_up = Ĝ(1 + 2^-49) + 2^-950 ≥ A (Ĝ is within 2^-49.5 of A).
+//      When X and W are float32-valued the products are exact and the sums
+//      run in triple-double (fast_row.inc, weighted_sums_exact): each element
+//      then carries its own radius, about 2^-106|Q| + n³u³A (project below),
+//      so the projections' uncertainty no longer scales with Σ|X||W|.
 //  (2) Core attention per head on Q̃, K̃, Ṽ with radii (fast_core.cpp, wide):
-//      ρ_q = γ_P‖A_q,row‖₂ ≥ ‖δq‖₂, ρ_k,j likewise, ρ_v,d = γ_P·max_j A_v,jd.
+//      ρ_q = ‖rad_q,row‖₂ ≥ ‖δq‖₂, ρ_k,j likewise, ρ_v,d = max_j rad_v,jd
+//      (rad = γ_P·A_up on the double-double sums).
 //      Each head output O_c comes back as a double-double Õ_c = hi + lo with
 //      a certified B_c ≥ |Õ_c − O_c|. A row the kernel cannot finish is
 //      recomputed by BlockRows in MPFR on the same double-double inputs
-//      (mp_row.h with γ' = γ_P + 2^-127: the inputs converted to p ≥ 128
+//      (mp_row.h with γ' = γ + 2^-127, γ the largest of the projections'
+//      rad/A_up ratios: the inputs converted to p ≥ 128
 //      bits err by ≤ 2^-128|Q̃| more; the result is taken back as a
 //      double-double within 2^-105|hi| + 2^-1074 more, added to B_c).
 //  (3) Y_tm = Σ_c O_c·W_o,cm + b_o,m by the weighted sums again, weights
@@ -100,7 +106,7 @@ struct SumScratch {
     const auto n_pad = static_cast<std::size_t>((m.n + kLanes - 1) / kLanes * kLanes);
     w_hi[r].assign(n_pad, 0.0);
     w_lo[r].assign(n_pad, 0.0);
-    acc[r].resize(static_cast<std::size_t>(4 * m.pad));
+    acc[r].resize(static_cast<std::size_t>(5 * m.pad));
     FastRowArgs& a = args[r];
     a = FastRowArgs{};
     a.vp = m.vp.data();
@@ -114,6 +120,7 @@ struct SumScratch {
   }
   double h(int r, std::int64_t c) const { return acc[r][static_cast<std::size_t>(c)]; }
   double l(int r, std::int64_t c, std::int64_t pad) const { return acc[r][static_cast<std::size_t>(pad + c)]; }
+  double l3(int r, std::int64_t c, std::int64_t pad) const { return acc[r][static_cast<std::size_t>(4 * pad + c)]; }
   double g(int r, std::int64_t c, std::int64_t pad) const {
     return acc[r][static_cast<std::size_t>(2 * pad + c)] + acc[r][static_cast<std::size_t>(3 * pad + c)];
   }
@@ -125,10 +132,18 @@ inline void two_sum(double a, double b, double& s, double& e) {
   e = (a - (s - bb)) + (b - bb);
 }
 
-// (1) X·W + b for every row of x ([B, T, Dm]) as double-doubles and bounds A_up.
+bool float32_valued(const Tensor& t) {
+  for (double x : t.values)
+    if (static_cast<double>(static_cast<float>(x)) != x) return false;
+  return true;
+}
+
+// (1) X·W + b for every row of x ([B, T, Dm]) as double-doubles, bounds
+// A_up ≥ |exact| and radii ≥ |hi + lo − exact|, with rad ≤ gamma·A_up.
 struct Projection {
-  std::vector<double> hi, lo, a;  // [B·T, cols]
+  std::vector<double> hi, lo, a, rad;  // [B·T, cols]
   std::int64_t cols = 0;
+  double gamma = 0;
 };
 
 Projection project(const FastKernels& kr, const Tensor& x, const Tensor& w, const Tensor& bias, unsigned workers) {
@@ -139,6 +154,19 @@ Projection project(const FastKernels& kr, const Tensor& x, const Tensor& w, cons
   out.hi.resize(static_cast<std::size_t>(rows * m.cols));
   out.lo.resize(out.hi.size());
   out.a.resize(out.hi.size());
+  out.rad.resize(out.hi.size());
+  // Float32-valued X and W: products exact (≤ 48 significant bits, ≥ 2^-298),
+  // the bias row's 1·b too, so the triple-double sums apply (fast_row.inc,
+  // weighted_sums_exact): |H + L + L3 − Q| ≤ n³u³(1 + 2^-40)·A. Taken to a
+  // double-double: (a, b) = two_sum(H, L), c = RN(b + L3) (errs ≤ u|c|),
+  // (hi, lo) = two_sum(a, c), so rad = n³u³(1 + 2^-40)A + u|c| + n·2^-1074;
+  // as |c| ≤ u(1 + n²u + 2^-40)A (|b| ≤ u|a|, |L3| ≤ n²u²(1+…)A), rad ≤ γ·A_up
+  // with γ = n³u³(1 + 2^-40) + u²(1 + 2^-12) for n ≤ 2^20 (A_up ≥ 2^-950 covers
+  // the underflow slack). Otherwise the double-double sums: rad = γ_P·A_up.
+  const bool exact = float32_valued(x) && float32_valued(w) && m.n <= (1 << 20);
+  const double nd = static_cast<double>(m.n);
+  const double cube = mul_up(mul_up(mul_up(nd, nd), mul_up(nd, 0x1p-159)), 1.0 + 0x1p-40);
+  out.gamma = exact ? add_up(cube, mul_up(kU2, 1.0 + 0x1p-12)) : weighted_error(m.n);
   std::vector<SumScratch> scratch(workers);
   const std::int64_t groups = (rows + kMaxGroup - 1) / kMaxGroup;
   parallel_for(groups, workers, [&](std::int64_t grp, unsigned wk) {
@@ -146,6 +174,7 @@ Projection project(const FastKernels& kr, const Tensor& x, const Tensor& w, cons
     const int count = static_cast<int>(std::min<std::int64_t>(kMaxGroup, rows - grp * kMaxGroup));
     for (int r = 0; r < count; ++r) {
       sc.bind(m, r);
+      sc.args[r].exact_sums = exact;
       const double* xr = &x.values[static_cast<std::size_t>((grp * kMaxGroup + r) * dm)];
       std::copy(xr, xr + dm, sc.w_hi[r].begin());
       sc.w_hi[r][static_cast<std::size_t>(dm)] = 1.0;
@@ -154,8 +183,17 @@ Projection project(const FastKernels& kr, const Tensor& x, const Tensor& w, cons
     for (int r = 0; r < count; ++r)
       for (std::int64_t c = 0; c < m.cols; ++c) {
         const auto at = static_cast<std::size_t>((grp * kMaxGroup + r) * m.cols + c);
-        two_sum(sc.h(r, c), sc.l(r, c, m.pad), out.hi[at], out.lo[at]);
         out.a[at] = add_up(mul_up(sc.g(r, c, m.pad), 1.0 + 0x1p-49), kAbsFloor);
+        if (exact) {
+          double a = 0, b = 0;
+          two_sum(sc.h(r, c), sc.l(r, c, m.pad), a, b);
+          const double cc = b + sc.l3(r, c, m.pad);
+          two_sum(a, cc, out.hi[at], out.lo[at]);
+          out.rad[at] = add_up(add_up(mul_up(cube, out.a[at]), mul_up(kU, std::fabs(cc))), mul_up(nd, 0x1p-1074));
+        } else {
+          two_sum(sc.h(r, c), sc.l(r, c, m.pad), out.hi[at], out.lo[at]);
+          out.rad[at] = mul_up(out.gamma, out.a[at]);
+        }
       }
   });
   return out;
@@ -163,10 +201,11 @@ Projection project(const FastKernels& kr, const Tensor& x, const Tensor& w, cons
 
 // Copies a projection [B·T, H·D] into the core layout [B, H, T, D] (hi, lo, a).
 void to_core(const Projection& pr, std::int64_t batch, std::int64_t len, std::int64_t heads, std::int64_t dim,
-             Tensor& hi, Tensor& lo, std::vector<double>& a) {
+             Tensor& hi, Tensor& lo, std::vector<double>& a, std::vector<double>& rad) {
   hi = Tensor({batch, heads, len, dim});
   lo = Tensor(hi.shape);
   a.resize(hi.values.size());
+  rad.resize(hi.values.size());
   for (std::int64_t b = 0; b < batch; ++b)
     for (std::int64_t h = 0; h < heads; ++h)
       for (std::int64_t t = 0; t < len; ++t)
@@ -176,6 +215,7 @@ void to_core(const Projection& pr, std::int64_t batch, std::int64_t len, std::in
           hi.values[to] = pr.hi[from];
           lo.values[to] = pr.lo[from];
           a[to] = pr.a[from];
+          rad[to] = pr.rad[from];
         }
 }
 
@@ -319,24 +359,29 @@ std::vector<std::uint8_t> fast_block(const BlockProblem& p, const BlockInputs& i
   cp.mask = p.mask;
   CoreInputs hi;
   WideCoreInputs wide;
-  std::vector<double> aq, ak, av;
-  to_core(project(kr, in.x_q, in.w_q, in.b_q, workers), s.batch, s.q_len, s.q_heads, s.key_dim, hi.q, wide.q_lo, aq);
-  to_core(project(kr, in.x_kv, in.w_k, in.b_k, workers), s.batch, s.kv_len, s.kv_heads, s.key_dim, hi.k, wide.k_lo, ak);
-  to_core(project(kr, in.x_kv, in.w_v, in.b_v, workers), s.batch, s.kv_len, s.kv_heads, s.value_dim, hi.v, wide.v_lo,
-          av);
-  const double gamma_p = weighted_error(s.model_dim + 1);
-  auto radii = [&](const std::vector<double>& a, std::int64_t rows, std::int64_t dim, std::vector<double>& rad) {
-    rad.resize(static_cast<std::size_t>(rows));
-    for (std::int64_t r = 0; r < rows; ++r) rad[static_cast<std::size_t>(r)] = mul_up(gamma_p, norm_up(&a[static_cast<std::size_t>(r * dim)], dim));
+  std::vector<double> aq, ak, av, rq, rk, rv;
+  double gamma_p = 0;
+  auto place = [&](const Projection& pr, std::int64_t len, std::int64_t heads, std::int64_t dim, Tensor& h, Tensor& l,
+                   std::vector<double>& a, std::vector<double>& rad) {
+    to_core(pr, s.batch, len, heads, dim, h, l, a, rad);
+    gamma_p = std::max(gamma_p, pr.gamma);
   };
-  radii(aq, s.batch * s.q_heads * s.q_len, s.key_dim, wide.q_rad);
-  radii(ak, s.batch * s.kv_heads * s.kv_len, s.key_dim, wide.k_rad);
+  place(project(kr, in.x_q, in.w_q, in.b_q, workers), s.q_len, s.q_heads, s.key_dim, hi.q, wide.q_lo, aq, rq);
+  place(project(kr, in.x_kv, in.w_k, in.b_k, workers), s.kv_len, s.kv_heads, s.key_dim, hi.k, wide.k_lo, ak, rk);
+  place(project(kr, in.x_kv, in.w_v, in.b_v, workers), s.kv_len, s.kv_heads, s.value_dim, hi.v, wide.v_lo, av, rv);
+  auto norms = [&](const std::vector<double>& rad, std::int64_t rows, std::int64_t dim, std::vector<double>& out) {
+    out.resize(static_cast<std::size_t>(rows));
+    for (std::int64_t r = 0; r < rows; ++r)
+      out[static_cast<std::size_t>(r)] = norm_up(&rad[static_cast<std::size_t>(r * dim)], dim);
+  };
+  norms(rq, s.batch * s.q_heads * s.q_len, s.key_dim, wide.q_rad);
+  norms(rk, s.batch * s.kv_heads * s.kv_len, s.key_dim, wide.k_rad);
   wide.v_rad.assign(static_cast<std::size_t>(s.batch * s.kv_heads * s.value_dim), 0.0);
   for (std::int64_t bg = 0; bg < s.batch * s.kv_heads; ++bg)
     for (std::int64_t j = 0; j < s.kv_len; ++j)
       for (std::int64_t d = 0; d < s.value_dim; ++d) {
         double& r = wide.v_rad[static_cast<std::size_t>(bg * s.value_dim + d)];
-        r = std::max(r, mul_up(gamma_p, av[static_cast<std::size_t>((bg * s.kv_len + j) * s.value_dim + d)]));
+        r = std::max(r, rv[static_cast<std::size_t>((bg * s.kv_len + j) * s.value_dim + d)]);
       }
 
   // (2) core attention, wide.

@@ -53,6 +53,9 @@ struct FastRowArgs {
   // layout), values vp + vp_lo, each normalised (|lo| ≤ u|hi|); score_coef_a is then the
   // wide one (fast_row.inc, score_blocks). Radii: the exact inputs lie within q_rad (an
   // upper bound of ‖δq‖₂) and k_rad[j] (of ‖δk_j‖₂) of them.
+  /// weighted() only: every w_hi·v product exact in double and w_lo = 0: triple-double
+  /// sums (fast_row.inc, weighted_sums_exact), acc ≥ 5·dv_pad with L3 after GL.
+  bool exact_sums = false;
   const double* q_lo = nullptr;
   const double* kt_lo = nullptr;
   const double* vp_lo = nullptr;

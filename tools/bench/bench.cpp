@@ -1,0 +1,89 @@
+// headroom bench — the certified reference against plain float64 attention, side by side.
+//
+//   bench [--small] [--core-only | --block-only] [--sizes T:D,...] [--block-lengths T,...]
+//         [--q-rows Q] [--naive-rows R] [--reps N] [--threads N] [--no-naive] [--block-mpfr]
+//
+// Sections (one file each, sections.h): core rows (core_section.cpp: T in
+// {256, 1024, 4096} × D in {64, 128}) and block rows (block_section.cpp:
+// d_model 512, 8 heads of 64, T in {128, 512, 2048}). Every measurement runs
+// in its own child process, so its peak memory is its own. Times are CPU
+// seconds with one thread, wall seconds with more; the plain baselines get
+// the same thread count as the reference. --small: core T in {64, 256} at
+// D = 64, block T = 128. --q-rows Q keeps Tk = T but takes only Q query
+// rows (long-key memory checks).
+#include <algorithm>
+#include <cstdio>
+#include <cstdlib>
+#include <string>
+
+#include "measure.h"
+#include "sections.h"
+
+namespace {
+
+bool parse_list(const std::string& list, bool pairs, bench::Options& opt) {
+  for (std::size_t at = 0; at < list.size();) {
+    const std::size_t comma = std::min(list.find(',', at), list.size());
+    const std::string item = list.substr(at, comma - at);
+    if (pairs) {
+      const std::size_t colon = item.find(':');
+      if (colon == std::string::npos) {
+        std::fprintf(stderr, "bench: --sizes wants T:D[,T:D...], got \"%s\"\n", item.c_str());
+        return false;
+      }
+      opt.core_sizes.push_back({std::atoll(item.substr(0, colon).c_str()), std::atoll(item.substr(colon + 1).c_str())});
+    } else {
+      opt.block_lengths.push_back(std::atoll(item.c_str()));
+    }
+    at = comma + 1;
+  }
+  return true;
+}
+
+}  // namespace
+
+int main(int argc, char** argv) {
+  bench::Options opt;
+  for (std::int64_t t : {256, 1024, 4096})
+    for (std::int64_t d : {64, 128}) opt.core_sizes.push_back({t, d});
+  opt.block_lengths = {128, 512, 2048};
+  bool core = true, block = true;
+  for (int a = 1; a < argc; ++a) {
+    const std::string arg = argv[a];
+    if (arg == "--small") {
+      opt.core_sizes = {{64, 64}, {256, 64}};
+      opt.block_lengths = {128};
+    } else if (arg == "--core-only") {
+      block = false;
+    } else if (arg == "--block-only") {
+      core = false;
+    } else if (arg == "--sizes" && a + 1 < argc) {
+      opt.core_sizes.clear();
+      if (!parse_list(argv[++a], true, opt)) return 2;
+    } else if (arg == "--block-lengths" && a + 1 < argc) {
+      opt.block_lengths.clear();
+      if (!parse_list(argv[++a], false, opt)) return 2;
+    } else if (arg == "--q-rows" && a + 1 < argc) {
+      opt.q_rows = std::max<std::int64_t>(1, std::atoll(argv[++a]));
+    } else if (arg == "--naive-rows" && a + 1 < argc) {
+      opt.naive_rows = std::max<std::int64_t>(1, std::atoll(argv[++a]));
+    } else if (arg == "--threads" && a + 1 < argc) {
+      opt.threads = static_cast<unsigned>(std::atoi(argv[++a]));
+    } else if (arg == "--reps" && a + 1 < argc) {
+      opt.reps = std::max(1, std::atoi(argv[++a]));
+    } else if (arg == "--no-naive") {
+      opt.naive = false;
+    } else if (arg == "--block-mpfr") {
+      opt.block_mpfr = true;
+    } else {
+      std::fprintf(stderr,
+                   "usage: bench [--small] [--core-only | --block-only] [--sizes T:D,...] [--block-lengths T,...] "
+                   "[--q-rows Q] [--naive-rows R] [--reps N] [--threads N] [--no-naive] [--block-mpfr]\n");
+      return 2;
+    }
+  }
+  bench::cpu_clock() = opt.threads == 1;
+  if (core) bench::core_section(opt);
+  if (block) bench::block_section(opt);
+  return 0;
+}
