@@ -239,6 +239,26 @@ TEST(Verdict, RatioToPlainAndRelRmse) {
   EXPECT_EQ(v.reasons[0].what, "max_rel_rmse");
 }
 
+TEST(BudgetFile, KernelSectionNamingNoKernelOfTheRunIsFoundWithTheNearestName) {
+  const Budget b = parse_budget(
+      "version = 1\n[kernel.f16_f16acc]\nmax_ratio_to_plain = 64\n\n[kernel.f16_f32ac]\nmax_scaled_error = 0.5\n"
+      "[kernel.zzz]\nmax_ulp = 3\n",
+      "b.toml");
+  // f16_f16acc is another bundled kernel: a shared file may address it.
+  const auto u = b.unmatched_kernel_sections({"f16_f32acc"}, {"f16_f16acc", "f32_textbook"});
+  ASSERT_EQ(u.size(), 2u);
+  EXPECT_EQ(u[0].name, "f16_f32ac");
+  EXPECT_EQ(u[0].line, 5);
+  EXPECT_EQ(u[0].suggestion, "f16_f32acc");
+  EXPECT_EQ(u[0].text(), "b.toml line 5: [kernel.f16_f32ac] names no kernel of this run, so it is not applied "
+                         "(did you mean [kernel.f16_f32acc]?)");
+  EXPECT_EQ(u[1].name, "zzz");
+  EXPECT_EQ(u[1].suggestion, "");
+  // The misspelt section really is not applied: the run gets the defaults.
+  EXPECT_EQ(b.for_kernel("f16_f32acc", Format::binary16).max_scaled_error.kind, Limit::Kind::probabilistic);
+  EXPECT_TRUE(b.unmatched_kernel_sections({"f16_f32ac", "zzz"}, {"f16_f16acc"}).empty());
+}
+
 TEST(Verdict, UnsupportedIsNotScoredBadOutputFails) {
   CaseFaults declined;
   declined.unsupported_runs = 1;

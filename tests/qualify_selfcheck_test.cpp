@@ -1,49 +1,47 @@
 // Self-qualification: every sound bundled kernel passes its documented budget on
 // the quick suite, and every flawed specimen is caught by its intended fault
-// class (not only by an unrelated one), through the same loop `qualify` runs.
+// class (not only by an unrelated one). Both run the headroom command line
+// itself, so they judge exactly as `qualify` and `replay` do: isolation, the
+// plain-kernel comparison, determinism runs and the budget file (strict).
 #include <gtest/gtest.h>
+#include <sys/wait.h>
+#include <unistd.h>
 
 #include <algorithm>
 #include <cstdio>
+#include <cstdlib>
 #include <filesystem>
 #include <string>
 
 #include "headroom/bundled_registry.h"
-#include "headroom/case_folder.h"
-#include "headroom/generate.h"
-#include "headroom/qualify.h"
-#include "headroom/suite.h"
+#include "headroom/record.h"
 
 namespace headroom {
 namespace {
 
-std::vector<PlannedCase> quick_suite() {
-  std::vector<PlannedCase> cases;
-  for (const auto& r : suite_requests("quick")) cases.push_back({make_case(r), r, {}});
-  return cases;
-}
+namespace fs = std::filesystem;
 
-// The documented budgets of the bundled kernels: budgets/bundled.toml.
-Budget bundled_budget() { return load_budget(std::string(HEADROOM_SOURCE_DIR) + "/budgets/bundled.toml"); }
+const std::string kTool = std::string(HEADROOM_BINARY_DIR) + "/tools/headroom";
+const std::string kBudget = std::string(HEADROOM_SOURCE_DIR) + "/budgets/bundled.toml";
 
-RunnerOptions options_for(const KernelDeclaration& d, const Budget& budget) {
-  RunnerOptions opt;
-  opt.judge.detect.run.isolate = true;
-  opt.judge.detect.run.time_limit_s = 5;
-  opt.judge.detect.determinism_runs = 3;
-  opt.judge.detect.reference.threads = 2;
-  opt.apply_budget = budget_applier(budget.for_kernel(d));
-  return opt;
+// Runs `headroom <args> --json <tmp>` and returns the record it wrote, with its exit code in *code.
+RunRecord run_cli(const std::string& args, const std::string& tag, int* code) {
+  const fs::path out = fs::temp_directory_path() / ("headroom_selfcheck_" + tag + "_" + std::to_string(::getpid()) + ".json");
+  const std::string line = kTool + " " + args + " --budget " + kBudget + " --strict-budget --time-limit 5 --threads 2 " +
+                           "--quiet --json " + out.string() + " --journal " + out.string() + ".journal >/dev/null";
+  const int status = std::system(line.c_str());
+  *code = WIFEXITED(status) ? WEXITSTATUS(status) : -1;
+  RunRecord r = read_run_record(out);
+  fs::remove(out);
+  return r;
 }
 
 class SoundKernel : public ::testing::TestWithParam<std::string> {};
 
 TEST_P(SoundKernel, PassesItsBudgetOnTheQuickSuite) {
-  static const auto cases = quick_suite();
-  const BundledKernel* b = find_bundled(GetParam());
-  ASSERT_NE(b, nullptr);
-  auto k = attach_in_process(b->kernel);
-  const RunRecord r = run_cases(*k, cases, options_for(b->declaration, bundled_budget()));
+  int code = -1;
+  const RunRecord r = run_cli("qualify --kernel " + GetParam() + " --suite quick", GetParam(), &code);
+  EXPECT_EQ(code, 0);
   double worst = 0;
   std::string worst_case;
   for (const auto& c : r.cases) {
@@ -77,14 +75,12 @@ class FlawedSpecimen : public ::testing::TestWithParam<std::string> {};
 TEST_P(FlawedSpecimen, CorpusCatchesItWithItsIntendedClass) {
   const BundledKernel* b = find_bundled(GetParam());
   ASSERT_NE(b, nullptr);
-  const std::filesystem::path dir = std::filesystem::path(HEADROOM_SOURCE_DIR) / "corpora" / b->declaration.name;
-  ASSERT_TRUE(std::filesystem::is_directory(dir)) << "no corpus for " << b->declaration.name << " in " << dir;
-  std::vector<PlannedCase> cases;
-  for (const auto& e : std::filesystem::directory_iterator(dir))
-    if (std::filesystem::exists(e.path() / "manifest.json")) cases.push_back({read_case(e.path()), std::nullopt, e.path()});
-  ASSERT_FALSE(cases.empty());
-  auto k = attach_in_process(b->kernel);
-  const RunRecord r = run_cases(*k, cases, options_for(b->declaration, bundled_budget()));
+  const fs::path dir = fs::path(HEADROOM_SOURCE_DIR) / "corpora" / b->declaration.name;
+  ASSERT_TRUE(fs::is_directory(dir)) << "no corpus for " << b->declaration.name << " in " << dir;
+  int code = -1;
+  const RunRecord r = run_cli("replay --determinism-runs 3 --kernel " + GetParam() + " " + dir.string(), GetParam(), &code);
+  EXPECT_EQ(code, 1);
+  ASSERT_FALSE(r.cases.empty());
   int caught = 0;
   for (const auto& c : r.cases) {
     if (b->expected_fault == "error") {

@@ -140,6 +140,10 @@ TEST_F(HtmlReport, ScriptDrawsFourPlotsWithOneMarkPerDatum) {
   EXPECT_EQ(count(kv, "<circle"), 11u);
   EXPECT_EQ(count(logit, "<circle"), 11u);
   EXPECT_EQ(count(kv, "class=\"mark fail\""), 3u);  // cases 0, 4, 8 fail (i % 4 == 0); case 5 (inf) passes
+  // Each plotted case's scaled-error limit is drawn beside it.
+  EXPECT_EQ(count(kv, "class=\"limit\""), 11u);
+  EXPECT_EQ(count(logit, "class=\"limit\""), 11u);
+  EXPECT_NE(dom.find("Smallest margin"), std::string::npos);
   // Non-empty buckets: 0, 2, 3 (every case), 7 and 20 (once each).
   EXPECT_EQ(count(hist, "class=\"mark bar\""), 5u);
   // (family, class) pairs with a count: cases 1, 4 and 7 are all long_sequence (i % 3 == 1), with

@@ -89,6 +89,20 @@ TEST(RunSummary, GroupsTakeTheWorstOfTheirCasesAndIgnoreNaN) {
   EXPECT_TRUE(std::isnan(summarise_run(r).worst_ratio_to_plain));  // no applicable figure: NaN, not 0
 }
 
+TEST(RunSummary, MarginIsTheSmallestLimitOverFigureOfAnyCase) {
+  RunRecord r = seven_cases();
+  const auto groups = summarise_groups(r);
+  EXPECT_DOUBLE_EQ(groups[0].margin, 8.0 / 7.0);
+  EXPECT_EQ(groups[0].margin_figure, "max_scaled_error");
+  EXPECT_EQ(groups[0].margin_case, "g-7");
+  r.cases[1].limits.max_ratio_to_plain = 1.2;  // 1.2 / 1.5: the ratio binds now, and fails
+  const CaseMargin m = case_margin(r.cases[1]);
+  EXPECT_DOUBLE_EQ(m.value, 0.8);
+  EXPECT_EQ(m.figure, "max_ratio_to_plain");
+  r.cases[1].limits = CaseLimits{};  // nothing recorded: no margin
+  EXPECT_TRUE(std::isnan(case_margin(r.cases[1]).value));
+}
+
 TEST(RunSummary, WorstCasesAreOrderedByScaledErrorThenUlpThenName) {
   RunRecord r = seven_cases();
   r.cases.push_back(make_case("a-tie", "gaussian", 5, 4));  // ties g-5 on both figures: name decides
@@ -222,23 +236,37 @@ TEST(Terminal, PrintSummaryColoursATerminalUnlessNoColorAndNeverAFile) {
   print_summary(tty, r);
   const std::string plain = drain(master);
   ::unsetenv("NO_COLOR");
-  EXPECT_NE(plain.find("worst ulp"), std::string::npos);
+  EXPECT_NE(plain.find("worst scaled error"), std::string::npos);
   EXPECT_EQ(plain.find('\x1b'), std::string::npos);
   std::fclose(tty);
   ::close(master);
 }
 
 TEST(Terminal, FailureLineIsOneGreppableLineWithExactHexFloatsAndTheReplay) {
-  const RunRecord r = seven_cases();
+  RunRecord r = seven_cases();
+  // The ULP figure printed is that of the element printed (2), not the case's largest (9).
+  r.cases[1].figures.worst_ulp_at = 2;
   const std::string line = failure_line(r, r.cases[1]);
   EXPECT_EQ(line,
-            "FAIL kernel=f32_tiled family=gaussian seed=1003 case=g-7 expected=0x1.8p-3 obtained=0x1.800002p-3 "
-            "ulp=9 replay: headroom replay --kernel f32_tiled --family gaussian --seed 1003 --case g-7");
+            "FAIL kernel=f32_tiled family=gaussian seed=1003 case=g-7 at=[0,1,3,5] expected=0.1875 (0x1.8p-3) "
+            "obtained=0.187500015 (0x1.800002p-3) ulp=2 scaled=7 "
+            "replay: headroom replay --kernel f32_tiled --family gaussian --seed 1003 --case g-7");
   const std::string summary = terminal_summary(r, false);
   EXPECT_NE(summary.find(line + "\n"), std::string::npos);
   EXPECT_NE(summary.find("max_scaled_error 7 > 6"), std::string::npos);  // the reason, indented below
   // Exactly one FAIL line: one failing case.
   EXPECT_EQ(summary.find("FAIL kernel="), summary.rfind("FAIL kernel="));
+}
+
+TEST(Terminal, FailureLineOfAFaultWithNoOutputCarriesNoElementFigures) {
+  RunRecord r = seven_cases();
+  CaseRecord& c = r.cases[1];
+  c.figures = CaseFigures{};
+  c.faults["timeout"] = 1;
+  const std::string line = failure_line(r, c);
+  EXPECT_NE(line.find(" fault=timeout replay: "), std::string::npos) << line;
+  EXPECT_EQ(line.find("expected="), std::string::npos) << line;
+  EXPECT_EQ(line.find("ulp="), std::string::npos) << line;
 }
 
 TEST(Terminal, WorstFigureIsPrintedOnAPassToo) {
@@ -247,7 +275,10 @@ TEST(Terminal, WorstFigureIsPrintedOnAPassToo) {
   const std::string s = terminal_summary(r, false);
   EXPECT_EQ(s.find("FAIL"), std::string::npos);
   EXPECT_NE(s.find(": pass\n"), std::string::npos);
-  EXPECT_NE(s.find("worst ulp 9 (case g-7); worst scaled error 7 (case g-7)"), std::string::npos) << s;
+  // Only figures a limit applies to (no case has a ULP limit).
+  EXPECT_NE(s.find("  worst scaled error 7 (case g-7); worst relative rmse 2.086e-07\n"), std::string::npos) << s;
+  r.cases[0].limits.max_ulp = 12;
+  EXPECT_NE(terminal_summary(r, false).find("worst ulp 9 (case g-7); worst scaled error 7 (case g-7)"), std::string::npos);
   EXPECT_NE(s.find("total"), std::string::npos);
 }
 
@@ -320,7 +351,59 @@ TEST(Markdown, HasCoverageWithUntriedFamiliesTheDisclaimerAndTheFiveWorstInOrder
   r.cases[0].faults["mask_leak"] = 1;  // a fault without details: not "no fault"
   EXPECT_EQ(section(markdown_report(r), "## Faults").find("No fault of any class"), std::string::npos);
   const std::string budget = section(md, "## Error budget");
-  EXPECT_NE(budget.find("| gaussian | float32 | 4 | **1** | 9 | none | 7 | 8 |"), std::string::npos) << budget;
+  // No case has a ULP limit: no ULP column. Margin = the smallest limit ÷ figure (g-7: 8 / 7).
+  EXPECT_NE(budget.find("| gaussian | float32 | 4 | **1** | 7 | 8 | 2.086e-07 | 2.384e-07 | 1.5 | 4 | 1.14 |"),
+            std::string::npos)
+      << budget;
+  EXPECT_EQ(budget.find("worst ULP"), std::string::npos) << budget;
+  // The smallest margin comes before any section.
+  const auto margin = md.find("**Smallest margin: 1.14** (max_scaled_error in case `g-7`");
+  EXPECT_NE(margin, std::string::npos);
+  EXPECT_LT(margin, md.find("## "));
+}
+
+// An int8 kernel judged by relative RMSE alone, being its own plain kernel.
+RunRecord int8_record() {
+  RunRecord r = seven_cases();
+  r.input_format = "int8";
+  for (auto& c : r.cases) {
+    c.format = "int8";
+    c.figures.max_scaled_error = 1.68e7;
+    c.figures.max_ulp = 2e9;
+    c.figures.ratio_to_plain = std::nan("");
+    c.limits.max_scaled_error = INFINITY;
+    c.limits.max_ulp = INFINITY;
+    c.limits.max_ratio_to_plain = 4;
+  }
+  r.cases[0].reference_certified = false;
+  r.cases[3].reference_certified = false;
+  return r;
+}
+
+TEST(Markdown, ShowsOnlyFiguresALimitAppliesToAndExplainsUncertifiedReferencesOnce) {
+  const std::string md = markdown_report(int8_record());
+  const std::string budget = section(md, "## Error budget");
+  EXPECT_EQ(budget.find("scaled"), std::string::npos) << budget;
+  EXPECT_EQ(budget.find("ULP"), std::string::npos) << budget;
+  EXPECT_EQ(budget.find("ratio"), std::string::npos) << budget;
+  EXPECT_NE(budget.find("rel. RMSE limit"), std::string::npos) << budget;
+  EXPECT_EQ(md.find("1.68e+07"), std::string::npos);
+  EXPECT_NE(md.find("not shown: ULP distance, scaled error, ratio to plain"), std::string::npos);
+  std::size_t said = 0;
+  for (auto p = md.find("could not certify"); p != std::string::npos; p = md.find("could not certify", p + 1)) ++said;
+  EXPECT_EQ(said, 1u);
+  EXPECT_NE(md.find("In 2 of 7 cases the reference could not certify"), std::string::npos);
+}
+
+TEST(Terminal, TableHasAMarginColumnAndOnlyLimitedFigures) {
+  const std::string text = terminal_summary(seven_cases(), false);
+  EXPECT_NE(text.find("margin"), std::string::npos);
+  EXPECT_NE(text.find("smallest margin 1.14 (max_scaled_error in case g-7"), std::string::npos) << text;
+  EXPECT_LT(text.find("smallest margin"), text.find("family"));
+  const std::string int8 = terminal_summary(int8_record(), false);
+  EXPECT_EQ(int8.find("worst ulp"), std::string::npos) << int8;
+  EXPECT_EQ(int8.find("worst scaled"), std::string::npos) << int8;
+  EXPECT_NE(int8.find("worst rel rmse"), std::string::npos) << int8;
 }
 
 TEST(Markdown, EscapesNamesSoTheyCannotBreakATable) {
@@ -474,19 +557,43 @@ TEST(Compare, AnyNewFaultRegressesWhateverTheToleranceAndALostFamilyToo) {
   EXPECT_FALSE(compare_records(base, base, 0.0).regressed());
 }
 
+TEST(Compare, OneUlpIsNoiseAndTheTableSummarisesEveryGroup) {
+  RunRecord base = seven_cases();
+  for (auto& k : base.cases) k.figures.max_ulp = 0;
+  RunRecord next = base;
+  next.cases[1].figures.max_ulp = 1;  // 0 → 1 ULP: noise, whatever the tolerance
+  EXPECT_FALSE(compare_records(base, next, 0.1).regressed());
+  next.cases[1].figures.max_ulp = 2;  // 0 → 2 ULP: a regression
+  const Comparison c = compare_records(base, next, 0.1);
+  ASSERT_TRUE(c.regressed());
+  EXPECT_EQ(c.regressions[0].figure, "worst_ulp");
+  ASSERT_EQ(c.groups.size(), 2u);
+  EXPECT_EQ(c.groups[0].status, "worse");
+  EXPECT_EQ(c.groups[1].status, "same");
+  const std::string text = comparison_text(c);
+  EXPECT_NE(text.find("  family   format  cases worst ulp"), std::string::npos) << text;
+  EXPECT_NE(text.find("  gaussian float32 4     0 → 2"), std::string::npos) << text;
+}
+
 TEST(Compare, RunCompareExits1OnRegression0OtherwiseAndWritesJson) {
   const auto dir = fresh_dir("compare");
   const RunRecord base = seven_cases();
   RunRecord worse = base;
-  worse.cases[0].figures.rmse *= 3;
+  worse.cases[0].figures.relative_rmse *= 4;  // g-3: 3 → 12 · 2^-25, past the group's 7 · 2^-25 by over u
   write_run_record(base, dir / "base.json");
   write_run_record(worse, dir / "worse.json");
   std::ostringstream out;
   EXPECT_EQ(run_compare(dir / "base.json", dir / "base.json", 0.1, {}, out), 0);
-  EXPECT_EQ(run_compare(dir / "base.json", dir / "worse.json", 0.1, dir / "cmp.json", out), 1);
+  EXPECT_EQ(run_compare(dir / "base.json", dir / "worse.json", 0.1, dir / "cmp.json", out, dir / "cmp.md"), 1);
   const auto j = nlohmann::json::parse(read_file(dir / "cmp.json"));
   EXPECT_TRUE(j.at("regressed").get<bool>());
-  EXPECT_EQ(j.at("regressions").at(0).at("figure"), "worst_rmse");
+  EXPECT_EQ(j.at("regressions").at(0).at("figure"), "worst_rel_rmse");
+  // Markdown for a pull request: the verdict, the per-group table, the regression.
+  const std::string md = read_file(dir / "cmp.md");
+  EXPECT_EQ(md.rfind("## headroom compare: REGRESSION\n", 0), 0u) << md;
+  EXPECT_NE(md.find("| gaussian | float32 | 4 | 9 | 7 | 2.086e-07 → 3.576e-07 | 1 | 0 | **worse** |"), std::string::npos)
+      << md;
+  EXPECT_NE(md.find("| masks | float32 | 3 | 3 | 6 | 1.788e-07 | 0 | 0 | same |"), std::string::npos) << md;
   // Improvement only: exit 0.
   EXPECT_EQ(run_compare(dir / "worse.json", dir / "base.json", 0.1, {}, out), 0);
 }

@@ -16,7 +16,17 @@ namespace {
 
 constexpr double kNaN = std::numeric_limits<double>::quiet_NaN();
 
-enum class Defect { none, leak_next_key, nondeterministic, nan_masked_rows, flip_causal, inf_first, status };
+enum class Defect {
+  none,
+  leak_next_key,
+  nondeterministic,
+  nondeterministic_rarely,  // differs on every third call only: two determinism runs miss it
+  wrong_head,               // grouped-query: head h reads kv head (kv_head_of(h) + 1) mod Hkv
+  nan_masked_rows,
+  flip_causal,
+  inf_first,
+  status
+};
 
 // Attention in double on the received values, rounded to float32, with one
 // optional defect. For int8 it reads the codes (k8, v8), not the dequantised
@@ -55,7 +65,7 @@ class TestKernel : public AttachedKernel {
     for (std::int64_t b = 0; b < s.batch; ++b)
       for (std::int64_t h = 0; h < s.q_heads; ++h)
         for (std::int64_t i = 0; i < s.q_len; ++i) {
-          const std::int64_t g = kv_head_of(s, h);
+          const std::int64_t g = defect_ == Defect::wrong_head ? (kv_head_of(s, h) + 1) % s.kv_heads : kv_head_of(s, h);
           std::vector<double> z(static_cast<std::size_t>(s.kv_len), -INFINITY);
           double m = -INFINITY;
           for (std::int64_t j = 0; j < s.kv_len; ++j) {
@@ -83,7 +93,8 @@ class TestKernel : public AttachedKernel {
             r.out.at(b, h, i, d) = static_cast<float>(num / den);
           }
         }
-    if (defect_ == Defect::nondeterministic && calls_ % 2 == 0) {
+    if ((defect_ == Defect::nondeterministic && calls_ % 2 == 0) ||
+        (defect_ == Defect::nondeterministic_rarely && calls_ % 3 == 0)) {
       r.out.values[1] = std::nextafter(static_cast<float>(r.out.values[1]), 10.0f);
     }
     if (defect_ == Defect::inf_first) r.out.values[0] = INFINITY;
@@ -139,12 +150,12 @@ struct Outcome {
   CoreReference ref;
 };
 
-Outcome judge(TestKernel& k, const Case& c) {
+Outcome judge(TestKernel& k, const Case& c, const DetectorOptions& opt = {}) {
   const ReceivedCase rc = receive(c, k.declaration());
   Outcome o;
   o.first = k.run(rc, RunOptions{});
   o.ref = reference_core(rc.received.core, rc.received.core_inputs);
-  o.faults = detect_faults(k, rc, o.first, o.ref);
+  o.faults = detect_faults(k, rc, o.first, o.ref, opt);
   return o;
 }
 
@@ -252,6 +263,41 @@ TEST(Detectors, CounterDrivenKernelIsNondeterministic) {
   EXPECT_EQ(o.faults.faults[0].where, (std::vector<std::int64_t>{0, 0, 0, 1}));
   EXPECT_EQ(o.faults.faults[0].count, 1);
   ASSERT_FALSE(o.faults.notes.empty());  // the leak probe is skipped, and says so
+}
+
+TEST(Detectors, NondeterminismTheDeterminismRunsMissIsNoMaskLeak) {
+  // Call 1 is the first run, call 2 the one determinism run (both alike); call 3,
+  // the first leak probe, differs by chance. The probe's repeat tells it apart.
+  DetectorOptions opt;
+  opt.determinism_runs = 2;
+  TestKernel k(Defect::nondeterministic_rarely);
+  const Outcome o = judge(k, padding_case(), opt);
+  expect_only(o.faults, FaultClass::nondeterministic);
+  EXPECT_NE(o.faults.faults[0].detail.find("identical calls gave different outputs"), std::string::npos)
+      << classes(o.faults);
+}
+
+TEST(Detectors, WrongHeadReadIsConventionNotMaskLeak) {
+  // Two kv heads with different dense masks: head 0 reading kv head 1 sees the
+  // keys poisoned for head 1, which head 0 may see.
+  Mask dense;
+  dense.kind = MaskKind::dense;
+  dense.allowed = Tensor({1, 2, 4, 6});
+  for (std::int64_t i = 0; i < 4; ++i)
+    for (std::int64_t j = 0; j < 6; ++j) {
+      dense.allowed.at(0, 0, i, j) = j < 3 ? 1.0 : 0.0;   // head 0 sees keys 0-2
+      dense.allowed.at(0, 1, i, j) = j >= 3 ? 1.0 : 0.0;  // head 1 sees keys 3-5
+    }
+  TestKernel k(Defect::wrong_head);
+  const Outcome o = judge(k, core_case({1, 2, 2, 4, 6, 3, 2}, dense, 11));
+  for (const Fault& f : o.faults.faults) EXPECT_NE(f.kind, FaultClass::mask_leak) << classes(o.faults);
+  const Fault* f = o.faults.find(FaultClass::convention);
+  ASSERT_NE(f, nullptr) << classes(o.faults);
+  EXPECT_NE(f->detail.find("reads the K/V of another head"), std::string::npos) << f->detail;
+  EXPECT_NE(f->detail.find("moves with kv head 1's keys"), std::string::npos) << f->detail;
+  // The same case on a sound kernel: no fault.
+  TestKernel sound(Defect::none);
+  EXPECT_TRUE(judge(sound, core_case({1, 2, 2, 4, 6, 3, 2}, dense, 11)).faults.faults.empty());
 }
 
 TEST(Detectors, NaNOnMaskedRowsDeclaredZerosIsConvention) {

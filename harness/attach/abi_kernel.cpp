@@ -118,6 +118,7 @@ KernelRun classify(const CallOutcome& out, const PackedCall& p, const RunOptions
   }
   r.out = unpack_output(p);
   r.lse = unpack_lse(p);
+  r.unwritten = count_unwritten(p, &r.first_unwritten);
   return r;
 }
 

@@ -92,4 +92,15 @@ void fill_unwritten(Format f, unsigned char* dst, std::size_t count) {
   }
 }
 
+bool is_unwritten(Format f, const unsigned char* src) {
+  switch (f) {
+    case Format::float64: return std::memcmp(src, &kUnwritten64, 8) == 0;
+    case Format::float32: return std::memcmp(src, &kUnwritten32, 4) == 0;
+    case Format::binary16: return std::memcmp(src, &kUnwrittenBinary16, 2) == 0;
+    case Format::bfloat16: return std::memcmp(src, &kUnwrittenBfloat16, 2) == 0;
+    case Format::int8: return false;
+  }
+  return false;
+}
+
 }  // namespace headroom::attach_detail

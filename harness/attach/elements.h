@@ -26,4 +26,8 @@ double load_element(Format f, const unsigned char* src);
 /// marks "never written" (so an element a kernel forgot reads as NaN).
 void fill_unwritten(Format f, unsigned char* dst, std::size_t count);
 
+/// Returns: whether the element of format f at `src` still holds the pattern
+/// fill_unwritten writes (for int8, always false: its fill is a valid code).
+bool is_unwritten(Format f, const unsigned char* src);
+
 }  // namespace headroom::attach_detail

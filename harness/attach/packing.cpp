@@ -1,6 +1,7 @@
 // headroom — laying a received case out as hr_core_problem / hr_block_problem (packing.h).
 #include "attach/packing.h"
 
+#include <algorithm>
 #include <cstring>
 #include <stdexcept>
 #include <string>
@@ -305,6 +306,20 @@ Tensor unpack_output(const PackedCall& p) {
     out.values[i] = load_element(p.output_format, src + at * n);
   });
   return out;
+}
+
+std::int64_t count_unwritten(const PackedCall& p, std::int64_t* first) {
+  const unsigned char* src = p.arena.data(p.out_slot);
+  const std::size_t n = item_size(p.output_format);
+  std::int64_t count = 0;
+  std::size_t lowest = static_cast<std::size_t>(-1);
+  for_each_element(p.out_extents, p.out_strides, [&](std::size_t i, std::size_t at) {
+    if (!is_unwritten(p.output_format, src + at * n)) return;
+    ++count;
+    lowest = std::min(lowest, i);
+  });
+  *first = count == 0 ? -1 : static_cast<std::int64_t>(lowest);
+  return count;
 }
 
 Tensor unpack_lse(const PackedCall& p) {

@@ -42,5 +42,8 @@ PackedCall pack(const ReceivedCase& c, const KernelDeclaration& d);
 /// when returned, the log-sum-exp [B, Hq, Tq].
 Tensor unpack_output(const PackedCall& p);
 Tensor unpack_lse(const PackedCall& p);
+/// Returns: how many output elements still hold the unwritten fill; sets
+/// `*first` to the flat index (into unpack_output's tensor) of the first, −1 when none.
+std::int64_t count_unwritten(const PackedCall& p, std::int64_t* first);
 
 }  // namespace headroom::attach_detail

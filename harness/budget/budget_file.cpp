@@ -2,6 +2,7 @@
 //
 // Every error names the file, the line and column toml++ records for the
 // offending node, and the fix; nothing in a budget file is ignored silently.
+#include <algorithm>
 #include <cmath>
 #include <cstdio>
 #include <fstream>
@@ -13,6 +14,7 @@
 
 #include "headroom/budget.h"
 #include "headroom/input_error.h"
+#include "headroom/nearest_name.h"
 
 namespace headroom {
 namespace {
@@ -225,6 +227,7 @@ class Reader {
         for (auto&& [kk, kv] : *t) {
           const std::string name(kk.str());
           b.kernels.emplace(name, section("kernel." + name, kv));  // TOML itself refuses a duplicate key
+          b.kernel_lines.emplace(name, static_cast<int>(kk.source().begin.line));
         }
       } else {
         fail(k.source(), "unknown key \"" + key + "\" at the top level",
@@ -278,6 +281,27 @@ Budget load_budget(const std::string& path) {
   text << in.rdbuf();
   if (in.bad()) throw InputError(path, "file", "cannot be read", "check the file and its permissions");
   return parse_budget(text.str(), path);
+}
+
+std::string Budget::Unmatched::text() const {
+  return source + " line " + std::to_string(line) + ": [kernel." + name +
+         "] names no kernel of this run, so it is not applied" +
+         (suggestion.empty() ? "" : " (did you mean [kernel." + suggestion + "]?)");
+}
+
+std::vector<Budget::Unmatched> Budget::unmatched_kernel_sections(const std::vector<std::string>& run_kernels,
+                                                                 const std::vector<std::string>& also_known) const {
+  // The run's own kernels first: a typo of the kernel being judged is the costly one.
+  std::vector<std::string> candidates = run_kernels;
+  candidates.insert(candidates.end(), also_known.begin(), also_known.end());
+  std::vector<Unmatched> out;
+  for (const auto& [name, section] : kernels) {
+    if (std::find(candidates.begin(), candidates.end(), name) != candidates.end()) continue;
+    const auto line = kernel_lines.find(name);
+    out.push_back({name, line == kernel_lines.end() ? 0 : line->second, nearest_name(name, candidates), source});
+  }
+  std::sort(out.begin(), out.end(), [](const Unmatched& a, const Unmatched& b) { return a.line < b.line; });
+  return out;
 }
 
 KernelBudget Budget::for_kernel(std::string_view name, Format input) const {

@@ -51,8 +51,10 @@ Verdict judge(const CaseScore* score, const CaseFaults& faults, const KernelBudg
     VerdictReason r;
     r.what = "bad_output";
     r.value = faults.bad_output_runs;
-    r.text = "bad_output: the kernel's output was missing, malformed or mis-shaped in " +
-             std::to_string(faults.bad_output_runs) + " run(s)";
+    r.text = "bad_output: " +
+             (faults.bad_output_detail.empty() ? std::string("the kernel's output was missing, malformed or mis-shaped")
+                                               : faults.bad_output_detail) +
+             (faults.bad_output_runs > 1 ? " (" + std::to_string(faults.bad_output_runs) + " runs)" : "");
     v.reasons.push_back(std::move(r));
   }
   if (faults.unsupported_runs > 0) v.notes.push_back("the kernel declined the case (unsupported): not scored");
@@ -72,7 +74,6 @@ Verdict judge(const CaseScore* score, const CaseFaults& faults, const KernelBudg
     add_fault(v, budget, FaultClass::non_finite, s.non_finite + s.lse_non_finite,
               std::to_string(s.non_finite) + " non-finite outputs" + (where.empty() ? "" : ", first at " + where + "]"));
   }
-  if (!s.reference_certified) v.notes.push_back("the reference did not meet its certification target on every element");
 
   // Each row against its own limit: a row of large scores may lose what forming
   // them costs (score conditioning), a row of small ones may not.
@@ -86,6 +87,24 @@ Verdict judge(const CaseScore* score, const CaseFaults& faults, const KernelBudg
       worst_value = s.row_max_scaled[r];
       worst_limit = limit;
       worst_row = r;
+    }
+  }
+  // Which limit was binding, and why it had its value: said for a failing or
+  // near-failing row (within a factor 2: our own threshold), and wherever score
+  // conditioning, not the arithmetic bound, set most of the limit.
+  if (worst_row < s.row_max_scaled.size() && std::isfinite(worst_limit)) {
+    const double base = budget.scaled_error_limit(n, s.format);
+    const double conditioning = worst_limit - base;
+    if (worst_excess > 0.5 || conditioning > base) {
+      std::string why = "limit max_scaled_error " + number(worst_limit) + " at row " + std::to_string(worst_row) + ": " +
+                        number(base) + " from " + budget.max_scaled_error.describe(n, s.unit_roundoff) + " (" +
+                        budget.max_scaled_error.origin + ")";
+      if (conditioning > 0 && worst_row < s.row_score_magnitude.size())
+        why += " + " + number(conditioning) + " for score conditioning: scores in this row reach |z| = " +
+               number(s.row_score_magnitude[worst_row]) + ", formed with u_s = 2^-" + std::to_string(budget.score_bits) +
+               " (docs/budget-format.md, \"Score conditioning\")";
+      why += "; worst there " + number(worst_value) + ", margin " + number(worst_limit / worst_value);
+      v.notes.push_back(why);
     }
   }
   if (s.row_max_scaled.empty() ? s.max_scaled_error > worst_limit : worst_excess > 1.0) {

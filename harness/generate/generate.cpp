@@ -284,8 +284,8 @@ std::string core_shape_text(const CoreShape& s) {
          std::to_string(s.value_dim);
 }
 
-std::string case_command(const CaseRequest& req, std::string_view out) {
-  std::string cmd = "headroom case make --family " + req.family + " --seed " + std::to_string(req.seed) + " --size " +
+std::string case_command(const CaseRequest& req, std::string_view out, std::string_view tool) {
+  std::string cmd = std::string(tool) + " case make --family " + req.family + " --seed " + std::to_string(req.seed) + " --size " +
                     std::to_string(req.size);
   if (req.level) cmd += *req.level == Level::block ? " --level block" : " --level core";
   if (req.shape) cmd += " --shape " + core_shape_text(*req.shape);

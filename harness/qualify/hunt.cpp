@@ -19,9 +19,9 @@ Judgement judge_with_budget(AttachedKernel& k, const Case& c, const CaseRequest&
   return j;
 }
 
-std::string replay_of(const CaseRequest& req, const std::string& spec, const std::string& name) {
-  const std::string dir = "case-" + case_folder_name(name);
-  return case_command(req, dir) + " && headroom replay --kernel " + spec + " " + dir;
+std::string replay_of(const CaseRequest& req, const RunnerOptions& run, const std::string& kernel_name,
+                      const std::string& name) {
+  return make_and_replay_command(run, kernel_name, req, "case-" + case_folder_name(name));
 }
 
 }  // namespace
@@ -66,7 +66,6 @@ std::vector<CaseRequest> hunt_requests(const HuntOptions& opt, Level level) {
 HuntResult hunt(AttachedKernel& k, const HuntOptions& opt) {
   const KernelDeclaration& d = k.declaration();
   const RunnerOptions& run = opt.runner;
-  const std::string spec = run.kernel_spec.empty() ? d.name : run.kernel_spec;
   HuntResult result;
   RunRecord& record = result.record;
   record.kernel = d.name;
@@ -91,7 +90,7 @@ HuntResult hunt(AttachedKernel& k, const HuntOptions& opt) {
         continue;
       }
     }
-    Judgement j = judge_with_budget(k, c, req, run, replay_of(req, spec, c.name));
+    Judgement j = judge_with_budget(k, c, req, run, replay_of(req, run, d.name, c.name));
     if (j.unfit) {
       record.skipped.push_back(c.name + ": " + *j.unfit);
       if (run.progress) run.progress(++done, reqs.size(), j.record);
@@ -111,7 +110,7 @@ HuntResult hunt(AttachedKernel& k, const HuntOptions& opt) {
           const Case candidate = it->value();
           CaseRequest cand_req = current_req;
           cand_req.shrink_path.push_back(index);
-          Judgement cj = judge_with_budget(k, candidate, cand_req, run, replay_of(cand_req, spec, candidate.name));
+          Judgement cj = judge_with_budget(k, candidate, cand_req, run, replay_of(cand_req, run, d.name, candidate.name));
           if (!cj.unfit && failure_signature(cj.record) == signature) {
             current = *it;
             current_req = std::move(cand_req);
@@ -127,7 +126,7 @@ HuntResult hunt(AttachedKernel& k, const HuntOptions& opt) {
         finding.saved = opt.save / case_folder_name(c.name);
         std::filesystem::create_directories(opt.save);
         write_case(c, finding.saved);
-        j.record.replay = "headroom replay --kernel " + spec + " " + finding.saved.string();
+        j.record.replay = replay_command(run, d.name, finding.saved.string());
       }
       result.findings.push_back(finding);
     }

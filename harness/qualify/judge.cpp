@@ -75,12 +75,10 @@ void record_faults(CaseRecord& rec, const CaseFaults& f) {
   }
   if (f.bad_output_runs > 0) {
     rec.faults["bad_output"] += 1;
-    rec.fault_details.push_back("bad_output: " + std::to_string(f.bad_output_runs) + " run(s) gave missing or malformed output");
+    rec.fault_details.push_back("bad_output: " + (f.bad_output_detail.empty() ? "missing or malformed output"
+                                                                                : f.bad_output_detail));
   }
-  if (f.unsupported_runs > 0) {
-    rec.faults["unsupported"] += 1;
-    rec.fault_details.push_back("unsupported: the kernel declined a problem it declared it supports");
-  }
+  // A declined case (unsupported) is no fault: run_cases lists it among the skipped, with the reason.
 }
 
 void fill_figures(CaseFigures& fig, const CaseScore& s) {
@@ -97,6 +95,7 @@ void fill_figures(CaseFigures& fig, const CaseScore& s) {
   fig.worst_index = join(s.worst_scaled.index);
   fig.worst_expected = s.worst_scaled.expected;
   fig.worst_obtained = s.worst_scaled.obtained;
+  fig.worst_ulp_at = static_cast<double>(s.worst_scaled.error.ulp);
 }
 
 }  // namespace
@@ -201,8 +200,15 @@ Judgement judge_case(AttachedKernel& k, const Case& c, const JudgeOptions& opt, 
   if (first.status != RunStatus::ok) {
     // Only the status is judged: there is no output to score or probe.
     if (auto f = fault_of(first.status)) j.faults.faults.push_back({*f, first.detail, {}, 1, -1});
-    if (first.status == RunStatus::bad_output) j.faults.bad_output_runs = 1;
-    if (first.status == RunStatus::unsupported) j.faults.unsupported_runs = 1;
+    if (first.status == RunStatus::bad_output) {
+      j.faults.bad_output_runs = 1;
+      j.faults.bad_output_detail = first.detail;
+    }
+    if (first.status == RunStatus::unsupported) {
+      j.faults.unsupported_runs = 1;
+      j.unfit = "declined by the kernel (" + (first.detail.empty() ? std::string("unsupported") : first.detail) +
+                "): not run, not a fault";
+    }
     record_faults(rec, j.faults);
     return j;
   }
@@ -212,8 +218,7 @@ Judgement judge_case(AttachedKernel& k, const Case& c, const JudgeOptions& opt, 
   condition_on_scores(*j.score, rc.received);
   fill_figures(rec.figures, *j.score);
   rec.ulp_histogram.assign(j.score->ulp_histogram.begin(), j.score->ulp_histogram.end());
-  if (!j.score->reference_certified)
-    rec.fault_details.push_back("note: the reference could not certify every element to its target");
+  rec.reference_certified = j.score->reference_certified;  // explained once per report, not per case
 
   j.faults = faults_of(k, rc, first, ref, opt.detect);
   record_faults(rec, j.faults);

@@ -105,7 +105,8 @@ json figures_json(const CaseFigures& f) {
           {"kernel_error", number(f.kernel_error)},
           {"worst_index", f.worst_index},
           {"worst_expected", number(f.worst_expected)},
-          {"worst_obtained", number(f.worst_obtained)}};
+          {"worst_obtained", number(f.worst_obtained)},
+          {"worst_ulp_at", number(f.worst_ulp_at)}};
 }
 
 CaseFigures figures_from(const Reader& r) {
@@ -125,6 +126,8 @@ CaseFigures figures_from(const Reader& r) {
   f.worst_index = r.str("worst_index");
   f.worst_expected = r.num("worst_expected");
   f.worst_obtained = r.num("worst_obtained");
+  // Added after schema 1 was first written: records without it still read (as NaN).
+  if (r.has("worst_ulp_at")) f.worst_ulp_at = r.num("worst_ulp_at");
   return f;
 }
 
@@ -242,7 +245,8 @@ json to_json(const CaseRecord& c) {
           {"reasons", c.reasons},
           {"replay", c.replay},
           {"ulp_histogram", c.ulp_histogram},
-          {"limits", limits_json(c.limits)}};
+          {"limits", limits_json(c.limits)},
+          {"reference_certified", c.reference_certified}};
 }
 
 json to_json(const RunRecord& r) {
@@ -267,7 +271,8 @@ json to_json(const RunRecord& r) {
           {"faults", r.fault_totals()},
           {"tolerated_faults", r.tolerated_faults},
           {"cases", cases},
-          {"skipped", r.skipped}};
+          {"skipped", r.skipped},
+          {"warnings", r.warnings}};
 }
 
 CaseRecord case_record_from_json(const json& j, const std::string& file, const std::string& place) {
@@ -298,6 +303,7 @@ CaseRecord case_record_from_json(const json& j, const std::string& file, const s
   c.ulp_histogram = r.numbers("ulp_histogram");
   // Added after schema 1 was first written: records without it still read.
   if (r.has("limits")) c.limits = limits_from(Reader(r.field("limits"), file, place + " limits"));
+  if (r.has("reference_certified")) c.reference_certified = r.boolean("reference_certified");
   return c;
 }
 
@@ -324,6 +330,7 @@ RunRecord run_record_from_json(const json& j, const std::string& file) {
   rec.skipped = r.strings("skipped");
   // Added after schema 1 was first written: records without it still read (as none).
   if (r.has("tolerated_faults")) rec.tolerated_faults = r.strings("tolerated_faults");
+  if (r.has("warnings")) rec.warnings = r.strings("warnings");
   return rec;
 }
 

@@ -20,14 +20,25 @@ std::uint64_t stable_hash(const std::string& s) {
   return h;
 }
 
-std::string quote(const std::string& s) {
-  if (s.find_first_of(" \t'\"$\\;&|<>()*?") == std::string::npos) return s;
+}  // namespace
+
+std::string shell_quote(const std::string& s) {
+  if (!s.empty() && s.find_first_of(" \t\n'\"$\\;&|<>()*?[]{}~`#!=") == std::string::npos) return s;
   std::string out = "'";
   for (char ch : s) out += ch == '\'' ? std::string("'\\''") : std::string(1, ch);
   return out + "'";
 }
 
-}  // namespace
+std::string replay_command(const RunnerOptions& opt, const std::string& kernel_name, const std::string& folder) {
+  const std::string spec = opt.kernel_spec.empty() ? kernel_name : opt.kernel_spec;
+  return shell_quote(opt.tool) + " replay " + (opt.kernel_is_program ? "--kernel-cmd " : "--kernel ") +
+         shell_quote(spec) + opt.judging_options + " " + shell_quote(folder);
+}
+
+std::string make_and_replay_command(const RunnerOptions& opt, const std::string& kernel_name,
+                                    const CaseRequest& request, const std::string& dir) {
+  return case_command(request, dir, shell_quote(opt.tool)) + " && " + replay_command(opt, kernel_name, dir);
+}
 
 std::string case_folder_name(const std::string& name) {
   std::string out = name;
@@ -107,14 +118,9 @@ RunRecord run_cases(AttachedKernel& k, const std::vector<PlannedCase>& cases, co
         continue;
       }
     }
-    const std::string spec = quote(opt.kernel_spec.empty() ? d.name : opt.kernel_spec);
-    std::string replay;
-    if (p->request) {
-      const std::string dir = "case-" + case_folder_name(p->c.name);
-      replay = case_command(*p->request, dir) + " && headroom replay --kernel " + spec + " " + dir;
-    } else {
-      replay = "headroom replay --kernel " + spec + " " + quote(p->folder.string());
-    }
+    const std::string replay = p->request
+                                   ? make_and_replay_command(opt, d.name, *p->request, "case-" + case_folder_name(p->c.name))
+                                   : replay_command(opt, d.name, p->folder.string());
     Judgement j = judge_case(k, p->c, opt.judge, replay);
     if (p->request) j.record.size = p->request->size;
     if (j.unfit) {
@@ -129,7 +135,7 @@ RunRecord run_cases(AttachedKernel& k, const std::vector<PlannedCase>& cases, co
       const auto folder = opt.save_failures / case_folder_name(p->c.name);
       std::filesystem::create_directories(opt.save_failures);
       write_case(p->c, folder);
-      j.record.replay = "headroom replay --kernel " + spec + " " + quote(folder.string());
+      j.record.replay = replay_command(opt, d.name, folder.string());
     }
     if (opt.journal) opt.journal->append(j.record);
     record.cases.push_back(j.record);

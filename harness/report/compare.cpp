@@ -1,6 +1,7 @@
 // headroom — comparing two run records (compare.h).
 #include "headroom/compare.h"
 
+#include <algorithm>
 #include <cmath>
 #include <limits>
 #include <map>
@@ -9,6 +10,7 @@
 #include <fmt/format.h>
 
 #include "headroom/atomic_file.h"
+#include "headroom/format.h"
 #include "headroom/input_error.h"
 #include "headroom/run_summary.h"
 
@@ -44,10 +46,10 @@ class Comparer {
       return;
     }
     if (std::isnan(base)) return;  // newly measured: nothing to compare against
-    const double t = out_.tolerance;
-    if (next > base * (1 + t))
+    const double t = out_.tolerance, floor = floor_of(figure);
+    if (next > base * (1 + t) && next - base > floor)
       add(out_.regressions, "REGRESSION", n, figure, base, next);
-    else if (next * (1 + t) < base)
+    else if (next * (1 + t) < base && base - next > floor)
       add(out_.improvements, "BETTER", n, figure, base, next);
   }
   // A count (faults, failing cases): any increase regresses.
@@ -65,6 +67,12 @@ class Comparer {
   }
 
  private:
+  double floor_of(const std::string& figure) const {
+    if (figure == "worst_ulp") return out_.floors.ulp;
+    if (figure == "worst_scaled_error") return out_.floors.scaled;
+    if (figure == "worst_rel_rmse") return out_.floors.rel_rmse;
+    return 0;
+  }
   void add(std::vector<FigureChange>& list, const char* word, const GroupSummary& g, const std::string& figure,
            double base, double next) {
     FigureChange c{kernel_, g.family, g.format, figure, base, next, relative_change(base, next), ""};
@@ -82,7 +90,80 @@ std::map<std::pair<std::string, std::string>, GroupSummary> by_group(const RunRe
   return out;
 }
 
+// The summary table: one row per group of either record, with its status.
+std::vector<GroupComparison> group_rows(const RunRecord& base, const RunRecord& next, const Comparison& c) {
+  std::vector<GroupComparison> rows;
+  std::map<std::pair<std::string, std::string>, std::size_t> at;
+  auto row = [&](const GroupSummary& g) -> GroupComparison& {
+    const auto key = std::make_pair(g.family, g.format);
+    if (auto it = at.find(key); it != at.end()) return rows[it->second];
+    at[key] = rows.size();
+    rows.push_back({g.family, g.format});
+    return rows.back();
+  };
+  for (const auto& g : summarise_groups(base)) {
+    GroupComparison& r = row(g);
+    r.in_base = true;
+    r.base_cases = static_cast<double>(g.cases);
+    r.base_ulp = g.worst_ulp;
+    r.base_scaled = g.worst_scaled_error;
+    r.base_rel_rmse = g.worst_rel_rmse;
+    r.base_failing = static_cast<double>(g.failing);
+    r.base_faults = g.fault_count();
+  }
+  for (const auto& g : summarise_groups(next)) {
+    GroupComparison& r = row(g);
+    r.in_new = true;
+    r.new_cases = static_cast<double>(g.cases);
+    r.new_ulp = g.worst_ulp;
+    r.new_scaled = g.worst_scaled_error;
+    r.new_rel_rmse = g.worst_rel_rmse;
+    r.new_failing = static_cast<double>(g.failing);
+    r.new_faults = g.fault_count();
+  }
+  for (auto& r : rows) {
+    auto any = [&](const std::vector<FigureChange>& list) {
+      for (const auto& f : list)
+        if (f.family == r.family && f.format == r.format) return true;
+      return false;
+    };
+    r.status = !r.in_new ? "lost" : !r.in_base ? "new" : any(c.regressions) ? "worse" : any(c.improvements) ? "better" : "same";
+  }
+  return rows;
+}
+
+// "7 → 10.5", or "7" when unchanged, "—" for a side that lacks the group.
+std::string change_text(bool in_base, double base, bool in_new, double next) {
+  const std::string b = in_base ? figure_text(base) : "—", n = in_new ? figure_text(next) : "—";
+  if (b == n) return b;
+  return b + " → " + n;
+}
+
+std::vector<std::vector<std::string>> table_cells(const Comparison& c) {
+  std::vector<std::vector<std::string>> out;
+  for (const auto& r : c.groups) {
+    out.push_back({r.family, r.format, change_text(r.in_base, r.base_cases, r.in_new, r.new_cases),
+                   change_text(r.in_base, r.base_ulp, r.in_new, r.new_ulp),
+                   change_text(r.in_base, r.base_scaled, r.in_new, r.new_scaled),
+                   change_text(r.in_base, r.base_rel_rmse, r.in_new, r.new_rel_rmse),
+                   change_text(r.in_base, r.base_failing, r.in_new, r.new_failing),
+                   change_text(r.in_base, r.base_faults, r.in_new, r.new_faults), r.status});
+  }
+  return out;
+}
+
+const std::vector<std::string> kTableHead{"family", "format", "cases", "worst ulp", "worst scaled", "worst rel rmse",
+                                          "failing", "faults", "change"};
+
 }  // namespace
+
+NoiseFloors default_noise_floors(const std::string& output_format) {
+  NoiseFloors f;
+  const auto fmt = parse_format(output_format);
+  // int8 kernels write float32 (format.h); an unknown name gets float32's u too.
+  f.rel_rmse = unit_roundoff(fmt && *fmt != Format::int8 ? *fmt : Format::float32);
+  return f;
+}
 
 Comparison compare_records(const RunRecord& base, const RunRecord& next, double tolerance, const std::string& base_file,
                            const std::string& new_file) {
@@ -90,6 +171,7 @@ Comparison compare_records(const RunRecord& base, const RunRecord& next, double 
   out.base_file = base_file;
   out.new_file = new_file;
   out.tolerance = tolerance;
+  out.floors = default_noise_floors(next.output_format.empty() ? base.output_format : next.output_format);
   if (base.kernel != next.kernel)
     out.notes.push_back(fmt::format("kernels differ: BASE {}, NEW {}", base.kernel, next.kernel));
   if (base.suite != next.suite)
@@ -108,7 +190,7 @@ Comparison compare_records(const RunRecord& base, const RunRecord& next, double 
     const GroupSummary& n = it->second;
     cmp.error_figure(g, n, "worst_ulp", g.worst_ulp, n.worst_ulp);
     cmp.error_figure(g, n, "worst_scaled_error", g.worst_scaled_error, n.worst_scaled_error);
-    cmp.error_figure(g, n, "worst_rmse", g.worst_rmse, n.worst_rmse);
+    cmp.error_figure(g, n, "worst_rel_rmse", g.worst_rel_rmse, n.worst_rel_rmse);
     cmp.count_figure(n, "failing_cases", static_cast<double>(g.failing), static_cast<double>(n.failing));
     std::map<std::string, int> classes = g.faults;
     for (const auto& [name, k] : n.faults) classes.emplace(name, 0);
@@ -120,17 +202,75 @@ Comparison compare_records(const RunRecord& base, const RunRecord& next, double 
   for (const auto& g : summarise_groups(next))
     if (!b_groups.count({g.family, g.format}))
       out.notes.push_back(fmt::format("family={} format={}: {} cases in NEW only, not compared", g.family, g.format, g.cases));
+  out.groups = group_rows(base, next, out);
   return out;
 }
 
 std::string comparison_text(const Comparison& c) {
-  std::string s = fmt::format("compare {} → {} (tolerance {:g}%)\n", c.base_file, c.new_file, 100 * c.tolerance);
+  std::string s = fmt::format("compare {} → {} (tolerance {:g}%; changes under 1 ULP, 1 scaled-error unit or {} of "
+                              "relative RMSE are noise)\n",
+                              c.base_file, c.new_file, 100 * c.tolerance, figure_text(c.floors.rel_rmse));
   for (const auto& n : c.notes) s += "  note: " + n + "\n";
+  // The per-group table, columns padded to their widest cell (counted in code points: "→" is one column).
+  const auto cells = table_cells(c);
+  auto width_of = [](const std::string& t) {
+    std::size_t w = 0;
+    for (unsigned char ch : t) w += (ch & 0xC0) != 0x80;
+    return w;
+  };
+  std::vector<std::size_t> width(kTableHead.size());
+  for (std::size_t i = 0; i < kTableHead.size(); ++i) width[i] = width_of(kTableHead[i]);
+  for (const auto& row : cells)
+    for (std::size_t i = 0; i < row.size(); ++i) width[i] = std::max(width[i], width_of(row[i]));
+  auto line = [&](const std::vector<std::string>& row) {
+    std::string l = " ";
+    for (std::size_t i = 0; i < row.size(); ++i) l += " " + row[i] + std::string(width[i] - width_of(row[i]), ' ');
+    while (!l.empty() && l.back() == ' ') l.pop_back();
+    return l + "\n";
+  };
+  s += line(kTableHead);
+  for (const auto& row : cells) s += line(row);
   for (const auto& r : c.regressions) s += r.text + "\n";
   for (const auto& i : c.improvements) s += i.text + "\n";
   s += fmt::format("{} regression(s), {} improvement(s): {}\n", c.regressions.size(), c.improvements.size(),
                    c.regressed() ? "worse" : "no regression");
   return s;
+}
+
+std::string comparison_markdown(const Comparison& c) {
+  auto cell = [](const std::string& t) {
+    std::string out;
+    for (char ch : t) out += ch == '|' ? std::string("\\|") : std::string(1, ch);
+    return out;
+  };
+  std::string md = fmt::format("## headroom compare: {}\n\n", c.regressed() ? "REGRESSION" : "no regression");
+  md += fmt::format("`{}` → `{}`: {} regression(s), {} improvement(s); tolerance {:g} %, changes under 1 ULP, 1 "
+                    "scaled-error unit or {} of relative RMSE are noise.\n\n",
+                    c.base_file, c.new_file, c.regressions.size(), c.improvements.size(), 100 * c.tolerance,
+                    figure_text(c.floors.rel_rmse));
+  for (const auto& n : c.notes) md += "> note: " + cell(n) + "\n>\n";
+  if (!c.notes.empty()) md += "\n";
+  md += "|";
+  for (const auto& h : kTableHead) md += " " + h + " |";
+  md += "\n|";
+  for (std::size_t i = 0; i < kTableHead.size(); ++i) md += i < 2 ? "---|" : i + 1 == kTableHead.size() ? "---|" : "---:|";
+  md += "\n";
+  for (const auto& row : table_cells(c)) {
+    md += "|";
+    for (std::size_t i = 0; i < row.size(); ++i) {
+      const bool worse = i + 1 == row.size() && (row[i] == "worse" || row[i] == "lost");
+      md += " " + (worse ? "**" + cell(row[i]) + "**" : cell(row[i])) + " |";
+    }
+    md += "\n";
+  }
+  auto list = [&](const char* title, const std::vector<FigureChange>& changes) {
+    if (changes.empty()) return;
+    md += fmt::format("\n### {}\n\n", title);
+    for (const auto& f : changes) md += "- `" + f.text + "`\n";
+  };
+  list("Regressions", c.regressions);
+  list("Improvements", c.improvements);
+  return md;
 }
 
 json to_json(const Comparison& c) {
@@ -151,7 +291,7 @@ json to_json(const Comparison& c) {
 }
 
 int run_compare(const std::filesystem::path& base, const std::filesystem::path& next, double tolerance,
-                const std::filesystem::path& json_out, std::ostream& out) {
+                const std::filesystem::path& json_out, std::ostream& out, const std::filesystem::path& markdown_out) {
   if (!std::isfinite(tolerance) || tolerance < 0)
     throw InputError("command line", "--tolerance", fmt::format("is {}, not a finite number ≥ 0", tolerance),
                      "give a relative tolerance such as 0.10 for 10 %");
@@ -160,6 +300,7 @@ int run_compare(const std::filesystem::path& base, const std::filesystem::path& 
   const Comparison c = compare_records(b, n, tolerance, base.string(), next.string());
   out << comparison_text(c);
   if (!json_out.empty()) write_file_atomically(json_out, to_json(c).dump(2) + "\n");
+  if (!markdown_out.empty()) write_file_atomically(markdown_out, comparison_markdown(c));
   return c.regressed() ? 1 : 0;
 }
 

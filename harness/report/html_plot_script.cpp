@@ -86,9 +86,17 @@ const char* const kPlotScript = R"JS(
   function scatter(id, key, xlabel, title) {
     var pts = data.cases.filter(function (c) { return c[key] !== null && c.scaled !== null; });
     var xs = logScale(pts.map(function (c) { return c[key]; }));
-    var ys = logScale(pts.map(function (c) { return c.scaled; }));
+    // The axis spans the limits too, so each case's limit is drawn where it is.
+    var ys = logScale(pts.map(function (c) { return c.scaled; }).concat(
+        pts.filter(function (c) { return c.limit !== null && c.limit !== undefined; }).map(function (c) { return c.limit; })));
     var s = frame(id, W, H, title);
     axes(s, xs, ys, xlabel, "max scaled error (log)");
+    pts.forEach(function (c) {
+      if (c.limit === null || c.limit === undefined) return;
+      var x = M.l + xs.f(c[key]) * PW, y = M.t + (1 - ys.f(c.limit)) * PH;
+      tip(el("line", {x1: (x - 6).toFixed(2), x2: (x + 6).toFixed(2), y1: y.toFixed(2), y2: y.toFixed(2),
+                      "class": "limit"}, s), c.name + ": scaled-error limit " + c.limit);
+    });
     // Failing cases are drawn last so that they stay on top.
     pts.slice().sort(function (a, b) { return (a.pass === b.pass) ? 0 : (a.pass ? -1 : 1); }).forEach(function (c) {
       var m = el("circle", {cx: (M.l + xs.f(c[key]) * PW).toFixed(2), cy: (M.t + (1 - ys.f(c.scaled)) * PH).toFixed(2),

@@ -33,6 +33,7 @@ code, pre { font-family: ui-monospace, "DejaVu Sans Mono", monospace; font-size:
 pre { background: #f5f6f9; border: 1px solid #e1e4ea; padding: 0.5em 0.8em; overflow-x: auto; white-space: pre-wrap; }
 .verdict-pass { color: #17702d; } .verdict-fail { color: #b3261e; }
 td.fail, span.fail { color: #b3261e; font-weight: 600; }
+line.limit { stroke: #4a5263; stroke-width: 2; } .key.limit-key { border-top: 2px solid #4a5263; height: 0; }
 blockquote { border-left: 4px solid #8a94a8; margin: 1em 0; padding: 0.3em 1em; background: #f7f8fb; }
 .plots { display: grid; grid-template-columns: repeat(auto-fill, minmax(660px, 1fr)); gap: 1em; }
 figure { margin: 0; border: 1px solid #e1e4ea; padding: 0.6em; background: #fff; }
@@ -77,6 +78,7 @@ json plot_data(const RunRecord& r) {
                      {"kv_len", c.kv_len},
                      {"logit_scale", plot_number(c.logit_scale)},
                      {"scaled", plot_number(c.figures.max_scaled_error)},
+                     {"limit", plot_number(c.limits.max_scaled_error)},
                      {"ulp", plot_number(c.figures.max_ulp)},
                      {"pass", c.within_budget}});
   }
@@ -138,16 +140,31 @@ std::string html_report(const RunRecord& r) {
   o += "</table>\n";
   o += fmt::format("<blockquote>{}</blockquote>\n", h(kEvidenceNotProof));
 
+  if (!std::isnan(total.margin))
+    o += fmt::format("<p><b>Smallest margin: {}</b> ({} in case <code>{}</code>; margin = limit ÷ worst figure: above "
+                     "1 is within budget, below 1 fails).</p>\n",
+                     h(margin_text(total.margin)), h(total.margin_figure), h(total.margin_case));
+  for (const auto& w : r.warnings) o += "<p class=\"fail\"><b>Warning:</b> " + h(w) + "</p>\n";
+
+  // Only the figures a limit applies to (as in the Markdown report).
+  const LimitedFigures shown = limited_figures(r);
   o += "<h2>Worst figures</h2>\n";
   if (r.cases.empty()) {
     o += "<p>No case was run.</p>\n";
   } else {
-    o += fmt::format("<ul><li>worst ULP distance: <b>{}</b> (case <code>{}</code>)</li>"
-                     "<li>worst scaled error: <b>{}</b> rounding units (case <code>{}</code>)</li>"
-                     "<li>worst RMSE: <b>{}</b>; worst relative RMSE: <b>{}</b></li></ul>\n",
-                     h(figure_text(total.worst_ulp)), h(total.worst_ulp_case), h(figure_text(total.worst_scaled_error)),
-                     h(total.worst_scaled_case), h(figure_text(total.worst_rmse)), h(figure_text(total.worst_rel_rmse)));
+    o += "<ul>";
+    if (shown.ulp)
+      o += fmt::format("<li>worst ULP distance: <b>{}</b> (case <code>{}</code>)</li>", h(figure_text(total.worst_ulp)),
+                       h(total.worst_ulp_case));
+    if (shown.scaled)
+      o += fmt::format("<li>worst scaled error: <b>{}</b> rounding units of the row magnitude (case <code>{}</code>)</li>",
+                       h(figure_text(total.worst_scaled_error)), h(total.worst_scaled_case));
+    if (shown.rel_rmse) o += fmt::format("<li>worst relative RMSE: <b>{}</b></li>", h(figure_text(total.worst_rel_rmse)));
+    if (shown.ratio)
+      o += fmt::format("<li>worst ratio to the plain kernel: <b>{}</b></li>", h(figure_text(total.worst_ratio_to_plain)));
+    o += "</ul>\n";
   }
+  if (const std::string why = uncertified_explanation(r); !why.empty()) o += "<blockquote>" + h(why) + "</blockquote>\n";
 
   o += "<h2>Plots</h2>\n<div class=\"plots\">\n";
   const std::pair<const char*, const char*> figures[] = {
@@ -162,25 +179,35 @@ std::string html_report(const RunRecord& r) {
   for (const auto& [id, text] : figures) {
     std::string keys;
     if (std::string(id) == "kv-len" || std::string(id) == "logit-scale")
-      keys = "<br><span class=\"key pass-key\"></span>within budget<span class=\"key fail-key\"></span>failing";
+      keys = "<br><span class=\"key pass-key\"></span>within budget<span class=\"key fail-key\"></span>failing"
+             "<span class=\"key limit-key\"></span>the case's scaled-error limit";
     if (std::string(id) == "faults") keys = "<br>" + fault_keys;
     o += fmt::format("<figure id=\"fig-{0}\"><figcaption>{1} <span id=\"note-{0}\"></span>{2}</figcaption></figure>\n",
                      id, h(text), keys);
   }
   o += "</div>\n<noscript><p>The plots are drawn by the page's inline script; enable scripts to see them.</p></noscript>\n";
 
-  o += "<h2>Error budget</h2>\n<p>Worst figure seen against its limit, per family and format. Limits are resolved at "
-       "each case's shape, so a range means they differ between the cases of a row; &ldquo;none&rdquo; means no limit, "
-       "&ldquo;—&rdquo; that the record does not carry it.</p>\n<table>\n";
-  o += table_row({"family", "format", "cases", "failing", "worst ULP", "ULP limit", "worst scaled error", "scaled limit",
-                  "worst rel. RMSE", "rel. RMSE limit", "worst ratio to plain", "ratio limit"},
-                 "th");
+  o += "<h2>Error budget</h2>\n<p>Worst figure seen against its limit, per family and format, for each figure a "
+       "limit applies to. Limits are resolved at each case's shape, so a range means they differ between the cases of a "
+       "row; &ldquo;—&rdquo; means the record does not carry it. Margin is the smallest limit ÷ figure of any case of "
+       "the row (below 1 fails).</p>\n<table>\n";
+  std::vector<std::string> head{"family", "format", "cases", "failing"};
+  if (shown.ulp) head.insert(head.end(), {"worst ULP", "ULP limit"});
+  if (shown.scaled) head.insert(head.end(), {"worst scaled error", "scaled limit"});
+  if (shown.rel_rmse) head.insert(head.end(), {"worst rel. RMSE", "rel. RMSE limit"});
+  if (shown.ratio) head.insert(head.end(), {"worst ratio to plain", "ratio limit"});
+  head.push_back("margin");
+  o += table_row(head, "th");
   for (const auto& g : summarise_groups(r)) {
     o += "<tr><td>" + h(g.family) + "</td><td>" + h(g.format) + "</td>" + num(fmt::format("{}", g.cases)) +
-         num(fmt::format("{}", g.failing), g.failing > 0) + num(figure_text(g.worst_ulp)) + num(limit_range_text(g.ulp_limit)) +
-         num(figure_text(g.worst_scaled_error)) + num(limit_range_text(g.scaled_limit)) + num(figure_text(g.worst_rel_rmse)) +
-         num(limit_range_text(g.rel_rmse_limit)) + num(figure_text(g.worst_ratio_to_plain)) +
-         num(limit_range_text(g.ratio_limit)) + "</tr>\n";
+         num(fmt::format("{}", g.failing), g.failing > 0);
+    if (shown.ulp) o += num(figure_text(g.worst_ulp)) + num(limit_range_text(g.ulp_limit));
+    if (shown.scaled) o += num(figure_text(g.worst_scaled_error)) + num(limit_range_text(g.scaled_limit));
+    if (shown.rel_rmse) o += num(figure_text(g.worst_rel_rmse)) + num(limit_range_text(g.rel_rmse_limit));
+    if (shown.ratio)
+      o += num(std::isnan(g.worst_ratio_to_plain) ? "—" : figure_text(g.worst_ratio_to_plain)) +
+           num(limit_range_text(g.ratio_limit));
+    o += num(margin_text(g.margin), g.margin < 1) + "</tr>\n";
   }
   o += "</table>\n<h2>Faults</h2>\n<table>\n" + table_row({"class", "faults", "cases", "tolerated"}, "th");
   for (const auto& t : classes)

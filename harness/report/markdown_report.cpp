@@ -1,6 +1,8 @@
 // headroom — the Markdown review report (markdown_report.h).
 #include "headroom/markdown_report.h"
 
+#include <cmath>
+
 #include <fmt/format.h>
 
 #include "escape.h"
@@ -57,30 +59,70 @@ std::string markdown_report(const RunRecord& r) {
   for (const auto& f : report_detail::run_facts(r)) md += row({"**" + f.label + "**", markdown_cell(f.text)});
   md += fmt::format("\n> {}\n\n", kEvidenceNotProof);
 
+  if (!std::isnan(total.margin))
+    md += fmt::format("**Smallest margin: {}** ({} in case {}; margin = limit ÷ worst figure: above 1 is within "
+                      "budget, below 1 fails).\n\n",
+                      margin_text(total.margin), total.margin_figure, markdown_code(total.margin_case));
+  for (const auto& w : r.warnings) md += "> **Warning:** " + markdown_cell(w) + "\n>\n";
+  if (!r.warnings.empty()) md += "\n";
+
+  // Only the figures a limit applies to: a worst figure beside no limit says
+  // nothing about the verdict.
+  const LimitedFigures shown = limited_figures(r);
   md += "## Worst figures\n\n";
   if (r.cases.empty()) {
     md += "No case was run.\n\n";
   } else {
-    md += fmt::format("- worst ULP distance: **{}** (case {})\n", figure_text(total.worst_ulp),
-                      markdown_code(total.worst_ulp_case));
-    md += fmt::format("- worst scaled error: **{}** rounding units (case {})\n", figure_text(total.worst_scaled_error),
-                      markdown_code(total.worst_scaled_case));
-    md += fmt::format("- worst RMSE: **{}**; worst relative RMSE: **{}**\n\n", figure_text(total.worst_rmse),
-                      figure_text(total.worst_rel_rmse));
+    if (shown.ulp)
+      md += fmt::format("- worst ULP distance: **{}** (case {})\n", figure_text(total.worst_ulp),
+                        markdown_code(total.worst_ulp_case));
+    if (shown.scaled)
+      md += fmt::format("- worst scaled error: **{}** rounding units of the row magnitude (case {})\n",
+                        figure_text(total.worst_scaled_error), markdown_code(total.worst_scaled_case));
+    if (shown.rel_rmse) md += fmt::format("- worst relative RMSE: **{}**\n", figure_text(total.worst_rel_rmse));
+    if (shown.ratio) md += fmt::format("- worst ratio to the plain kernel: **{}**\n", figure_text(total.worst_ratio_to_plain));
+    std::string unlimited;
+    if (!shown.ulp) unlimited += "ULP distance";
+    if (!shown.scaled) unlimited += std::string(unlimited.empty() ? "" : ", ") + "scaled error";
+    if (!shown.rel_rmse) unlimited += std::string(unlimited.empty() ? "" : ", ") + "relative RMSE";
+    if (!shown.ratio) unlimited += std::string(unlimited.empty() ? "" : ", ") + "ratio to plain";
+    if (!unlimited.empty())
+      md += "- not shown: " + unlimited +
+            " — no limit applies to them in this run (the budget sets none, or, for the ratio, the kernel is its own "
+            "plain kernel), so they do not bear on the verdict; the JSON record keeps them\n";
+    md += "\n";
   }
+  if (const std::string why = uncertified_explanation(r); !why.empty()) md += "> " + markdown_cell(why) + "\n\n";
 
   md += "## Error budget\n\n"
-        "Worst figure seen against its limit, per family and format. Limits are resolved at each case's shape, "
-        "so a range means they differ between the cases of a row; \"none\" means no limit, \"—\" that the record "
-        "does not carry it.\n\n";
-  md += row({"family", "format", "cases", "failing", "worst ULP", "ULP limit", "worst scaled error", "scaled limit",
-             "worst rel. RMSE", "rel. RMSE limit", "worst ratio to plain", "ratio limit"});
-  md += rule("llrrrrrrrrrr");
+        "Worst figure seen against its limit, per family and format, for each figure a limit applies to. Limits are "
+        "resolved at each case's shape, so a range means they differ between the cases of a row; \"—\" means the "
+        "record does not carry it. Margin is the smallest limit ÷ figure of any case of the row (below 1 fails).\n\n";
+  std::vector<std::string> head{"family", "format", "cases", "failing"};
+  std::string align = "llrr";
+  auto column = [&](bool on, const char* worst, const char* limit) {
+    if (!on) return;
+    head.insert(head.end(), {worst, limit});
+    align += "rr";
+  };
+  column(shown.ulp, "worst ULP", "ULP limit");
+  column(shown.scaled, "worst scaled error", "scaled limit");
+  column(shown.rel_rmse, "worst rel. RMSE", "rel. RMSE limit");
+  column(shown.ratio, "worst ratio to plain", "ratio limit");
+  head.push_back("margin");
+  align += "r";
+  md += row(head) + rule(align);
   for (const auto& g : summarise_groups(r)) {
-    md += row({markdown_cell(g.family), markdown_cell(g.format), fmt::format("{}", g.cases),
-               g.failing ? fmt::format("**{}**", g.failing) : "0", figure_text(g.worst_ulp), limit_range_text(g.ulp_limit),
-               figure_text(g.worst_scaled_error), limit_range_text(g.scaled_limit), figure_text(g.worst_rel_rmse),
-               limit_range_text(g.rel_rmse_limit), figure_text(g.worst_ratio_to_plain), limit_range_text(g.ratio_limit)});
+    std::vector<std::string> cells{markdown_cell(g.family), markdown_cell(g.format), fmt::format("{}", g.cases),
+                                   g.failing ? fmt::format("**{}**", g.failing) : "0"};
+    if (shown.ulp) cells.insert(cells.end(), {figure_text(g.worst_ulp), limit_range_text(g.ulp_limit)});
+    if (shown.scaled) cells.insert(cells.end(), {figure_text(g.worst_scaled_error), limit_range_text(g.scaled_limit)});
+    if (shown.rel_rmse) cells.insert(cells.end(), {figure_text(g.worst_rel_rmse), limit_range_text(g.rel_rmse_limit)});
+    if (shown.ratio)
+      cells.insert(cells.end(), {std::isnan(g.worst_ratio_to_plain) ? "—" : figure_text(g.worst_ratio_to_plain),
+                                 limit_range_text(g.ratio_limit)});
+    cells.push_back(g.margin < 1 ? "**" + margin_text(g.margin) + "**" : margin_text(g.margin));
+    md += row(cells);
   }
   md += "\n## Faults\n\n";
   md += row({"class", "faults", "cases", "tolerated"}) + rule("lrrl");

@@ -66,6 +66,7 @@ MergeResult merge_records(const std::vector<MergeInput>& inputs) {
   m.suite = first.record.suite;
   m.budget = first.record.budget;
   m.tolerated_faults = first.record.tolerated_faults;
+  m.warnings = first.record.warnings;  // one budget, one kernel: every shard doubted the same
   m.command = "merge";
   m.shard = "merged";
 

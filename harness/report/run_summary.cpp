@@ -75,8 +75,67 @@ GroupSummary summarise(const std::vector<const CaseRecord*>& cases, std::string 
     g.ratio_limit.add(c->limits.max_ratio_to_plain);
     for (const auto& [name, n] : c->faults)
       if (n > 0) g.faults[name] += n;
+    const CaseMargin m = case_margin(*c);
+    if (!std::isnan(m.value) && (std::isnan(g.margin) || m.value < g.margin)) {
+      g.margin = m.value;
+      g.margin_figure = m.figure;
+      g.margin_case = c->name;
+    }
   }
   return g;
+}
+
+CaseMargin case_margin(const CaseRecord& c) {
+  CaseMargin out;
+  const auto consider = [&](const char* name, double figure, double limit) {
+    if (std::isnan(figure) || std::isnan(limit) || std::isinf(limit)) return;
+    const double m = figure > 0 ? limit / figure : std::numeric_limits<double>::infinity();
+    if (std::isnan(out.value) || m < out.value) {
+      out.value = m;
+      out.figure = name;
+    }
+  };
+  consider("max_scaled_error", c.figures.max_scaled_error, c.limits.max_scaled_error);
+  consider("max_rel_rmse", c.figures.relative_rmse, c.limits.max_rel_rmse);
+  consider("max_ulp", c.figures.max_ulp, c.limits.max_ulp);
+  consider("max_ratio_to_plain", c.figures.ratio_to_plain, c.limits.max_ratio_to_plain);
+  return out;
+}
+
+LimitedFigures limited_figures(const RunRecord& r) {
+  LimitedFigures l;
+  const auto finite = [](double x) { return std::isfinite(x); };
+  for (const auto& c : r.cases) {
+    l.ulp = l.ulp || finite(c.limits.max_ulp);
+    l.scaled = l.scaled || finite(c.limits.max_scaled_error);
+    l.rel_rmse = l.rel_rmse || finite(c.limits.max_rel_rmse);
+    l.ratio = l.ratio || (finite(c.limits.max_ratio_to_plain) && !std::isnan(c.figures.ratio_to_plain));
+  }
+  return l;
+}
+
+std::string margin_text(double m) {
+  if (std::isnan(m)) return "—";
+  if (std::isinf(m)) return "inf";
+  return fmt::format("{:.3g}", m);
+}
+
+std::size_t uncertified_cases(const RunRecord& r) {
+  std::size_t n = 0;
+  for (const auto& c : r.cases) n += c.reference_certified ? 0 : 1;
+  return n;
+}
+
+std::string uncertified_explanation(const RunRecord& r) {
+  const std::size_t n = uncertified_cases(r);
+  if (n == 0) return "";
+  return fmt::format(
+      "In {} of {} cases the reference could not certify every output element to its target (an error bound of "
+      "2^-80 of the row's magnitude): for some elements (outputs below the double range, or inputs near overflow) "
+      "no precision up to 4096 bits met it. The bound given there is still proven, only looser, and headroom scores "
+      "those elements against it: a ULP error counts only where it is certain, so no verdict rests on an unproven "
+      "reference value.",
+      n, r.cases.size());
 }
 
 std::vector<GroupSummary> summarise_groups(const RunRecord& r) {

@@ -4,7 +4,9 @@
 #include <unistd.h>
 
 #include <algorithm>
+#include <cmath>
 #include <cstdlib>
+#include <map>
 #include <vector>
 
 #include <fmt/format.h>
@@ -47,10 +49,22 @@ bool colour_wanted(std::FILE* stream) {
 }
 
 std::string failure_line(const RunRecord& r, const CaseRecord& c) {
-  return fmt::format("FAIL kernel={} family={} seed={} case={} expected={} obtained={} ulp={} replay: {}", r.kernel,
-                     c.family, c.seed, c.name, hex_float(c.figures.worst_expected),
-                     hex_float(c.figures.worst_obtained), figure_text(c.figures.max_ulp),
-                     c.replay.empty() ? "(none recorded)" : c.replay);
+  std::string line = fmt::format("FAIL kernel={} family={} seed={} case={}", r.kernel, c.family, c.seed, c.name);
+  std::string faults;
+  for (const auto& [name, n] : c.faults)
+    if (n > 0) faults += (faults.empty() ? "" : ",") + name;
+  if (!faults.empty()) line += " fault=" + faults;
+  // Every figure here is of the one element printed: the worst scaled error's.
+  // A case with no scored element (a crash, a timeout, bad output) has none to print.
+  const CaseFigures& f = c.figures;
+  if (!f.worst_index.empty() && f.elements > 0) {
+    const int digits = r.output_format == "float64" ? 17 : 9;  // enough to round-trip the format (IEEE 754 §5.12.2)
+    line += fmt::format(" at=[{}] expected={:.{}g} ({}) obtained={:.{}g} ({})", f.worst_index, f.worst_expected, digits,
+                        hex_float(f.worst_expected), f.worst_obtained, digits, hex_float(f.worst_obtained));
+    if (!std::isnan(f.worst_ulp_at)) line += " ulp=" + figure_text(f.worst_ulp_at);
+    line += " scaled=" + figure_text(f.max_scaled_error);
+  }
+  return line + " replay: " + (c.replay.empty() ? "(none recorded)" : c.replay);
 }
 
 std::string terminal_summary(const RunRecord& r, bool colour) {
@@ -60,25 +74,37 @@ std::string terminal_summary(const RunRecord& r, bool colour) {
                                 r.kernel, r.input_format, r.output_format, r.suite, r.shard, r.budget,
                                 paint(verdict, verdict_colour, colour) + r.verdict_line().substr(verdict.size()));
 
-  const std::vector<std::string> header{"family", "format", "cases", "worst ulp", "worst scaled", "worst rmse",
-                                        "faults", "verdict"};
+  // Only the figures a limit applies to: a worst figure beside no limit says
+  // nothing about the verdict (an int8 kernel's ULP error, say).
+  const LimitedFigures shown = limited_figures(r);
+  std::vector<std::string> header{"family", "format", "cases"};
+  if (shown.ulp) header.push_back("worst ulp");
+  if (shown.scaled) header.push_back("worst scaled");
+  if (shown.rel_rmse) header.push_back("worst rel rmse");
+  if (shown.ratio) header.push_back("worst ratio");
+  header.insert(header.end(), {"margin", "faults", "verdict"});
   std::vector<Row> rows;
-  auto row_of = [](const GroupSummary& g, std::string family) {
+  auto row_of = [&](const GroupSummary& g, std::string family) {
     Row row;
     row.pass = g.failing == 0;
-    row.cells = {std::move(family),
-                 g.format.empty() ? "all" : g.format,
-                 fmt::format("{}", g.cases),
-                 figure_text(g.worst_ulp),
-                 figure_text(g.worst_scaled_error),
-                 figure_text(g.worst_rmse),
-                 faults_text(g.faults),
-                 row.pass ? "pass" : fmt::format("fail ({})", g.failing)};
+    row.cells = {std::move(family), g.format.empty() ? "all" : g.format, fmt::format("{}", g.cases)};
+    if (shown.ulp) row.cells.push_back(figure_text(g.worst_ulp));
+    if (shown.scaled) row.cells.push_back(figure_text(g.worst_scaled_error));
+    if (shown.rel_rmse) row.cells.push_back(figure_text(g.worst_rel_rmse));
+    // "-" where a figure is undefined (bytes = columns, unlike "—").
+    if (shown.ratio) row.cells.push_back(std::isnan(g.worst_ratio_to_plain) ? "-" : figure_text(g.worst_ratio_to_plain));
+    row.cells.insert(row.cells.end(), {std::isnan(g.margin) ? "-" : margin_text(g.margin), faults_text(g.faults),
+                                       row.pass ? "pass" : fmt::format("fail ({})", g.failing)});
     return row;
   };
   for (const auto& g : summarise_groups(r)) rows.push_back(row_of(g, g.family));
   const GroupSummary total = summarise_run(r);
   rows.push_back(row_of(total, "total"));
+  // The headroom left, first: margin = limit ÷ worst, < 1 fails.
+  if (!std::isnan(total.margin))
+    out += fmt::format("  smallest margin {} ({} in case {}; margin = limit / worst figure, below 1 fails)\n",
+                       margin_text(total.margin), total.margin_figure, total.margin_case);
+  for (const auto& w : r.warnings) out += "  warning: " + w + "\n";
 
   std::vector<std::size_t> width(header.size());
   for (std::size_t i = 0; i < header.size(); ++i) width[i] = header[i].size();
@@ -89,7 +115,7 @@ std::string terminal_summary(const RunRecord& r, bool colour) {
   auto line = [&](const std::vector<std::string>& cells, bool pass, bool is_header) {
     std::string s = " ";
     for (std::size_t i = 0; i < cells.size(); ++i) {
-      const bool left = i < 2 || i >= 6;
+      const bool left = i < 2 || i + 2 >= cells.size();
       std::string cell = left ? fmt::format("{:<{}}", cells[i], width[i]) : fmt::format("{:>{}}", cells[i], width[i]);
       if (i == cells.size() - 1 && !is_header) cell = paint(cell, pass ? kGreen : kRed, colour);
       if (is_header) cell = paint(cell, kBold, colour);
@@ -106,16 +132,40 @@ std::string terminal_summary(const RunRecord& r, bool colour) {
   if (r.cases.empty()) {
     out += "  no case was run\n";
   } else {
-    out += fmt::format("  worst ulp {} (case {}); worst scaled error {} (case {})\n", figure_text(total.worst_ulp),
-                       total.worst_ulp_case.empty() ? "-" : total.worst_ulp_case,
-                       figure_text(total.worst_scaled_error),
-                       total.worst_scaled_case.empty() ? "-" : total.worst_scaled_case);
+    // The worst of each figure a limit applies to, pass or fail (STYLE.md).
+    std::string worst;
+    auto add = [&](const char* what, double x, const std::string& name) {
+      worst += fmt::format("{}worst {} {} (case {})", worst.empty() ? "  " : "; ", what, figure_text(x),
+                           name.empty() ? "-" : name);
+    };
+    if (shown.ulp) add("ulp", total.worst_ulp, total.worst_ulp_case);
+    if (shown.scaled || !shown.rel_rmse) add("scaled error", total.worst_scaled_error, total.worst_scaled_case);
+    if (shown.rel_rmse) worst += fmt::format("{}worst relative rmse {}", worst.empty() ? "  " : "; ",
+                                             figure_text(total.worst_rel_rmse));
+    out += worst + "\n";
   }
-  if (!r.skipped.empty()) out += fmt::format("  {} case(s) skipped (not run)\n", r.skipped.size());
+  if (!r.skipped.empty()) {
+    // Why, not only how many: the reasons, most frequent first.
+    std::map<std::string, std::size_t> why;
+    for (const auto& line : r.skipped) {
+      const auto colon = line.find(": ");
+      ++why[colon == std::string::npos ? std::string("no reason recorded") : line.substr(colon + 2)];
+    }
+    std::vector<std::pair<std::size_t, std::string>> sorted;
+    for (const auto& [reason, n] : why) sorted.emplace_back(n, reason);
+    std::stable_sort(sorted.begin(), sorted.end(), [](const auto& a, const auto& b) { return a.first > b.first; });
+    out += fmt::format("  {} case(s) skipped (not run):", r.skipped.size());
+    for (std::size_t i = 0; i < sorted.size() && i < 3; ++i)
+      out += fmt::format("{} {} × {}", i ? ";" : "", sorted[i].first, sorted[i].second);
+    if (sorted.size() > 3) out += fmt::format("; {} other reasons (see the record)", sorted.size() - 3);
+    out += "\n";
+  }
   for (const auto& c : r.cases) {
     if (c.within_budget) continue;
     out += failure_line(r, c) + "\n";  // never painted: greppable whatever the terminal
     for (const auto& reason : c.reasons) out += "    " + reason + "\n";
+    for (const auto& d : c.fault_details)
+      if (d.rfind("note: limit", 0) == 0) out += "    " + d.substr(6) + "\n";
   }
   return out;
 }

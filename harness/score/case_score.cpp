@@ -228,7 +228,11 @@ PlainRatio ratio_to_plain(const CaseScore& kernel, const CaseScore& plain) {
   }
   PlainRatio r;
   r.max_scaled_error = kernel.max_scaled_error / std::max(plain.max_scaled_error, 1.0);
-  const double floor = std::max(plain.rmse, plain.unit_roundoff * plain.rms_expected);
+  // The plain kernel is credited with at least the output format's rounding of
+  // each row's magnitude Σ p|v| (RMS over the case): what scaled error 1 is per
+  // element. A floor of u·RMS(o*) alone vanishes on cancelling rows, where a
+  // nearly exact plain result made any sound kernel's ratio explode.
+  const double floor = std::max(plain.rmse, plain.unit_roundoff * std::max(plain.rms_magnitude, plain.rms_expected));
   if (floor > 0) {
     r.rmse = kernel.rmse / floor;
   } else {

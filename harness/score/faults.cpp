@@ -71,6 +71,13 @@ std::optional<Fault> non_finite_in(const KernelRun& run, const Tensor& ref_out, 
     }
   }
   if (f.count + lse_count == 0) return std::nullopt;
+  if (run.unwritten > 0 && run.first_unwritten >= 0) {
+    // Not a NaN the kernel computed: the fill headroom put there before the call.
+    const auto at = unflatten(run.first_unwritten, ref_out.shape);
+    f.detail = std::to_string(run.unwritten) + " output element(s) never written by the kernel (they still hold "
+               "headroom's NaN fill), first at " + index_text(at) +
+               (run.unwritten < f.count ? "; " + f.detail : std::string());
+  }
   f.detail += " (" + std::to_string(f.count) + " output elements";
   if (lse_count > 0) f.detail += ", " + std::to_string(lse_count) + " log-sum-exp values";
   f.detail += " non-finite)";
@@ -96,7 +103,7 @@ bool judge_status(CaseFaults& cf, const KernelRun& first) {
   if (first.status == RunStatus::unsupported) {
     ++cf.unsupported_runs;
   } else if (first.status == RunStatus::bad_output) {
-    ++cf.bad_output_runs;
+    if (cf.bad_output_runs++ == 0) cf.bad_output_detail = first.detail;
   } else if (auto cls = fault_of(first.status)) {
     Fault f;
     f.kind = *cls;
@@ -122,7 +129,9 @@ void rerun_detectors(CaseFaults& cf, AttachedKernel& kernel, const ReceivedCase&
     cf.notes.push_back("mask_leak not probed: the kernel is nondeterministic");
   } else if (opt.mask_leak) {
     if (auto leak = detect_mask_leak(kernel, c, first, opt, &cf.runs, &cf.notes)) {
-      if (alignment) {
+      if (leak->kind != FaultClass::mask_leak) {
+        merge_into(cf, std::move(*leak));  // nondeterminism or a wrong-head read the probe told apart
+      } else if (alignment) {
         alignment->detail += "; it reads keys the declared alignment masks (" + leak->detail + ")";
       } else {
         merge_into(cf, std::move(*leak));

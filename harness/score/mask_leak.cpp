@@ -284,10 +284,66 @@ std::optional<Fault> detect_mask_leak(AttachedKernel& kernel, const ReceivedCase
       }
       if (changed == 0) continue;
 
-      // Bisect the probe set on the first changed row, poisoning its group only.
       const Group& gr = *first_group;
       const RowRef rr = row_ref(c, gr, first_row);
-      std::vector<std::int64_t> cand = gr.patterns[static_cast<std::size_t>(pattern_at(gr, t))];
+      const auto [h0, i0] = gr.rows[first_row];
+      const std::string first_text = block ? "(b=" + std::to_string(gr.b) + ", i=" + std::to_string(i0) + ")"
+                                           : "(b=" + std::to_string(gr.b) + ", h=" + std::to_string(h0) +
+                                                 ", i=" + std::to_string(i0) + ")";
+      // A leak reproduces: the same poisoned call gives the same row again,
+      // and the unpoisoned call still gives the baseline's. A kernel whose
+      // output varies between identical calls fails one of the two, and is
+      // reported by the nondeterminism detector, not as a leak.
+      const KernelRun again = call(work);
+      const KernelRun base_again = call(c);
+      if (auto f = broken(again, var)) return f;
+      if (auto f = broken(base_again, var)) return f;
+      if (row_changed(run, again, rr) || row_changed(baseline, base_again, rr)) {
+        Fault f;
+        f.kind = FaultClass::nondeterministic;
+        f.count = 1;
+        f.where = block ? std::vector<std::int64_t>{gr.b, i0} : std::vector<std::int64_t>{gr.b, h0, i0};
+        f.detail = "identical calls gave different outputs for row " + first_text + " (" +
+                   (row_changed(baseline, base_again, rr) ? "the unpoisoned input, called again"
+                                                          : "the input with " + variant_text(var, block) + ", called twice") +
+                   "), seen by the mask-leak probe, which therefore counts no leak";
+        return f;
+      }
+      const std::vector<std::int64_t>& own = gr.patterns[static_cast<std::size_t>(pattern_at(gr, t))];
+      if (!block) {
+        // Its own kv head's masked keys, or another head's? A row that does not
+        // move when only its own head's keys are poisoned reads another head.
+        ReceivedCase own_only = c;
+        poisoner.apply(own_only, gr, own, var);
+        const KernelRun r_own = call(own_only);
+        if (auto f = broken(r_own, var)) return f;
+        if (!row_changed(baseline, r_own, rr)) {
+          Fault f;
+          f.kind = FaultClass::convention;
+          f.count = changed;
+          f.where = {gr.b, h0, i0};
+          f.detail = "row " + first_text + " of kv head " + std::to_string(gr.g) +
+                     " does not move when that head's masked keys are poisoned, but does when other heads' are: "
+                     "it reads the K/V of another head (grouped-query head order not as declared, Hq/Hkv = " +
+                     std::to_string(gr.heads.size()) + ")";
+          for (const Group& other : groups) {
+            const std::ptrdiff_t p = pattern_at(other, t);
+            if (&other == &gr || other.b != gr.b || p < 0) continue;
+            ReceivedCase w = c;
+            poisoner.apply(w, other, other.patterns[static_cast<std::size_t>(p)], var);
+            const KernelRun r_other = call(w);
+            if (r_other.status == RunStatus::ok && r_other.out.shape == baseline.out.shape &&
+                r_other.lse.shape == baseline.lse.shape && row_changed(baseline, r_other, rr)) {
+              f.detail += "; it moves with kv head " + std::to_string(other.g) + "'s keys";
+              break;
+            }
+          }
+          return f;
+        }
+      }
+
+      // Bisect the probe set on the first changed row, poisoning its group only.
+      std::vector<std::int64_t> cand = own;
       while (cand.size() > 1) {
         const auto half = static_cast<std::ptrdiff_t>(cand.size() / 2);
         std::vector<std::int64_t> lower(cand.begin(), cand.begin() + half), upper(cand.begin() + half, cand.end());
@@ -309,10 +365,8 @@ std::optional<Fault> detect_mask_leak(AttachedKernel& kernel, const ReceivedCase
       Fault f;
       f.kind = FaultClass::mask_leak;
       f.count = changed;
-      const auto [h, i] = gr.rows[first_row];
-      std::string row_text = block ? "(b=" + std::to_string(gr.b) + ", i=" + std::to_string(i) + ")"
-                                   : "(b=" + std::to_string(gr.b) + ", h=" + std::to_string(h) + ", i=" + std::to_string(i) + ")";
-      f.where = block ? std::vector<std::int64_t>{gr.b, i} : std::vector<std::int64_t>{gr.b, h, i};
+      const std::string& row_text = first_text;
+      f.where = block ? std::vector<std::int64_t>{gr.b, i0} : std::vector<std::int64_t>{gr.b, h0, i0};
       if (cand.size() == 1) {
         f.where.push_back(cand[0]);
         f.detail = "masked key j=" + std::to_string(cand[0]) + " changes row " + row_text;

@@ -1,6 +1,7 @@
 // headroom case — make one adversarial case folder from (family, seed, size), and list the families.
 #include <charconv>
 #include <cstdio>
+#include <filesystem>
 #include <memory>
 #include <string>
 
@@ -62,6 +63,13 @@ CaseRequest request_of(const MakeFlags& f) {
 
 int make_main(const MakeFlags& f) {
   const Case c = make_case(request_of(f));
+  // The folder is new; its parent may be too (e.g. --out cases/today/c1).
+  const std::filesystem::path parent = std::filesystem::path(f.out).parent_path();
+  std::error_code ec;
+  if (!parent.empty()) std::filesystem::create_directories(parent, ec);
+  if (ec)
+    throw InputError("command line", "--out " + f.out, "cannot create its folder " + parent.string() + ": " + ec.message(),
+                     "give a path in a folder you can write");
   write_case(c, f.out);
   std::printf("wrote %s (%s)\n", f.out.c_str(), c.name.c_str());
   return 0;

@@ -4,12 +4,13 @@
 
 #include "command.h"
 #include "headroom/compare.h"
+#include "run_common.h"
 
 namespace headroom::cli {
 namespace {
 
 struct CompareFlags {
-  std::string base, next, json;
+  std::string base, next, json, markdown;
   double tolerance = kDefaultCompareTolerance;
 };
 
@@ -24,8 +25,11 @@ const CommandRegistration reg{"compare", 60, [](CLI::App& app) {
                   "relative growth of an error figure still accepted (default 0.10 = 10 %); faults never")
       ->capture_default_str();
   cmd->add_option("--json", flags->json, "write the comparison as JSON here");
+  cmd->add_option("--markdown", flags->markdown, "write the comparison as Markdown here (for a pull request)");
   cmd->callback([flags] {
-    exit_with(run_compare(flags->base, flags->next, flags->tolerance, flags->json, std::cout));
+    check_output_path("--json", flags->json);
+    check_output_path("--markdown", flags->markdown);
+    exit_with(run_compare(flags->base, flags->next, flags->tolerance, flags->json, std::cout, flags->markdown));
   });
 }};
 

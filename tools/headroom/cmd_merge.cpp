@@ -3,6 +3,7 @@
 #include <memory>
 
 #include "command.h"
+#include "run_common.h"
 #include "headroom/merge.h"
 #include "headroom/reports.h"
 #include "headroom/terminal_report.h"
@@ -19,6 +20,9 @@ struct MergeFlags {
 // merged verdict is in the record and on stdout; `compare` or the reports
 // act on it.
 int merge_main(const MergeFlags& f) {
+  for (const auto& [option, path] : {std::pair{"--json", f.json}, {"--markdown", f.markdown}, {"--html", f.html},
+                                    {"--junit", f.junit}})
+    check_output_path(option, path);
   std::vector<std::filesystem::path> files(f.inputs.begin(), f.inputs.end());
   const MergeResult m = merge_files(files);
   for (const auto& note : m.notes) std::cerr << "headroom merge: note: " << note << '\n';

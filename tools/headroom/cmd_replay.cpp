@@ -64,7 +64,9 @@ const CommandRegistration reg{"replay", 40, [](CLI::App& app) {
   auto flags = std::make_shared<ReplayFlags>();
   auto* cmd = app.add_subcommand("replay", "Run saved case folders against a kernel; exit 0 within budget, 1 outside");
   add_run_flags(cmd, flags->run);
-  cmd->add_option("dirs", flags->dirs, "case folders, or folders holding them (a corpus)")->required();
+  cmd->add_option("CASE_DIR", flags->dirs,
+                  "one or more case folders, or folders holding them (a corpus), e.g. corpora/no_max_shift")
+      ->required();
   cmd->callback([flags] { exit_with(replay_main(*flags)); });
 }};
 

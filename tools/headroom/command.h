@@ -27,6 +27,11 @@ struct CommandRegistration {
   CommandRegistration(std::string name, int order, AddCommand add);
 };
 
+/// Returns: the headroom binary as the user invoked it (argv[0]), for replay
+/// commands that must run without headroom on PATH.
+const std::string& invoked_as();
+void set_invoked_as(std::string argv0);
+
 /// Ends the process after the callback with `code` (flushes stdout/stderr).
 [[noreturn]] void exit_with(int code);
 

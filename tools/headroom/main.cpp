@@ -8,6 +8,7 @@
 #include <vector>
 
 #include "command.h"
+#include "usage_error.h"
 #include "headroom/external_program.h"
 #include "headroom/input_error.h"
 
@@ -29,6 +30,18 @@ std::vector<Entry>& registry() {
 
 CommandRegistration::CommandRegistration(std::string name, int order, AddCommand add) {
   registry().push_back({std::move(name), order, std::move(add)});
+}
+
+namespace {
+std::string& invoked_name() {
+  static std::string name = "headroom";
+  return name;
+}
+}  // namespace
+
+const std::string& invoked_as() { return invoked_name(); }
+void set_invoked_as(std::string argv0) {
+  if (!argv0.empty()) invoked_name() = std::move(argv0);
 }
 
 void exit_with(int code) {
@@ -69,17 +82,31 @@ void end_programs_with_headroom() {
 int main(int argc, char** argv) {
   using namespace headroom::cli;
   end_programs_with_headroom();
+  set_invoked_as(argc > 0 && argv[0] != nullptr ? argv[0] : "");
   CLI::App app{"headroom — numerical qualification of softmax-attention kernels"};
   app.require_subcommand(1);
   app.set_version_flag("--version", "headroom 0.1.0");
   auto entries = registry();
   std::stable_sort(entries.begin(), entries.end(), [](const auto& a, const auto& b) { return a.order < b.order; });
   for (auto& e : entries) e.add(app);
+  std::vector<std::string> args(argv + (argc > 0 ? 1 : 0), argv + argc);
+  // `headroom help [command]` is --help, as users of other tools expect.
+  if (!args.empty() && args.front() == "help") {
+    args.erase(args.begin());
+    args.push_back("--help");
+  }
+  if (const auto unknown = unknown_command(app, args)) {
+    std::cerr << *unknown << '\n';
+    return 2;
+  }
   try {
-    app.parse(argc, argv);
+    std::vector<std::string> reversed(args.rbegin(), args.rend());  // CLI11 takes them last first
+    app.parse(reversed);
+  } catch (const CLI::Success& e) {
+    return app.exit(e);
   } catch (const CLI::ParseError& e) {
-    int code = app.exit(e);
-    return code == 0 ? 0 : 2;
+    std::cerr << usage_error(app, args, e) << '\n';
+    return 2;
   } catch (const headroom::InputError& e) {
     std::cerr << "headroom: " << e.what() << '\n';
     return 2;

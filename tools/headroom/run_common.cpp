@@ -7,6 +7,11 @@
 #include <iostream>
 #include <thread>
 
+#include <fmt/format.h>
+
+#include "command.h"
+#include "usage_error.h"
+#include "headroom/bundled_registry.h"
 #include "headroom/input_error.h"
 #include "headroom/progress_bar.h"
 #include "headroom/reports.h"
@@ -26,12 +31,14 @@ void add_run_flags(CLI::App* cmd, RunFlags& f) {
   cmd->add_flag("--resume", f.resume, "continue an interrupted run from its journal");
   cmd->add_option("--journal", f.journal, "journal of finished cases (default: <json>.journal)");
   cmd->add_option("--time-limit", f.time_limit, "seconds one kernel call may take before it is a timeout")
-      ->check(CLI::PositiveNumber);
+      ->check(positive_seconds());
   cmd->add_flag("--no-isolation", f.no_isolation, "run the kernel in-process (faster; a crash ends headroom)");
   cmd->add_option("--threads", f.threads, "reference threads (default: all cores)");
   cmd->add_option("--determinism-runs", f.determinism_runs, "identical runs compared for non-determinism (>= 2 checks)")
       ->check(CLI::Range(1, 100));
   cmd->add_flag("--quiet", f.quiet, "print only the verdict line");
+  cmd->add_flag("--strict-budget", f.strict_budget,
+                "a budget section naming no kernel of this run is an error, not a warning");
 }
 
 namespace {
@@ -44,6 +51,34 @@ std::string journal_path(const RunFlags& f, const std::string& command) {
 
 }  // namespace
 
+void check_output_path(const std::string& option, const std::string& path) {
+  if (path.empty()) return;
+  namespace fs = std::filesystem;
+  const fs::path p(path);
+  const fs::path folder = p.parent_path().empty() ? fs::path(".") : p.parent_path();
+  const std::string place = option + " " + path;
+  std::error_code ec;
+  if (fs::is_directory(p, ec))
+    throw InputError("command line", place, "is a folder", "give a file name inside it, e.g. " + (p / "out").string());
+  if (!fs::is_directory(folder, ec))
+    throw InputError("command line", place, "its folder " + folder.string() + " does not exist",
+                     "create it first (mkdir -p " + folder.string() + ") or give another path");
+  if (::access(folder.c_str(), W_OK) != 0)
+    throw InputError("command line", place, "its folder " + folder.string() + " is not writable",
+                     "give a path in a folder you can write");
+}
+
+std::string judging_options(const RunFlags& f) {
+  const RunFlags defaults;
+  std::string out;
+  if (!f.budget.empty()) out += " --budget " + shell_quote(f.budget);
+  if (f.strict_budget) out += " --strict-budget";
+  if (f.time_limit != defaults.time_limit) out += " --time-limit " + fmt::format("{}", f.time_limit);
+  if (f.no_isolation) out += " --no-isolation";
+  if (f.determinism_runs != defaults.determinism_runs) out += " --determinism-runs " + std::to_string(f.determinism_runs);
+  return out;
+}
+
 std::string setup_identity(const RunFlags& f) {
   return "kernel " + (f.kernel.empty() ? "cmd " + f.kernel_cmd : f.kernel) + " budget " + f.budget + " isolation " +
          (f.no_isolation ? "off" : "on") + " determinism " + std::to_string(f.determinism_runs);
@@ -51,6 +86,13 @@ std::string setup_identity(const RunFlags& f) {
 
 RunSetup open_run(const RunFlags& f, const std::string& command, const std::string& identity) {
   RunSetup s;
+  // Every output is checked before the first case runs: a run must not end by losing its verdict.
+  check_output_path("--json", f.json);
+  check_output_path("--markdown", f.markdown);
+  check_output_path("--html", f.html);
+  check_output_path("--junit", f.junit);
+  check_output_path(f.journal.empty() ? (f.json.empty() ? "the journal" : "the journal of --json") : "--journal",
+                    journal_path(f, command));
   if (f.kernel.empty() == f.kernel_cmd.empty())
     throw InputError("command line", "--kernel / --kernel-cmd", "give exactly one of them",
                      "name a bundled kernel or a plug-in with --kernel, or a program with --kernel-cmd");
@@ -63,6 +105,23 @@ RunSetup open_run(const RunFlags& f, const std::string& command, const std::stri
   }
   s.plain = plain_kernel_for(s.kernel->declaration());
   s.budget = f.budget.empty() ? Budget{} : load_budget(f.budget);
+  {
+    // A section for a misspelt kernel would leave the intended limits unused without a word.
+    std::vector<std::string> bundled;
+    for (const auto& b : bundled_kernels()) bundled.push_back(b.declaration.name);
+    const std::string& name = s.kernel->declaration().name;
+    const auto unmatched = s.budget.unmatched_kernel_sections({name}, bundled);
+    if (!unmatched.empty() && f.strict_budget) {
+      const auto& u = unmatched.front();
+      throw InputError(f.budget, "line " + std::to_string(u.line),
+                       "[kernel." + u.name + "] names no kernel of this run (" + name + ")",
+                       u.suggestion.empty() ? "name the kernel as `headroom kernels` or the plug-in declares it, or "
+                                              "drop --strict-budget to allow sections for other kernels"
+                                            : "rename it [kernel." + u.suggestion + "]");
+    }
+    for (const auto& u : unmatched) s.warnings.push_back(u.text());
+    for (const auto& w : s.warnings) std::cerr << "headroom: warning: " << w << '\n';
+  }
 
   RunnerOptions& r = s.runner;
   r.judge.detect.run.isolate = !f.no_isolation;
@@ -72,6 +131,9 @@ RunSetup open_run(const RunFlags& f, const std::string& command, const std::stri
   r.judge.plain = s.plain.get();
   r.shard = parse_shard(f.shard);
   r.kernel_spec = s.spec;
+  r.kernel_is_program = !f.kernel_cmd.empty();
+  r.tool = invoked_as();
+  r.judging_options = judging_options(f);
   r.apply_budget = budget_applier(s.budget.for_kernel(s.kernel->declaration()));
   s.journal = std::make_unique<Journal>(journal_path(f, command), command + " " + identity + " shard " + r.shard.text(),
                                         f.resume);
@@ -90,6 +152,7 @@ RunSetup open_run(const RunFlags& f, const std::string& command, const std::stri
 
 int finish_run(RunRecord& record, const RunFlags& f, const RunSetup& setup) {
   record.budget = setup.budget.source;
+  record.warnings = setup.warnings;
   if (!f.json.empty()) write_run_record(record, f.json);
   // The record is safe on disk: the journal has done its job.
   if (setup.journal) {

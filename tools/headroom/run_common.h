@@ -28,10 +28,22 @@ struct RunFlags {
   unsigned threads = 0;      ///< reference threads; 0 = all cores
   int determinism_runs = 2;
   bool quiet = false;
+  bool strict_budget = false;  ///< --strict-budget: a budget section naming no kernel of the run is an error
 };
 
 /// Adds the shared options to `cmd`, bound to `f`.
 void add_run_flags(CLI::App* cmd, RunFlags& f);
+
+/// Checks that a file can be written at `path` before any work is done:
+/// its folder exists and is writable, and `path` is not a folder. Throws
+/// InputError("command line", "<option> <path>", problem, fix) otherwise.
+/// Empty `path`: nothing to check.
+void check_output_path(const std::string& option, const std::string& path);
+
+/// Returns: the options of `f` that change a verdict, as replay commands carry
+/// them (RunnerOptions::judging_options): --budget, and --time-limit,
+/// --no-isolation, --determinism-runs, --strict-budget where they differ from their defaults.
+std::string judging_options(const RunFlags& f);
 
 /// Returns: the kernel and options that make two runs the same run (for the journal's identity).
 std::string setup_identity(const RunFlags& f);
@@ -44,6 +56,7 @@ struct RunSetup {
   Budget budget;
   std::unique_ptr<Journal> journal;
   RunnerOptions runner;
+  std::vector<std::string> warnings;      ///< printed on stderr when found; carried into the record
 };
 
 /// Returns: the setup for `command` ("qualify", "hunt", "replay"); `identity`

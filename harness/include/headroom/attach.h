@@ -87,6 +87,9 @@ struct KernelRun {
   Tensor out;          ///< core [B, Hq, Tq, Dv] or block [B, Tq, Dm], output-format values as doubles;
                        ///< filled only when status is ok (unwritten elements read as NaN)
   Tensor lse;          ///< [B, Hq, Tq] when ok and the kernel returns log-sum-exp, else empty
+  std::int64_t unwritten = 0;         ///< output elements still holding headroom's NaN fill (never written;
+                                      ///< plug-ins only: an external program writes whole files)
+  std::int64_t first_unwritten = -1;  ///< flat index into `out` of the first of them, −1 when none
 };
 
 class AttachedKernel {

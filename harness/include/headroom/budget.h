@@ -111,6 +111,25 @@ struct Budget {
   std::string source = "defaults";                ///< the file, or "defaults"
   std::map<Format, BudgetSection> formats;         ///< [format.<input format>]
   std::map<std::string, BudgetSection> kernels;    ///< [kernel.<name>]
+  std::map<std::string, int> kernel_lines;         ///< [kernel.<name>] → its line in the file
+
+  /// A [kernel.<name>] section that names no kernel of the run.
+  struct Unmatched {
+    std::string name;
+    int line = 0;
+    std::string suggestion;  ///< the nearest known kernel name, or ""
+    /// "<file> line L: [kernel.X] names no kernel of this run, so it is not
+    /// applied (did you mean [kernel.Y]?)"
+    std::string text() const;
+    std::string source;
+  };
+  /// Returns: every [kernel.<name>] section that names none of `run_kernels`
+  /// (the kernels of this run) nor of `also_known` (kernels the file may
+  /// address legitimately, e.g. the bundled ones), in file order. Such a
+  /// section is never applied: most often a misspelling, which would leave the
+  /// intended limits silently unused.
+  std::vector<Unmatched> unmatched_kernel_sections(const std::vector<std::string>& run_kernels,
+                                                   const std::vector<std::string>& also_known) const;
 
   /// Returns: default_budget(input), then [format.<input>] over it key by key,
   /// then [kernel.<name>] over that.

@@ -67,6 +67,7 @@ struct CaseFaults {
   std::vector<Fault> faults;         ///< at most one per class
   int unsupported_runs = 0;          ///< runs answered HR_UNSUPPORTED
   int bad_output_runs = 0;           ///< runs with missing or malformed output
+  std::string bad_output_detail;     ///< the first such run's defect: which file, what was wrong
   int runs = 0;                      ///< kernel calls made by the detectors (not counting the first run)
   std::vector<std::string> notes;    ///< coverage remarks (e.g. leak patterns sampled), not faults
 
@@ -117,6 +118,11 @@ std::optional<Fault> detect_causal_alignment(const KernelRun& run, const Receive
 /// a row's shift Δ_d = Σ_{leaked j} w_j (P_{j,d} − v_{j,d}), so the mass
 /// Σ|w_j| ≥ max_d |Δ_d| / max_{j∈S} |P_{j,d} − v_{j,d}| (up to output rounding).
 /// The first leaking key is found by bisecting S on the first changed row.
+/// A change counts as a leak only when it reproduces: the same poisoned call
+/// gives the same row again and the unpoisoned call the baseline's; otherwise
+/// the result is a nondeterministic fault (identical calls differed). A core
+/// row that does not move when only its own kv head's masked keys are
+/// poisoned reads another head's K/V: a convention fault (head order), not a leak.
 /// `runs` (if non-null) is increased by the kernel calls made.
 /// Preconditions: baseline = kernel.run(c) with status ok.
 std::optional<Fault> detect_mask_leak(AttachedKernel& kernel, const ReceivedCase& c, const KernelRun& baseline,

@@ -61,10 +61,10 @@ rc::Gen<Case> case_gen(const CaseRequest& req);
 /// provenance command extends the path by the shrink's index.
 rc::Shrinkable<Case> shrinkable_case(const CaseRequest& req);
 
-/// Returns: "headroom case make --family F --seed S --size N [--level block]
+/// Returns: "<tool> case make --family F --seed S --size N [--level block]
 /// [--shape B,Hq,Hkv,Tq,Tk,Dk,Dv] [--model-dim D] [--mask KIND]
-/// [--shrink-path i,j,...] --out <out>".
-std::string case_command(const CaseRequest& req, std::string_view out);
+/// [--shrink-path i,j,...] --out <out>"; `tool` is written as given (quote it).
+std::string case_command(const CaseRequest& req, std::string_view out, std::string_view tool = "headroom");
 
 /// Returns: the shape "B,Hq,Hkv,Tq,Tk,Dk,Dv" (seven integers ≥ 1, Hq a
 /// multiple of Hkv). Throws: InputError naming `place` (e.g. "--shape").

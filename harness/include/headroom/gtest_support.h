@@ -51,6 +51,8 @@ inline ::testing::AssertionResult WithinBudget(const std::string& kernel_spec, c
     opt.judge.detect.reference.threads = std::max(1u, std::thread::hardware_concurrency());
     opt.judge.plain = plain.get();
     opt.kernel_spec = kernel_spec;
+    opt.judging_options = (budget_file.empty() ? std::string() : " --budget " + shell_quote(budget_file)) +
+                          " --determinism-runs 3";
     opt.apply_budget = budget_applier(budget.for_kernel(kernel->declaration()));
 
     const std::vector<PlannedCase> cases{{read_case(case_dir), std::nullopt, case_dir}};

@@ -57,11 +57,30 @@ struct RunnerOptions {
   Journal* journal = nullptr;             ///< finished cases are appended here; cases found there are not re-run
   std::filesystem::path save_failures;    ///< folder for failing cases (empty: not saved)
   std::string kernel_spec;                ///< the kernel as the user named it, for replay commands
+  bool kernel_is_program = false;         ///< kernel_spec is an external program (--kernel-cmd), not --kernel
+  std::string tool = "headroom";          ///< the headroom binary as the user invoked it, for replay commands
+  /// Every option that changes a verdict, as the user would type it, already
+  /// quoted for a POSIX shell and with a leading space (" --budget b.toml
+  /// --time-limit 5"): replay commands carry them, so they reproduce the verdict.
+  std::string judging_options;
   /// Applies the budget: sets within_budget and reasons. Called once per judged case.
   std::function<void(CaseRecord&, const Judgement&, const Case&)> apply_budget;
   /// Called after each case (done counts cases of this shard finished so far, journal included).
   std::function<void(std::size_t done, std::size_t total, const CaseRecord&)> progress;
 };
+
+/// Returns: `s` quoted for a POSIX shell: as is when it holds no character the
+/// shell treats specially, else in single quotes (a ' inside as '\'').
+std::string shell_quote(const std::string& s);
+
+/// Returns: the command that replays case folder `folder` as this run judged
+/// it: "<tool> replay --kernel[-cmd] <spec><judging options> <folder>"
+/// (`kernel_name` when opt.kernel_spec is empty).
+std::string replay_command(const RunnerOptions& opt, const std::string& kernel_name, const std::string& folder);
+/// Returns: the command that makes the case of `request` in folder `dir` and
+/// replays it: "<tool> case make ... --out <dir> && " + replay_command(...).
+std::string make_and_replay_command(const RunnerOptions& opt, const std::string& kernel_name,
+                                    const CaseRequest& request, const std::string& dir);
 
 /// Returns: a RunnerOptions::apply_budget that judges each case against `budget`
 /// (budget.h judge(), at the case's accumulation length) and records the reasons

@@ -37,6 +37,8 @@ struct CaseFigures {
   std::string worst_index;          ///< "b,h,i,d" of the worst scaled error
   double worst_expected = 0;        ///< o* there
   double worst_obtained = 0;        ///< o there
+  double worst_ulp_at = std::numeric_limits<double>::quiet_NaN();  ///< ULP distance there (not max_ulp, which
+                                                                   ///< may be another element's); NaN when not recorded
 };
 
 /// The limits a case was judged against (budget.h), resolved at the case's
@@ -68,6 +70,7 @@ struct CaseRecord {
   std::string replay;                     ///< the one command that reproduces this case
   std::vector<double> ulp_histogram;      ///< elements per bucket of ulp_histogram_edges() (scores.h)
   CaseLimits limits;                      ///< JSON "limits"; optional on read (absent: all NaN)
+  bool reference_certified = true;        ///< every reference bound met its target; optional on read (absent: true)
 };
 
 /// How many of a level's cases a kernel took: `of` = the cases of that level
@@ -94,6 +97,8 @@ struct RunRecord {
   std::vector<CaseRecord> cases;
   std::vector<std::string> skipped;  ///< "name: reason" for cases that do not fit the kernel's declaration
   std::vector<std::string> tolerated_faults;  ///< fault classes the budget tolerates; optional on read (absent: none)
+  std::vector<std::string> warnings;  ///< what the run doubted in its input (a budget section naming no kernel of
+                                      ///< the run); optional on read (absent: none)
 
   /// Returns: "pass" when every case is within budget, else "fail".
   std::string verdict() const;

@@ -9,6 +9,7 @@
 
 #include <cstddef>
 #include <cstdint>
+#include <limits>
 #include <map>
 #include <optional>
 #include <string>
@@ -40,8 +41,38 @@ struct GroupSummary {
   std::string worst_ulp_case, worst_scaled_case;  ///< names; "" when no case
   ValueRange ulp_limit, scaled_limit, rel_rmse_limit, ratio_limit;  ///< limits recorded for the cases (+inf = none)
   std::map<std::string, int> faults;                                ///< class → count
+  /// The smallest margin (limit ÷ figure: > 1 within, < 1 outside) of any
+  /// case, over every figure a limit applies to; NaN when no limit applies.
+  double margin = std::numeric_limits<double>::quiet_NaN();
+  std::string margin_figure, margin_case;  ///< the limit key ("max_scaled_error") and case of `margin`
   int fault_count() const;
 };
+
+/// The margin of one case: limit ÷ figure for its tightest limit.
+struct CaseMargin {
+  double value = std::numeric_limits<double>::quiet_NaN();  ///< NaN when no limit applies; +inf for a 0 figure
+  std::string figure;  ///< "max_ulp", "max_scaled_error", "max_rel_rmse" or "max_ratio_to_plain"
+};
+/// Returns: the smallest limit ÷ figure of `c` over the figures whose limit is
+/// recorded and finite (CaseLimits) and whose figure is not NaN.
+CaseMargin case_margin(const CaseRecord& c);
+
+/// Which figures of a run a limit applies to: a summary table shows those only.
+struct LimitedFigures {
+  bool ulp = false, scaled = false, rel_rmse = false, ratio = false;
+};
+/// Returns: the figures that have a finite limit in at least one case of `r`;
+/// the ratio to plain only where some case has one (the plain kernel differs
+/// from the kernel judged).
+LimitedFigures limited_figures(const RunRecord& r);
+
+/// Returns: "1.56" for a margin, "inf" (nothing to lose), or "—" when none applies.
+std::string margin_text(double m);
+
+/// Returns: how many cases' reference missed its certification target, and
+/// the one plain-words paragraph every report gives for them ("" when none).
+std::size_t uncertified_cases(const RunRecord& r);
+std::string uncertified_explanation(const RunRecord& r);
 
 /// Returns: the summary of `cases` labelled family/format.
 GroupSummary summarise(const std::vector<const CaseRecord*>& cases, std::string family = "",

@@ -145,8 +145,11 @@ struct PlainRatio {
   double max_scaled_error = 0;  ///< kernel / max(plain, 1): the plain kernel is credited with at
                                 ///< least correct rounding (scaled error 1), so an exact plain result
                                 ///< does not turn a correctly rounded one into an infinite ratio
-  double rmse = 0;              ///< kernel / max(plain, u_F·RMS(o*)), the same floor for RMSE;
-                                ///< 0 when both are 0 and the floor is 0, +inf when only the kernel's is
+  double rmse = 0;              ///< kernel / max(plain, u_F·RMS(M)), M = Σ_j p_j|v_j| per element: the
+                                ///< same floor for RMSE (correct rounding of the row magnitude), so a
+                                ///< nearly exact plain kernel on cancelling rows does not make a sound
+                                ///< kernel fail; 0 when both are 0 and the floor is 0, +inf when only
+                                ///< the kernel's is
 };
 
 /// Returns: the ratios of `kernel` to `plain`.
