@@ -301,6 +301,8 @@ TEST(AttachIsolation, DecliningAndForgettingAreNotFaults) {
     ASSERT_EQ(r.out.size(), 1 * 2 * 3 * 4);
     for (double v : r.out.values) EXPECT_TRUE(std::isnan(v)) << "an unwritten element must read as NaN";
     for (double v : r.lse.values) EXPECT_TRUE(std::isnan(v));
+    EXPECT_EQ(r.unwritten, 1 * 2 * 3 * 4);  // counted as never written, not as NaNs the kernel computed
+    EXPECT_EQ(r.first_unwritten, 0);
   }
 }
 

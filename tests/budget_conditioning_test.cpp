@@ -56,6 +56,25 @@ TEST(ScoreConditioning, EachRowIsJudgedAgainstItsOwnLimit) {
   EXPECT_NE(v.reasons.front().text.find("row 0"), std::string::npos) << v.reasons.front().text;
 }
 
+TEST(ScoreConditioning, APassGrantedByScoreConditioningSaysWhy) {
+  // Scaled error 1.342e4 passes a row whose scores reach 1e4: the verdict says
+  // which limit bound it and why the limit was that large.
+  const CaseScore s = two_rows(0, 1e4, 0, 1.342e4);
+  const Verdict v = judge(&s, CaseFaults{}, default_budget(Format::float32), 30);
+  ASSERT_TRUE(v.pass);
+  std::string why;
+  for (const auto& n : v.notes)
+    if (n.rfind("limit max_scaled_error", 0) == 0) why = n;
+  ASSERT_FALSE(why.empty()) << "no note on the binding limit";
+  EXPECT_NE(why.find("at row 1"), std::string::npos) << why;
+  EXPECT_NE(why.find("for score conditioning: scores in this row reach |z| = 1e+04"), std::string::npos) << why;
+  EXPECT_NE(why.find("worst there 1.342e+04, margin "), std::string::npos) << why;
+  // A quiet row far from its limit needs no such note.
+  const CaseScore quiet = two_rows(0, 0, 1, 1);
+  for (const auto& n : judge(&quiet, CaseFaults{}, default_budget(Format::float32), 30).notes)
+    EXPECT_NE(n.rfind("limit max_scaled_error", 0), 0u) << n;
+}
+
 TEST(ScoreConditioning, TermIsTwiceTheScoreErrorBoundInOutputUnits) {
   KernelBudget b = default_budget(Format::binary16);
   CaseScore s = two_rows(0, 0, 0, 0);

@@ -270,6 +270,9 @@ TEST(Verdict, UnsupportedIsNotScoredBadOutputFails) {
   v = judge(nullptr, bad, default_budget(Format::float32), 100);
   EXPECT_FALSE(v.pass);
   EXPECT_EQ(v.reasons.at(0).what, "bad_output");
+  bad.bad_output_detail = "o.npy: shape [1,2,5,3], expected [1,2,3,5]";
+  v = judge(nullptr, bad, default_budget(Format::float32), 100);
+  EXPECT_EQ(v.reasons.at(0).text, "bad_output: o.npy: shape [1,2,5,3], expected [1,2,3,5]");
   CaseFaults crashed;
   crashed.faults.push_back(Fault{FaultClass::crash, "SIGSEGV", {}, 1, -1});
   EXPECT_FALSE(judge(nullptr, crashed, default_budget(Format::float32), 100).pass);

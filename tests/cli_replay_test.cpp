@@ -3,36 +3,25 @@
 // option that differs from its default. Each test runs the printed line.
 #include <gtest/gtest.h>
 
-#include <sys/wait.h>
-#include <unistd.h>
-
-#include <cstdlib>
 #include <filesystem>
 #include <fstream>
 #include <string>
 
+#include "cli_support.h"
 #include "headroom/record.h"
 
 namespace headroom {
 namespace {
 
 namespace fs = std::filesystem;
+using testing::kSource;
+using testing::kTool;
 
-const std::string kTool = std::string(HEADROOM_BINARY_DIR) + "/tools/headroom";
-const std::string kSource = HEADROOM_SOURCE_DIR;
+fs::path fresh_dir(const std::string& name) { return testing::fresh_cli_dir("replay_" + name); }
 
-fs::path fresh_dir(const std::string& name) {
-  fs::path d = fs::temp_directory_path() / ("headroom_replay_test_" + name + "_" + std::to_string(::getpid()));
-  fs::remove_all(d);
-  fs::create_directories(d);
-  return d;
-}
-
-// Runs `command` with /bin/sh in `dir`, PATH without headroom on it; returns the exit code.
+// Runs `command` in `dir` with PATH holding no headroom; returns the exit code.
 int shell(const std::string& command, const fs::path& dir) {
-  const std::string line = "cd '" + dir.string() + "' && PATH=/usr/bin:/bin && " + command + " >/dev/null 2>&1";
-  const int status = std::system(line.c_str());
-  return WIFEXITED(status) ? WEXITSTATUS(status) : -1;
+  return testing::shell_in(dir, "PATH=/usr/bin:/bin && " + command + " >/dev/null 2>&1");
 }
 
 void write(const fs::path& p, const std::string& text) { std::ofstream(p) << text; }

@@ -3,39 +3,23 @@
 // and budget sections that name no kernel of the run.
 #include <gtest/gtest.h>
 
-#include <sys/wait.h>
-#include <unistd.h>
-
 #include <algorithm>
-#include <cstdlib>
 #include <filesystem>
 #include <fstream>
-#include <sstream>
 #include <string>
 
+#include "cli_support.h"
 #include "headroom/record.h"
 
 namespace headroom {
 namespace {
 
 namespace fs = std::filesystem;
+using testing::kSource;
+using testing::kTool;
 
-const std::string kTool = std::string(HEADROOM_BINARY_DIR) + "/tools/headroom";
-const std::string kSource = HEADROOM_SOURCE_DIR;
-
-fs::path fresh_dir(const std::string& name) {
-  fs::path d = fs::temp_directory_path() / ("headroom_usage_test_" + name + "_" + std::to_string(::getpid()));
-  fs::remove_all(d);
-  fs::create_directories(d);
-  return d;
-}
-
-std::string read_file(const fs::path& p) {
-  std::ifstream in(p);
-  std::stringstream s;
-  s << in.rdbuf();
-  return s.str();
-}
+fs::path fresh_dir(const std::string& name) { return testing::fresh_cli_dir("usage_" + name); }
+std::string read_file(const fs::path& p) { return testing::file_text(p); }
 
 struct Outcome {
   int code = -1;
@@ -44,10 +28,8 @@ struct Outcome {
 
 // Runs headroom with `args` in `dir`; captures stdout and stderr.
 Outcome run(const std::string& args, const fs::path& dir) {
-  const std::string line = "cd '" + dir.string() + "' && " + kTool + " " + args + " >stdout.txt 2>stderr.txt";
-  const int status = std::system(line.c_str());
   Outcome o;
-  o.code = WIFEXITED(status) ? WEXITSTATUS(status) : -1;
+  o.code = testing::shell_in(dir, kTool + " " + args + " >stdout.txt 2>stderr.txt");
   o.out = read_file(dir / "stdout.txt");
   o.err = read_file(dir / "stderr.txt");
   return o;

@@ -70,9 +70,15 @@ TEST(RunRecord, LimitsAndToleratedFaultsRoundTrip) {
   c.limits.max_ulp = INFINITY;
   c.limits.max_scaled_error = 12.5;
   c.limits.max_rel_rmse = 0x1p-20;
+  c.reference_certified = false;
+  c.figures.worst_ulp_at = 3;
+  r.warnings = {"b.toml line 3: [kernel.x] names no kernel of this run, so it is not applied"};
   r.cases = {c};
   const RunRecord back = run_record_from_json(to_json(r), "r.json");
   EXPECT_EQ(back.tolerated_faults, r.tolerated_faults);
+  EXPECT_EQ(back.warnings, r.warnings);
+  EXPECT_FALSE(back.cases[0].reference_certified);
+  EXPECT_EQ(back.cases[0].figures.worst_ulp_at, 3);
   ASSERT_EQ(back.skipped.size(), 1u);
   EXPECT_EQ(back.skipped[0], "masks-s3: kernel declares no dense mask");
   EXPECT_TRUE(std::isinf(back.cases[0].limits.max_ulp));
@@ -87,9 +93,15 @@ TEST(RunRecord, RecordWithoutTheLaterOptionalFieldsStillReads) {
   r.cases = {sample_case("a", true)};
   auto j = to_json(r);
   j.erase("tolerated_faults");
+  j.erase("warnings");
   j["cases"][0].erase("limits");
+  j["cases"][0].erase("reference_certified");
+  j["cases"][0]["figures"].erase("worst_ulp_at");
   const RunRecord back = run_record_from_json(j, "old.json");
   EXPECT_TRUE(back.tolerated_faults.empty());
+  EXPECT_TRUE(back.warnings.empty());
+  EXPECT_TRUE(back.cases[0].reference_certified);
+  EXPECT_TRUE(std::isnan(back.cases[0].figures.worst_ulp_at));
   EXPECT_TRUE(std::isnan(back.cases[0].limits.max_scaled_error));
   j["cases"][0]["limits"] = {{"max_ulp", 1}};  // present but incomplete: named, not ignored
   try {

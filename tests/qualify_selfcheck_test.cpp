@@ -13,6 +13,7 @@
 #include <filesystem>
 #include <string>
 
+#include "cli_support.h"
 #include "headroom/bundled_registry.h"
 #include "headroom/record.h"
 
@@ -21,7 +22,7 @@ namespace {
 
 namespace fs = std::filesystem;
 
-const std::string kTool = std::string(HEADROOM_BINARY_DIR) + "/tools/headroom";
+using testing::kTool;
 const std::string kBudget = std::string(HEADROOM_SOURCE_DIR) + "/budgets/bundled.toml";
 
 // Runs `headroom <args> --json <tmp>` and returns the record it wrote, with its exit code in *code.

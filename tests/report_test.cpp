@@ -269,6 +269,16 @@ TEST(Terminal, FailureLineOfAFaultWithNoOutputCarriesNoElementFigures) {
   EXPECT_EQ(line.find("ulp="), std::string::npos) << line;
 }
 
+TEST(Terminal, FailureLineOfAFaultAloneLeavesTheElementFiguresOut) {
+  RunRecord r = seven_cases();
+  CaseRecord& c = r.cases[1];
+  c.faults["mask_leak"] = 1;
+  c.reasons = {"fault mask_leak (not tolerated; default for float32): masked key j=0 changes row"};
+  const std::string line = failure_line(r, c);
+  EXPECT_NE(line.find(" fault=mask_leak replay: "), std::string::npos) << line;
+  EXPECT_EQ(line.find("expected="), std::string::npos) << line;
+}
+
 TEST(Terminal, WorstFigureIsPrintedOnAPassToo) {
   RunRecord r = seven_cases();
   for (auto& c : r.cases) c.within_budget = true;

@@ -300,6 +300,23 @@ TEST(Detectors, WrongHeadReadIsConventionNotMaskLeak) {
   EXPECT_TRUE(judge(sound, core_case({1, 2, 2, 4, 6, 3, 2}, dense, 11)).faults.faults.empty());
 }
 
+TEST(Detectors, NeverWrittenElementsHaveTheirOwnMessage) {
+  TestKernel k(Defect::none);
+  const Case c = padding_case();
+  const ReceivedCase rc = receive(c, k.declaration());
+  KernelRun run = k.run(rc, RunOptions{});
+  const CoreReference ref = reference_core(rc.received.core, rc.received.core_inputs);
+  run.out.values[4] = run.out.values[5] = kNaN;  // what the attach layer's fill reads as
+  run.unwritten = 2;
+  run.first_unwritten = 4;
+  const auto f = detect_non_finite(run, ref);
+  ASSERT_TRUE(f);
+  EXPECT_EQ(f->detail.rfind("2 output element(s) never written by the kernel", 0), 0u) << f->detail;
+  EXPECT_NE(f->detail.find("first at [0,0,1,1]"), std::string::npos) << f->detail;
+  run.unwritten = 0;  // the same NaNs computed by the kernel: the usual message
+  EXPECT_EQ(detect_non_finite(run, ref)->detail.find("never written"), std::string::npos);
+}
+
 TEST(Detectors, NaNOnMaskedRowsDeclaredZerosIsConvention) {
   TestKernel k(Defect::nan_masked_rows);
   const Outcome o = judge(k, core_case({2, 1, 1, 3, 5, 2, 2}, padding({0, 5}), 6));
@@ -346,7 +363,9 @@ TEST(Detectors, IsolationStatusesMapToTheirClasses) {
   EXPECT_TRUE(u.faults.faults.empty());
   EXPECT_EQ(u.faults.unsupported_runs, 1);
   TestKernel bad(Defect::none, Format::float32, RunStatus::bad_output);
-  EXPECT_EQ(judge(bad, padding_case()).faults.bad_output_runs, 1);
+  const Outcome o = judge(bad, padding_case());
+  EXPECT_EQ(o.faults.bad_output_runs, 1);
+  EXPECT_EQ(o.faults.bad_output_detail, "test status");  // the attach layer's detail, kept
 }
 
 // Block level: Y[b, i, m] = Σ over visible keys j of X_kv[b, j, m] — not attention, but

@@ -232,7 +232,11 @@ Judgement judge_case(AttachedKernel& k, const Case& c, const JudgeOptions& opt, 
     rec.figures.input_error = split.input.max_scaled_error;
   }
 
-  if (opt.plain && opt.plain != &k && receives_alike(opt.plain->declaration(), d) &&
+  if (opt.plain && (opt.plain == &k || opt.plain->declaration().name == d.name)) {
+    // The kernel is its own plain kernel (e.g. the only bundled int8 kernel):
+    // the ratio is 1 by construction, so it passes and no figure is shown.
+    j.ratio = PlainRatio{1.0, 1.0};
+  } else if (opt.plain && receives_alike(opt.plain->declaration(), d) &&
       !why_unfit(c, opt.plain->declaration())) {
     const KernelRun plain = opt.plain->run(rc, opt.detect.run);
     if (plain.status == RunStatus::ok) {
@@ -242,9 +246,6 @@ Judgement judge_case(AttachedKernel& k, const Case& c, const JudgeOptions& opt, 
         rec.figures.ratio_to_plain = j.ratio->max_scaled_error;
       }
     }
-  } else if (opt.plain == &k) {
-    j.ratio = PlainRatio{1.0, 1.0};
-    rec.figures.ratio_to_plain = 1.0;
   }
   return j;
 }

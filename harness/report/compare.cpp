@@ -98,29 +98,31 @@ std::vector<GroupComparison> group_rows(const RunRecord& base, const RunRecord& 
     const auto key = std::make_pair(g.family, g.format);
     if (auto it = at.find(key); it != at.end()) return rows[it->second];
     at[key] = rows.size();
-    rows.push_back({g.family, g.format});
+    GroupComparison fresh;
+    fresh.family = g.family;
+    fresh.format = g.format;
+    rows.push_back(std::move(fresh));
     return rows.back();
   };
-  for (const auto& g : summarise_groups(base)) {
-    GroupComparison& r = row(g);
-    r.in_base = true;
-    r.base_cases = static_cast<double>(g.cases);
-    r.base_ulp = g.worst_ulp;
-    r.base_scaled = g.worst_scaled_error;
-    r.base_rel_rmse = g.worst_rel_rmse;
-    r.base_failing = static_cast<double>(g.failing);
-    r.base_faults = g.fault_count();
-  }
-  for (const auto& g : summarise_groups(next)) {
-    GroupComparison& r = row(g);
-    r.in_new = true;
-    r.new_cases = static_cast<double>(g.cases);
-    r.new_ulp = g.worst_ulp;
-    r.new_scaled = g.worst_scaled_error;
-    r.new_rel_rmse = g.worst_rel_rmse;
-    r.new_failing = static_cast<double>(g.failing);
-    r.new_faults = g.fault_count();
-  }
+  // One side's figures into a row: BASE's or NEW's members.
+  auto fill = [&](const RunRecord& rec, bool GroupComparison::*present, double GroupComparison::*cases,
+                  double GroupComparison::*ulp, double GroupComparison::*scaled, double GroupComparison::*rel_rmse,
+                  double GroupComparison::*failing, double GroupComparison::*faults) {
+    for (const auto& g : summarise_groups(rec)) {
+      GroupComparison& r = row(g);
+      r.*present = true;
+      r.*cases = static_cast<double>(g.cases);
+      r.*ulp = g.worst_ulp;
+      r.*scaled = g.worst_scaled_error;
+      r.*rel_rmse = g.worst_rel_rmse;
+      r.*failing = static_cast<double>(g.failing);
+      r.*faults = g.fault_count();
+    }
+  };
+  using G = GroupComparison;
+  fill(base, &G::in_base, &G::base_cases, &G::base_ulp, &G::base_scaled, &G::base_rel_rmse, &G::base_failing,
+       &G::base_faults);
+  fill(next, &G::in_new, &G::new_cases, &G::new_ulp, &G::new_scaled, &G::new_rel_rmse, &G::new_failing, &G::new_faults);
   for (auto& r : rows) {
     auto any = [&](const std::vector<FigureChange>& list) {
       for (const auto& f : list)
@@ -159,9 +161,9 @@ const std::vector<std::string> kTableHead{"family", "format", "cases", "worst ul
 
 NoiseFloors default_noise_floors(const std::string& output_format) {
   NoiseFloors f;
-  const auto fmt = parse_format(output_format);
+  const auto parsed = parse_format(output_format);
   // int8 kernels write float32 (format.h); an unknown name gets float32's u too.
-  f.rel_rmse = unit_roundoff(fmt && *fmt != Format::int8 ? *fmt : Format::float32);
+  f.rel_rmse = unit_roundoff(parsed && *parsed != Format::int8 ? *parsed : Format::float32);
   return f;
 }
 

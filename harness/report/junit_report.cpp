@@ -29,8 +29,10 @@ std::string junit_report(const RunRecord& r) {
     TestCase t;
     t.classname = "headroom." + r.kernel + "." + g.format;
     t.name = g.family;
-    t.out = fmt::format("{} cases; worst ulp {} (case {}); worst scaled error {} (case {}); worst rmse {}; faults {}\n",
-                        g.cases, figure_text(g.worst_ulp), g.worst_ulp_case, figure_text(g.worst_scaled_error),
+    t.out = fmt::format("{} cases; margin {}{} (limit / worst figure, below 1 fails); worst ulp {} (case {}); worst "
+                        "scaled error {} (case {}); worst rmse {}; faults {}\n",
+                        g.cases, margin_text(g.margin), g.margin_figure.empty() ? "" : " on " + g.margin_figure,
+                        figure_text(g.worst_ulp), g.worst_ulp_case, figure_text(g.worst_scaled_error),
                         g.worst_scaled_case, figure_text(g.worst_rmse), g.fault_count());
     if (g.failing > 0) {
       t.failure_message = fmt::format("{} of {} cases outside budget", g.failing, g.cases);

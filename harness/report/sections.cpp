@@ -98,16 +98,35 @@ std::vector<Line> run_facts(const RunRecord& r) {
 
 std::string case_headline(const CaseRecord& c) {
   const CaseFigures& f = c.figures;
-  return fmt::format("family {}, seed {}, size {}, {} shape {}, mask {}: scaled error {}, {} ulp, relative RMSE {} — {}",
-                     c.family, c.seed, c.size, c.level, c.shape, c.mask, figure_text(f.max_scaled_error),
-                     figure_text(f.max_ulp), figure_text(f.relative_rmse), c.within_budget ? "within budget" : "FAIL");
+  // The figures a limit applies to, each beside its limit; a record without
+  // limits (written before they were recorded) gets the three usual figures.
+  std::string figures;
+  auto add = [&](const char* what, double value, double limit) {
+    if (!std::isfinite(limit) || std::isnan(value)) return;
+    figures += fmt::format("{}{} {} (limit {})", figures.empty() ? "" : ", ", what, figure_text(value), limit_text(limit));
+  };
+  add("scaled error", f.max_scaled_error, c.limits.max_scaled_error);
+  add("ULP", f.max_ulp, c.limits.max_ulp);
+  add("relative RMSE", f.relative_rmse, c.limits.max_rel_rmse);
+  add("ratio to plain", f.ratio_to_plain, c.limits.max_ratio_to_plain);
+  const CaseMargin m = case_margin(c);
+  if (!std::isnan(m.value)) figures += ", margin " + margin_text(m.value);
+  if (figures.empty())
+    figures = fmt::format("scaled error {}, {} ulp, relative RMSE {}", figure_text(f.max_scaled_error),
+                          figure_text(f.max_ulp), figure_text(f.relative_rmse));
+  return fmt::format("family {}, seed {}, size {}, {} shape {}, mask {}: {} — {}", c.family, c.seed, c.size, c.level,
+                     c.shape, c.mask, figures, c.within_budget ? "within budget" : "FAIL");
 }
 
 std::string worst_element_text(const CaseRecord& c) {
   const CaseFigures& f = c.figures;
   if (f.worst_index.empty()) return "";
-  return fmt::format("worst element [{}]: expected {} obtained {}", f.worst_index, hex_float(f.worst_expected),
-                     hex_float(f.worst_obtained));
+  // Decimal to read, hex to be exact (STYLE.md); the ULP figure is this element's own.
+  std::string text = fmt::format("worst element [{}]: expected {:.9g} ({}) obtained {:.9g} ({})", f.worst_index,
+                                 f.worst_expected, hex_float(f.worst_expected), f.worst_obtained,
+                                 hex_float(f.worst_obtained));
+  if (!std::isnan(f.worst_ulp_at)) text += ", " + figure_text(f.worst_ulp_at) + " ulp apart";
+  return text;
 }
 
 }  // namespace headroom::report_detail

@@ -57,7 +57,11 @@ std::string failure_line(const RunRecord& r, const CaseRecord& c) {
   // Every figure here is of the one element printed: the worst scaled error's.
   // A case with no scored element (a crash, a timeout, bad output) has none to print.
   const CaseFigures& f = c.figures;
-  if (!f.worst_index.empty() && f.elements > 0) {
+  // Element figures only where a figure limit failed the case: beside a fault
+  // alone (a leak, a crash) they would explain nothing.
+  bool figure_failed = c.reasons.empty();
+  for (const auto& reason : c.reasons) figure_failed = figure_failed || reason.rfind("max_", 0) == 0;
+  if (!f.worst_index.empty() && f.elements > 0 && figure_failed) {
     const int digits = r.output_format == "float64" ? 17 : 9;  // enough to round-trip the format (IEEE 754 §5.12.2)
     line += fmt::format(" at=[{}] expected={:.{}g} ({}) obtained={:.{}g} ({})", f.worst_index, f.worst_expected, digits,
                         hex_float(f.worst_expected), f.worst_obtained, digits, hex_float(f.worst_obtained));

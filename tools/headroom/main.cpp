@@ -83,7 +83,7 @@ int main(int argc, char** argv) {
   using namespace headroom::cli;
   end_programs_with_headroom();
   set_invoked_as(argc > 0 && argv[0] != nullptr ? argv[0] : "");
-  CLI::App app{"headroom — numerical qualification of softmax-attention kernels"};
+  CLI::App app{"headroom — numerical qualification of softmax-attention kernels", "headroom"};
   app.require_subcommand(1);
   app.set_version_flag("--version", "headroom 0.1.0");
   auto entries = registry();

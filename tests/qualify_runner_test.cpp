@@ -1,0 +1,78 @@
+// Tests of the case loop (qualify.h): replay commands that reproduce the
+// verdict, and a case the kernel declines listed as skipped, not as a fault.
+#include <gtest/gtest.h>
+
+#include "headroom/generate.h"
+#include "headroom/qualify.h"
+
+namespace headroom {
+namespace {
+
+// A core float32 kernel that declines every problem (HR_UNSUPPORTED).
+class Declining : public AttachedKernel {
+ public:
+  Declining() {
+    decl_.name = "declining";
+    decl_.mask_kinds = 0x3F;
+    decl_.masked_row = MaskedRowConvention::zeros;
+  }
+  const KernelDeclaration& declaration() const override { return decl_; }
+  KernelRun run(const ReceivedCase&, const RunOptions&) override {
+    KernelRun r;
+    r.status = RunStatus::unsupported;
+    r.detail = "the kernel returned HR_UNSUPPORTED";
+    return r;
+  }
+
+ private:
+  KernelDeclaration decl_;
+};
+
+TEST(Runner, DeclinedCaseIsSkippedWithItsReasonNotAFault) {
+  Declining k;
+  CaseRequest req;
+  req.family = "gaussian";
+  req.seed = 1;
+  req.size = 10;
+  req.level = Level::core;
+  const std::vector<PlannedCase> cases{{make_case(req), req, {}}};
+  RunnerOptions opt;
+  opt.judge.detect.run.isolate = false;
+  opt.apply_budget = budget_applier(default_budget(Format::float32));
+  const RunRecord r = run_cases(k, cases, opt);
+  EXPECT_TRUE(r.cases.empty());
+  ASSERT_EQ(r.skipped.size(), 1u);
+  EXPECT_NE(r.skipped[0].find("declined by the kernel (the kernel returned HR_UNSUPPORTED): not run, not a fault"),
+            std::string::npos)
+      << r.skipped[0];
+  EXPECT_TRUE(r.fault_totals().empty());
+  EXPECT_EQ(r.verdict(), "pass");
+}
+
+TEST(Runner, ReplayCommandsCarryTheBinaryTheKernelOptionAndTheJudgingOptions) {
+  RunnerOptions opt;
+  opt.tool = "build/tools/headroom";
+  opt.kernel_spec = "python3 my kernel.py";
+  opt.kernel_is_program = true;
+  opt.judging_options = " --budget b.toml --time-limit 5";
+  EXPECT_EQ(replay_command(opt, "declared_name", "cases/c 1"),
+            "build/tools/headroom replay --kernel-cmd 'python3 my kernel.py' --budget b.toml --time-limit 5 'cases/c 1'");
+  CaseRequest req;
+  req.family = "gaussian";
+  req.seed = 7;
+  req.size = 10;
+  const std::string line = make_and_replay_command(opt, "declared_name", req, "case-x");
+  EXPECT_EQ(line.rfind("build/tools/headroom case make --family gaussian --seed 7 --size 10 --out case-x && "
+                       "build/tools/headroom replay --kernel-cmd ",
+                       0),
+            0u)
+      << line;
+  opt.kernel_spec.clear();
+  opt.kernel_is_program = false;
+  opt.judging_options.clear();
+  EXPECT_EQ(replay_command(opt, "f32_textbook", "d"), "build/tools/headroom replay --kernel f32_textbook d");
+  EXPECT_EQ(shell_quote("it's"), "'it'\\''s'");
+}
+
+}  // namespace
+}  // namespace headroom
