@@ -36,7 +36,7 @@ TEST(Replay, GeneratedCaseLineCarriesBinaryBudgetAndJudgingOptions) {
   const auto dir = fresh_dir("generated");
   // Under this budget the textbook kernel fails (no ULP error allowed); under the defaults it passes.
   write(dir / "b.toml", "version = 1\n[kernel.f32_textbook]\nmax_ulp = 0\n");
-  ASSERT_EQ(shell(kTool + " qualify --kernel f32_textbook --suite quick --budget b.toml --determinism-runs 1 "
+  ASSERT_EQ(shell(kTool + " qualify --kernel f32_textbook --suite quick --shard 1/4 --budget b.toml --determinism-runs 1 "
                           "--time-limit 30 --json run.json",
                   dir),
             1);

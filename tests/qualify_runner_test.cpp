@@ -47,6 +47,8 @@ TEST(Runner, DeclinedCaseIsSkippedWithItsReasonNotAFault) {
       << r.skipped[0];
   EXPECT_TRUE(r.fault_totals().empty());
   EXPECT_EQ(r.verdict(), "pass");
+  // Declining everything is no plain pass: the level's cases were offered and not taken.
+  EXPECT_EQ(r.verdict_line(), "pass on 0 of 1 core cases");
 }
 
 TEST(Runner, ReplayCommandsCarryTheBinaryTheKernelOptionAndTheJudgingOptions) {

@@ -202,7 +202,10 @@ std::vector<LevelTake> RunRecord::level_takes() const {
         level = at(f.level == Level::core ? "core" : "block");
       }
     }
-    if (level >= 0) ++takes[static_cast<std::size_t>(level)].of;
+    if (level < 0) continue;
+    ++takes[static_cast<std::size_t>(level)].of;
+    // A case the kernel declined (judge.cpp lists it as skipped) was run: its level is this kernel's.
+    if (line.find(": declined by the kernel") != std::string::npos) ran[static_cast<std::size_t>(level)] = true;
   }
   std::vector<LevelTake> out;
   for (std::size_t i = 0; i < takes.size(); ++i)
