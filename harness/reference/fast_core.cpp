@@ -219,6 +219,28 @@ bool FastCore::run_group(std::int64_t group, CoreReference& ref, Scratch& sc, Ro
   return ok;
 }
 
+void FastCore::run_row(std::int64_t row, RowScratch& rs, FastRowOut& o) const {
+  FastRowArgs a;
+  prepare_row(row, rs, a, o);
+  kernels_->group(&a, &o, 1);
+}
+
+bool FastCore::weight_bounds(const FastRowOut& o, std::int64_t n, bool wide, WeightBounds& wb) {
+  const double r = add_up(mul_up(o.r_max, 1.0 + 0x1p-40), 0x1p-1000);
+  wb.phi = weight_uncertainty_up(r, kFastExpRelErr);
+  if (!std::isfinite(wb.phi)) return false;
+  wb.e_acc = mul_up(mul_up(static_cast<double>(n), static_cast<double>(wide ? 6 * kRenormEvery + 14
+                                                                              : 4 * kRenormEvery + 8)),
+                    mul_up(kU2, 1.0 + 0x1p-38));
+  wb.s_low = sub_down(o.s_hi, std::fabs(o.s_lo));
+  wb.s_up = add_up(o.s_hi, std::fabs(o.s_lo));
+  const double tiny_sum = mul_up(static_cast<double>(n), 0x1p-1071);
+  wb.neg = mul_up(static_cast<double>(o.negligible), 0x1p-937);
+  wb.eps_s = add_up(div_up(add_up(wb.phi, wb.e_acc), sub_down(1.0, wb.e_acc)),
+                    div_up(add_up(wb.neg, tiny_sum), wb.s_low));
+  return wb.eps_s < 0.5;
+}
+
 bool FastCore::finish_row(std::int64_t row, RowScratch& sc, const FastRowOut& o, CoreReference& ref, RowRecompute& mp,
                           ReferenceStats& stats) const {
   const CoreShape& s = p_.shape;
@@ -235,18 +257,12 @@ bool FastCore::finish_row(std::int64_t row, RowScratch& sc, const FastRowOut& o,
   if (!o.ok) return escalate_all();
 
   // (a)–(c)
-  const double r = add_up(mul_up(o.r_max, 1.0 + 0x1p-40), 0x1p-1000);
-  const double phi = weight_uncertainty_up(r, kFastExpRelErr);
-  if (!std::isfinite(phi)) return escalate_all();
   const bool wide = wide_ != nullptr;
-  const double e_acc = mul_up(mul_up(static_cast<double>(n), static_cast<double>(wide ? 6 * kRenormEvery + 14
-                                                                                      : 4 * kRenormEvery + 8)),
-                              mul_up(kU2, 1.0 + 0x1p-38));
-  const double s_low = sub_down(o.s_hi, std::fabs(o.s_lo)), s_up = add_up(o.s_hi, std::fabs(o.s_lo));
+  WeightBounds wb;
+  if (!weight_bounds(o, n, wide, wb)) return escalate_all();
+  const double phi = wb.phi, e_acc = wb.e_acc, s_low = wb.s_low, s_up = wb.s_up, eps_s = wb.eps_s;
   const double tiny_sum = mul_up(static_cast<double>(n), 0x1p-1071);
-  const double neg = mul_up(static_cast<double>(o.negligible), 0x1p-937);
-  const double eps_s = add_up(div_up(add_up(phi, e_acc), sub_down(1.0, e_acc)), div_up(add_up(neg, tiny_sum), s_low));
-  if (!(eps_s < 0.5)) return escalate_all();
+  const double neg = wb.neg;
   const double one_u = wide ? 1.0 + 0x1p-51 : 1.0 + kU;  // (c')
   const double c = add_up(mul_up(add_up(e_acc, phi), one_u),
                           div_up(mul_up(mul_up(eps_s, add_up(1.0, phi)), one_u), sub_down(1.0, eps_s)));

@@ -56,6 +56,26 @@ class FastCore {
   /// Returns: whether all its rows ended certified. Adds to `stats`.
   bool run_group(std::int64_t group, CoreReference& ref, Scratch& sc, RowRecompute& mp, ReferenceStats& stats) const;
 
+  /// Runs the kernel on row `row` (= (b·Hq + h)·Tq + i) alone, its visible
+  /// keys already in rs.keys and rs.bias (visible_keys, at least one).
+  /// Afterwards rs.w_hi[idx] + rs.w_lo[idx] is the weight ŵ of key
+  /// rs.keys[idx] (0 for a negligible key) and `o` holds Ŝ and the
+  /// uncertainties; o.ok false means the row could not be finished.
+  void run_row(std::int64_t row, RowScratch& rs, FastRowOut& o) const;
+
+  /// The certified uncertainties of a finished row's weights, (a)–(c) of fast_core.cpp.
+  struct WeightBounds {
+    double phi = 0;    ///< exact weight w_j = ŵ_j(1 + φ_j), |φ_j| ≤ phi
+    double eps_s = 0;  ///< |S − Ŝ| ≤ eps_s·s_low
+    double s_low = 0, s_up = 0;  ///< Ŝ ∈ [s_low, s_up]
+    double e_acc = 0;  ///< the cascaded sums' relative error bound (fast_row.inc)
+    double neg = 0;    ///< bound of all negligible keys' exact weights together
+  };
+  /// `wide`: the row's inputs carry uncertainty (block level), which lengthens
+  /// the cascaded sums' error. Returns: false when the bounds are out of their
+  /// range (escalate the row).
+  static bool weight_bounds(const FastRowOut& o, std::int64_t n, bool wide, WeightBounds& wb);
+
  private:
   void prepare_row(std::int64_t row, RowScratch& rs, FastRowArgs& a, FastRowOut& o) const;
   bool finish_row(std::int64_t row, RowScratch& rs, const FastRowOut& o, CoreReference& ref, RowRecompute& mp,

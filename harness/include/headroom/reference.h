@@ -26,6 +26,8 @@
 //                   precision chosen per row and raised until the target is
 //                   met — the straightforward baseline.
 // The error derivations sit beside the code in harness/reference/.
+// The backward pass (dQ, dK, dV, d(bias)) has its own certified reference with
+// bounds stated the same way: headroom/reference_backward.h.
 #pragma once
 
 #include <cstdint>

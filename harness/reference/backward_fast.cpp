@@ -1,0 +1,421 @@
+// headroom — the backward fast path: double-double gradients with a-posteriori bounds.
+//
+// Notation as fast_row.inc: u = 2^-53, dd = an unevaluated sum hi + lo,
+// normalised when |lo| ≤ u|hi|. One query row i with n visible keys; the
+// forward kernel (FastCore::run_row) gives weights ŵ_j and Ŝ with, per
+// fast_core.cpp (a)–(c), w_j = ŵ_j(1 + φ_j), |φ_j| ≤ φ̄, |S − Ŝ| ≤ ε_S·Ŝ_low.
+//
+//  (1) P̂_j = ŵ_j/Ŝ as the forward's quotient (row_outputs: relative error
+//      ≤ 12.1u² ≤ 16u²), normalised by two_sum. Exact P_j = P̂_j(1 + ·) with
+//        |P_j − P̂_j| ≤ ρ·P̂_j,  ρ = (1 + φ̄)/((1 − ε_S)(1 − 16u²)) − 1.
+//      A negligible key (ŵ_j = 0, t_j < −650) has P̂_j = 0 and exact
+//      P_j ≤ π0 = 2^-937/(Ŝ_low(1 − ε_S)).
+//  (2) dP̂_j = dO_i·V_j by the cascaded dot product of fast_row.inc's scores
+//      (Ogita, Rump & Oishi 2005, Dot2): |dP̂_j − dP_j| ≤ c_dot·A_j with
+//      c_dot = γ_{Dv+1}·u·(Dv + 2) and A_j ≥ Σ_d |dO_id||V_jd| (computed,
+//      rounded up by nonneg_sum_up); normalised by two_sum (exact).
+//  (3) D̂ = Σ_j dd_mul(P̂_j, dP̂_j) accumulated by dd_add. dd_mul errs by
+//      ≤ 6.1u² relatively (fast_row.inc); dd_add(a, b) = two_sum(a.hi, b.hi)
+//      = (s, e), l = RN(RN(a.lo + b.lo) + e), two_sum(s, l): the two roundings
+//      err by ≤ u²(|a.hi| + |b.hi|) and ≤ 2.01u²(|a.hi| + |b.hi|), so
+//      ≤ 3.01u²(|a.hi| + |b.hi|). With U ≥ Σ_j |P̂_j dP̂_j| (sum of |t.hi|,
+//      rounded up, × (1 + 2^-50)) the rounding is ≤ (3.1n + 10)u²·U, and
+//        |D̂ − D| ≤ err_D = (3.1n + 10)u²U + ρU + (1 + ρ)c_dot·AP + π0·A_neg + n·2^-1060
+//      with AP ≥ Σ_j P̂_j A_j and A_neg ≥ Σ_{negligible j} A_j (the last term
+//      charges underflow in the products). A_i = (1 + ρ)AP + π0·A_neg ≥ Σ_j P_j A_j.
+//  (4) dŜ_j = dd_mul(P̂_j, dd_add(dP̂_j, −D̂)). With |dP̂_j| ≤ (1 + c_dot)A_j,
+//      |D̂| ≤ (1 + κ_D)A_i (κ_D = err_D/A_i), |dP_j| ≤ A_j, |D| ≤ A_i:
+//        |dŜ_j − dS_j| ≤ P̂_j[9.2u²(|dP̂_j| + |D̂|) + c_dot A_j + err_D + ρ(|dP_j| + |D|)]
+//                      ≤ τ·m_j,   m_j = RN(P̂_j,hi·RN(A_j + A_i)),
+//        τ = (1 + 2^-50)(1 + u)[9.2u²(1 + c_dot + κ_D) + c_dot + κ_D + ρ],
+//      and |dŜ_j| ≤ λ·m_j, λ = (1 + c_dot + κ_D)(1 + 2^-49). A negligible key
+//      has dŜ_j = 0 and |dS_j| ≤ ν = π0(A_max + A_i)(1 + 2^-50). Underflow in
+//      (4) is charged 2^-1060 per term (far above its few 2^-1074).
+//  (5) Sums Σ_j dŜ_j K_jd (dQ), Σ_i dŜ_ij Q_id (dK), Σ_i P̂_ij dO_id (dV) with
+//      the operation sequence of fast_row.inc's weighted_sums (renormalised
+//      every kRenormEvery terms), whose bound is n(4B + 8)u²(1 + 2^-38)·Ḡ,
+//      Ḡ = Σ|exact terms| ≤ λ·M (dQ, dK) or (1 + u)·M (dV), M the magnitude
+//      sums Σ m_j|x| or Σ P̂_hi|dO| accumulated by fma beside them (rounded up
+//      by nonneg_sum_up), plus n·2^-1071 for underflow. So, before the factor
+//      |s| of dQ and dK (applied with one more rounding, charged u|s·L|):
+//        bound(dQ_id) = (τ + λe_acc)M_id + n_neg·ν·K_max,d + n·2^-1060·K_max,d + tiny
+//        bound(dK_jd) = (τ_max + λ_max·e_acc,j)M_jd + (k_neg,j·ν_max + n_j·2^-1060)·Q_max,d + tiny
+//        bound(dV_jd) = (ρ_max + e_acc,j)(1 + u)M_jd + k_neg,j·π0_max·dO_max,d + tiny
+//      (maxima over the block's rows, e_acc,j with n_j the rows seeing key j).
+//  (6) Magnitudes: the exact natural magnitudes of reference_backward.h
+//      differ from |s|·M (resp. M) by the relative errors of P̂ (ρ), of the
+//      computed A (γ_Dv, γ_2n) and of the sums (γ_2n): κ_mag = 3ρ + 3γ_Dv +
+//      2γ_2n + 10u, required ≤ 2^-30, and by π0·A_neg, required ≤ 2^-40·A_i;
+//      the reported magnitude is M·(1 − 2^-30) rounded down, a lower end.
+//      An element is certified when its bound ≤ 2^target·magnitude (or both
+//      are 0: no terms at all).
+// A row the forward kernel cannot finish, or whose ρ, κ or magnitudes leave
+// these ranges, sends its whole block to the multiprecision path.
+#include "backward_fast.h"
+
+#include <algorithm>
+#include <cmath>
+
+#include "bound_arith.h"
+#include "input_check.h"
+
+#if defined(__clang__)
+#pragma clang fp contract(off)
+#else
+#pragma GCC optimize("fp-contract=off")
+#endif
+
+namespace headroom::detail {
+namespace {
+
+constexpr double kU = 0x1p-53;
+constexpr double kU2 = 0x1p-106;
+constexpr double kMagSlack = 0x1p-30;
+
+struct DD {
+  double hi, lo;
+};
+inline DD two_sum(double a, double b) {
+  const double s = a + b;
+  const double bb = s - a;
+  return {s, (a - (s - bb)) + (b - bb)};
+}
+// As fast_row.inc's dd_mul: normalised x, y; relative error ≤ 6.1u²; result normalised.
+inline DD dd_mul(DD x, DD y) {
+  const double p = x.hi * y.hi;
+  double e = std::fma(x.hi, y.hi, -p);
+  e = std::fma(x.hi, y.lo, e);
+  e = std::fma(x.lo, y.hi, e);
+  const double s = p + e;
+  return {s, e - (s - p)};
+}
+// (3): error ≤ 3.01u²(|a.hi| + |b.hi|); result normalised.
+inline DD dd_add(DD a, DD b) {
+  const DD s = two_sum(a.hi, b.hi);
+  const double l = (a.lo + b.lo) + s.lo;
+  return two_sum(s.hi, l);
+}
+
+// (5): acc[d] += (wh + wl)·x[d] in the order of fast_row.inc's weighted_sums;
+// mag[d] += m·|x[d]|.
+inline void cascade(double* __restrict hi, double* __restrict lo, double* __restrict mag, double wh, double wl,
+                    double m, const double* __restrict x, std::int64_t n) {
+  for (std::int64_t d = 0; d < n; ++d) {
+    const double p = wh * x[d];
+    const double e = std::fma(wh, x[d], -p);
+    const double s = hi[d] + p;
+    const double bb = s - hi[d];
+    const double sigma = (hi[d] - (s - bb)) + (p - bb);
+    hi[d] = s;
+    lo[d] = lo[d] + std::fma(wl, x[d], sigma + e);
+    mag[d] = std::fma(m, std::fabs(x[d]), mag[d]);
+  }
+}
+inline void renormalise(double* __restrict hi, double* __restrict lo, std::int64_t n) {
+  for (std::int64_t d = 0; d < n; ++d) {
+    const double s = hi[d] + lo[d];
+    const double bb = s - hi[d];
+    lo[d] = (hi[d] - (s - bb)) + (lo[d] - bb);
+    hi[d] = s;
+  }
+}
+
+// (2): hi + lo = Σ a_c b_c (Dot2); *abs_sum = Σ |a_c b_c| rounded as computed.
+inline DD dot2(const double* a, const double* b, std::int64_t n, double* abs_sum) {
+  double hi = 0, lo = 0, g = 0;
+  for (std::int64_t c = 0; c < n; ++c) {
+    const double p = a[c] * b[c];
+    const DD s = two_sum(hi, p);
+    hi = s.hi;
+    lo += s.lo + std::fma(a[c], b[c], -p);
+    g = std::fma(std::fabs(a[c]), std::fabs(b[c]), g);
+  }
+  *abs_sum = g;
+  return two_sum(hi, lo);
+}
+
+double e_acc_up(std::int64_t n) {
+  return mul_up(mul_up(static_cast<double>(n), static_cast<double>(4 * kRenormEvery + 8)), mul_up(kU2, 1.0 + 0x1p-38));
+}
+
+// The element's certified verdict: bound ≤ 2^target·magnitude, or both 0.
+bool meets(double bound, double magnitude, double allowed_rel) {
+  return bound <= mul_down(allowed_rel, magnitude) || (bound == 0 && magnitude == 0);
+}
+
+void put(GradientReference& g, std::size_t at, double out, double bound, double magnitude) {
+  g.out.values[at] = out;
+  g.bound.values[at] = bound;
+  g.magnitude.values[at] = magnitude;
+}
+
+}  // namespace
+
+BackwardFast::BackwardFast(const CoreProblem& p, const CoreInputs& in, const Tensor& d_o, const BackwardOptions& opt,
+                           unsigned workers)
+    : p_(p), in_(in), d_o_(d_o), opt_(opt), fast_(p, in, opt.base, workers) {
+  const std::int64_t dv = p.shape.value_dim;
+  dot_coef_ = mul_up(mul_up(gamma_up(dv + 1, kU), kU), static_cast<double>(dv + 2));
+}
+
+std::int64_t BackwardFast::blocks() const { return p_.shape.batch * p_.shape.kv_heads; }
+
+void BackwardFast::run_block(std::int64_t block, BackwardReference& ref, Scratch& sc,
+                             std::vector<PendingElement>& pending, BackwardStats& stats) const {
+  const CoreShape& s = p_.shape;
+  const std::int64_t b = block / s.kv_heads, g = block % s.kv_heads, group = s.q_heads / s.kv_heads;
+  const std::int64_t tk = s.kv_len, dk = s.key_dim, dv = s.value_dim;
+  const double scale = p_.scale, abs_s = std::fabs(scale);
+  const double allowed_rel = std::ldexp(1.0, opt_.base.target_log2);
+  const bool want_ds = opt_.with_d_scores;
+  const double* kb = &in_.k.values[static_cast<std::size_t>(in_.k.offset(b, g, 0, 0))];
+  const double* vb = &in_.v.values[static_cast<std::size_t>(in_.v.offset(b, g, 0, 0))];
+
+  auto zero_fill = [](std::vector<double>& v, std::int64_t n) { v.assign(static_cast<std::size_t>(n), 0.0); };
+  zero_fill(sc.k_hi, tk * dk);
+  zero_fill(sc.k_lo, tk * dk);
+  zero_fill(sc.k_mag, tk * dk);
+  zero_fill(sc.v_hi, tk * dv);
+  zero_fill(sc.v_lo, tk * dv);
+  zero_fill(sc.v_mag, tk * dv);
+  sc.k_rows.assign(static_cast<std::size_t>(tk), 0);
+  sc.k_neg.assign(static_cast<std::size_t>(tk), 0);
+  sc.k_fresh.assign(static_cast<std::size_t>(tk), 0);
+  std::vector<double> k_max(static_cast<std::size_t>(dk), 0.0), q_max(static_cast<std::size_t>(dk), 0.0),
+      do_max(static_cast<std::size_t>(dv), 0.0);
+  for (std::int64_t j = 0; j < tk; ++j)
+    for (std::int64_t d = 0; d < dk; ++d)
+      k_max[static_cast<std::size_t>(d)] = std::max(k_max[static_cast<std::size_t>(d)], std::fabs(kb[j * dk + d]));
+  double tau_max = 0, lambda_max = 1, rho_max = 0, nu_max = 0, pi0_max = 0;
+  bool failed = false;
+
+  auto escalate_block = [&] {
+    for (std::int64_t h = g * group; h < (g + 1) * group; ++h)
+      for (std::int64_t i = 0; i < s.q_len; ++i) {
+        for (std::int64_t d = 0; d < dk; ++d) pending.push_back({GradKind::d_q, b, h, i, d});
+        if (want_ds)
+          for (std::int64_t j = 0; j < tk; ++j) pending.push_back({GradKind::d_s, b, h, i, j});
+      }
+    for (std::int64_t j = 0; j < tk; ++j) {
+      for (std::int64_t d = 0; d < dk; ++d) pending.push_back({GradKind::d_k, b, g, j, d});
+      for (std::int64_t d = 0; d < dv; ++d) pending.push_back({GradKind::d_v, b, g, j, d});
+    }
+  };
+
+  for (std::int64_t h = g * group; h < (g + 1) * group && !failed; ++h) {
+    for (std::int64_t i = 0; i < s.q_len && !failed; ++i) {
+      const std::int64_t row = (b * s.q_heads + h) * s.q_len + i;
+      const double* q = &in_.q.values[static_cast<std::size_t>(in_.q.offset(b, h, i, 0))];
+      const double* dor = &d_o_.values[static_cast<std::size_t>(d_o_.offset(b, h, i, 0))];
+      for (std::int64_t d = 0; d < dk; ++d)
+        q_max[static_cast<std::size_t>(d)] = std::max(q_max[static_cast<std::size_t>(d)], std::fabs(q[d]));
+      for (std::int64_t d = 0; d < dv; ++d)
+        do_max[static_cast<std::size_t>(d)] = std::max(do_max[static_cast<std::size_t>(d)], std::fabs(dor[d]));
+      FastCore::RowScratch& rs = sc.row;
+      visible_keys(s, p_.mask, b, h, i, rs.keys, rs.bias);
+      const std::size_t dq_at = static_cast<std::size_t>(row * dk);
+      if (want_ds)
+        for (std::int64_t j = 0; j < tk; ++j) put(ref.d_s, static_cast<std::size_t>(row * tk + j), 0, 0, 0);
+      if (rs.keys.empty()) {  // no gradient flows through a fully masked row
+        ref.fully_masked[static_cast<std::size_t>(row)] = 1;
+        for (std::int64_t d = 0; d < dk; ++d) put(ref.d_q, dq_at + static_cast<std::size_t>(d), 0, 0, 0);
+        continue;
+      }
+      ++stats.rows;
+      FastRowOut o;
+      fast_.run_row(row, rs, o);
+      FastCore::WeightBounds wb;
+      if (!o.ok || !FastCore::weight_bounds(o, static_cast<std::int64_t>(rs.keys.size()), false, wb)) {
+        failed = true;
+        break;
+      }
+      const auto n = static_cast<std::int64_t>(rs.keys.size());
+      const auto nz = static_cast<std::size_t>(n);
+      for (auto* v : {&sc.ph, &sc.pl, &sc.dph, &sc.dpl, &sc.a, &sc.sh, &sc.sl, &sc.mh}) v->resize(nz);
+
+      // (1)
+      // (1 + φ̄)/((1 − ε_S)(1 − η)) − 1 = (φ̄ + ε_S + η − ε_S·η)/((1 − ε_S)(1 − η)), η = 16u².
+      const double rho = div_up(add_up(add_up(wb.phi, wb.eps_s), 16 * kU2),
+                                mul_down(sub_down(1.0, wb.eps_s), sub_down(1.0, 16 * kU2)));
+      const double pi0 = div_up(0x1p-937, mul_down(wb.s_low, sub_down(1.0, wb.eps_s)));
+      std::int64_t n_neg = 0;
+      for (std::size_t x = 0; x < nz; ++x) {
+        const double wh = rs.w_hi[x], wl = rs.w_lo[x];
+        if (wh == 0.0) {
+          sc.ph[x] = sc.pl[x] = 0.0;
+          ++n_neg;
+          continue;
+        }
+        const double q1 = wh / o.s_hi;
+        const double r0 = std::fma(-q1, o.s_hi, wh);
+        const double r = (r0 + wl) - q1 * o.s_lo;
+        const DD pn = two_sum(q1, r / o.s_hi);
+        sc.ph[x] = pn.hi;
+        sc.pl[x] = pn.lo;
+      }
+      // (2), (3)
+      DD delta{0, 0};
+      double u_sum = 0, ap = 0, a_neg = 0, a_max = 0;
+      for (std::size_t x = 0; x < nz; ++x) {
+        double abs_sum = 0;
+        const DD dp = dot2(dor, vb + rs.keys[x] * dv, dv, &abs_sum);
+        sc.dph[x] = dp.hi;
+        sc.dpl[x] = dp.lo;
+        const double a = nonneg_sum_up(abs_sum, dv);
+        sc.a[x] = a;
+        if (sc.ph[x] == 0.0) {
+          a_neg += a;
+          a_max = std::max(a_max, a);
+          continue;
+        }
+        const DD t = dd_mul({sc.ph[x], sc.pl[x]}, dp);
+        delta = dd_add(delta, t);
+        u_sum += std::fabs(t.hi);
+        ap = std::fma(sc.ph[x], a, ap);
+      }
+      const double u_up = mul_up(nonneg_sum_up(u_sum, n), 1.0 + 0x1p-50);
+      const double ap_up = mul_up(nonneg_sum_up(ap, 2 * n), 1.0 + kU);
+      const double a_neg_up = nonneg_sum_up(a_neg, n);
+      const double one_rho = add_up(1.0, rho);
+      double err_d = mul_up(mul_up(add_up(mul_up(3.1, static_cast<double>(n)), 10.0), kU2), u_up);
+      err_d = add_up(err_d, mul_up(rho, u_up));
+      err_d = add_up(err_d, mul_up(one_rho, mul_up(dot_coef_, ap_up)));
+      err_d = add_up(err_d, add_up(mul_up(pi0, a_neg_up), mul_up(static_cast<double>(n), 0x1p-1060)));
+      const double neg_part = mul_up(pi0, a_neg_up);
+      const double a_i = add_up(mul_up(one_rho, ap_up), neg_part);
+      const double kappa_d = a_i > 0 ? div_up(err_d, a_i) : 0.0;
+      const double c_k = add_up(dot_coef_, kappa_d);
+      const double tau = mul_up(mul_up(1.0 + 0x1p-50, 1.0 + kU),
+                                add_up(mul_up(9.2 * kU2, add_up(1.0, c_k)), add_up(c_k, rho)));
+      const double lambda = mul_up(add_up(1.0, c_k), 1.0 + 0x1p-49);
+      const double nu = mul_up(mul_up(pi0, add_up(a_max, a_i)), 1.0 + 0x1p-50);
+      const double kappa_mag =
+          add_up(add_up(mul_up(3.0, rho), mul_up(3.0, gamma_up(dv, kU))), add_up(mul_up(2.0, gamma_up(2 * n, kU)),
+                                                                                 10 * kU));
+      if (!(kappa_mag <= 0x1p-34) || !(neg_part <= mul_down(0x1p-40, a_i) || a_neg_up == 0) ||
+          !std::isfinite(tau) || !(c_k <= 0x1p-34)) {
+        failed = true;
+        break;
+      }
+      tau_max = std::max(tau_max, tau);
+      lambda_max = std::max(lambda_max, lambda);
+      rho_max = std::max(rho_max, rho);
+      nu_max = std::max(nu_max, nu);
+      if (n_neg > 0) pi0_max = std::max(pi0_max, pi0);
+
+      // (4), dS and the row's dQ; dK and dV terms of the row.
+      const DD minus_d{-delta.hi, -delta.lo};
+      sc.q_hi.assign(static_cast<std::size_t>(dk), 0.0);
+      sc.q_lo.assign(static_cast<std::size_t>(dk), 0.0);
+      sc.q_mag.assign(static_cast<std::size_t>(dk), 0.0);
+      std::int64_t since = 0;
+      for (std::size_t x = 0; x < nz; ++x) {
+        const std::int64_t j = rs.keys[x];
+        const auto ju = static_cast<std::size_t>(j);
+        if (sc.ph[x] == 0.0) {
+          ++sc.k_neg[ju];
+          if (want_ds) put(ref.d_s, static_cast<std::size_t>(row * tk + j), 0.0, nu, 0.0);
+          continue;
+        }
+        const DD ds = dd_mul({sc.ph[x], sc.pl[x]}, dd_add({sc.dph[x], sc.dpl[x]}, minus_d));
+        const double m = sc.ph[x] * (sc.a[x] + a_i);
+        if (want_ds) {
+          const double bound = add_up(mul_up(tau, m), 0x1p-1060);
+          put(ref.d_s, static_cast<std::size_t>(row * tk + j), ds.hi, bound, mul_down(m, 1.0 - kMagSlack));
+        }
+        cascade(sc.q_hi.data(), sc.q_lo.data(), sc.q_mag.data(), ds.hi, ds.lo, m, kb + j * dk, dk);
+        if (++since == kRenormEvery) {
+          renormalise(sc.q_hi.data(), sc.q_lo.data(), dk);
+          since = 0;
+        }
+        const std::size_t kat = ju * static_cast<std::size_t>(dk), vat = ju * static_cast<std::size_t>(dv);
+        cascade(&sc.k_hi[kat], &sc.k_lo[kat], &sc.k_mag[kat], ds.hi, ds.lo, m, q, dk);
+        cascade(&sc.v_hi[vat], &sc.v_lo[vat], &sc.v_mag[vat], sc.ph[x], sc.pl[x], sc.ph[x], dor, dv);
+        ++sc.k_rows[ju];
+        if (++sc.k_fresh[ju] == kRenormEvery) {
+          renormalise(&sc.k_hi[kat], &sc.k_lo[kat], dk);
+          renormalise(&sc.v_hi[vat], &sc.v_lo[vat], dv);
+          sc.k_fresh[ju] = 0;
+        }
+      }
+      renormalise(sc.q_hi.data(), sc.q_lo.data(), dk);
+
+      // (5) dQ of the row.
+      const double e_acc = e_acc_up(n);
+      const double coef = add_up(tau, mul_up(lambda, e_acc));
+      const double tiny = mul_up(static_cast<double>(n), 0x1p-1071);
+      for (std::int64_t d = 0; d < dk; ++d) {
+        const auto du = static_cast<std::size_t>(d);
+        const double mag = nonneg_sum_up(sc.q_mag[du], 2 * n);
+        double bound = add_up(mul_up(coef, mag), tiny);
+        bound = add_up(bound, mul_up(add_up(mul_up(static_cast<double>(n_neg), nu), mul_up(static_cast<double>(n),
+                                                                                             0x1p-1060)),
+                                     k_max[du]));
+        const double sl = scale * sc.q_lo[du];
+        const double out = std::fma(scale, sc.q_hi[du], sl);
+        bound = add_up(mul_up(abs_s, bound), add_up(mul_up(0x1p-52, std::fabs(sl)), 0x1p-1074));
+        const double magnitude = mul_down(mul_down(abs_s, sc.q_mag[du]), 1.0 - kMagSlack);
+        put(ref.d_q, dq_at + du, out, bound, magnitude);
+        if (!meets(bound, magnitude, allowed_rel)) pending.push_back({GradKind::d_q, b, h, i, d});
+      }
+      if (want_ds) {
+        for (std::size_t x = 0; x < nz; ++x) {
+          const auto at = static_cast<std::size_t>(row * tk + rs.keys[x]);
+          if (!meets(ref.d_s.bound.values[at], ref.d_s.magnitude.values[at], allowed_rel))
+            pending.push_back({GradKind::d_s, b, h, i, rs.keys[x]});
+        }
+      }
+    }
+  }
+  if (failed) {
+    escalate_block();
+    return;
+  }
+
+  // (5) dK and dV of the block.
+  for (std::int64_t j = 0; j < tk; ++j) {
+    const auto ju = static_cast<std::size_t>(j);
+    const std::size_t kat = ju * static_cast<std::size_t>(dk), vat = ju * static_cast<std::size_t>(dv);
+    renormalise(&sc.k_hi[kat], &sc.k_lo[kat], dk);
+    renormalise(&sc.v_hi[vat], &sc.v_lo[vat], dv);
+    const std::int64_t rows = sc.k_rows[ju], neg = sc.k_neg[ju];
+    if (rows == 0 && neg == 0) {  // masked from every query: no terms, exactly 0
+      for (std::int64_t d = 0; d < dk; ++d) put(ref.d_k, static_cast<std::size_t>(ref.d_k.out.offset(b, g, j, d)), 0, 0, 0);
+      for (std::int64_t d = 0; d < dv; ++d) put(ref.d_v, static_cast<std::size_t>(ref.d_v.out.offset(b, g, j, d)), 0, 0, 0);
+      continue;
+    }
+    const double e_acc = e_acc_up(rows), tiny = mul_up(static_cast<double>(rows), 0x1p-1071);
+    if (!(gamma_up(2 * rows, kU) <= 0x1p-34)) {
+      for (std::int64_t d = 0; d < dk; ++d) pending.push_back({GradKind::d_k, b, g, j, d});
+      for (std::int64_t d = 0; d < dv; ++d) pending.push_back({GradKind::d_v, b, g, j, d});
+      continue;
+    }
+    const double k_coef = add_up(tau_max, mul_up(lambda_max, e_acc));
+    const double k_abs = add_up(mul_up(static_cast<double>(neg), nu_max), mul_up(static_cast<double>(rows), 0x1p-1060));
+    for (std::int64_t d = 0; d < dk; ++d) {
+      const auto du = static_cast<std::size_t>(d);
+      const double mag = nonneg_sum_up(sc.k_mag[kat + du], 2 * rows);
+      double bound = add_up(add_up(mul_up(k_coef, mag), mul_up(k_abs, q_max[du])), tiny);
+      const double sl = scale * sc.k_lo[kat + du];
+      const double out = std::fma(scale, sc.k_hi[kat + du], sl);
+      bound = add_up(mul_up(abs_s, bound), add_up(mul_up(0x1p-52, std::fabs(sl)), 0x1p-1074));
+      const double magnitude = mul_down(mul_down(abs_s, sc.k_mag[kat + du]), 1.0 - kMagSlack);
+      const std::size_t at = static_cast<std::size_t>(ref.d_k.out.offset(b, g, j, d));
+      put(ref.d_k, at, out, bound, magnitude);
+      if (!meets(bound, magnitude, allowed_rel)) pending.push_back({GradKind::d_k, b, g, j, d});
+    }
+    const double v_coef = mul_up(add_up(rho_max, e_acc), 1.0 + kU);
+    const double v_abs = mul_up(static_cast<double>(neg), pi0_max);
+    for (std::int64_t d = 0; d < dv; ++d) {
+      const auto du = static_cast<std::size_t>(d);
+      const double mag = nonneg_sum_up(sc.v_mag[vat + du], 2 * rows);
+      const double bound = add_up(add_up(mul_up(v_coef, mag), mul_up(v_abs, do_max[du])), tiny);
+      const double magnitude = mul_down(sc.v_mag[vat + du], 1.0 - kMagSlack);
+      const std::size_t at = static_cast<std::size_t>(ref.d_v.out.offset(b, g, j, d));
+      put(ref.d_v, at, sc.v_hi[vat + du] + sc.v_lo[vat + du], bound, magnitude);
+      if (!meets(bound, magnitude, allowed_rel)) pending.push_back({GradKind::d_v, b, g, j, d});
+    }
+  }
+}
+
+}  // namespace headroom::detail
