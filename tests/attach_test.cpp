@@ -278,6 +278,20 @@ TEST(AttachReceive, RoundsToTheDeclaredFormat) {
   EXPECT_EQ(d.received.core_inputs.q.values[0], 65520.0);
 }
 
+TEST(AttachReceive, RoundsTheUpstreamGradientLikeTheInputs) {
+  Case c = core_case({1, 2, 1, 3, 4, 5, 5}, MaskKind::none, 1);
+  EXPECT_TRUE(receive(c, float_declaration(Format::binary16)).received.d_o.values.empty());
+  c.d_o = Tensor({1, 2, 3, 5});
+  for (std::size_t i = 0; i < c.d_o.values.size(); ++i) c.d_o.values[i] = 0.1 * static_cast<double>(i) - 1.0;
+  c.d_o.values[0] = 65520.0;  // past binary16's overflow threshold, as above
+  const ReceivedCase h = receive(c, float_declaration(Format::binary16));
+  EXPECT_EQ(h.received.d_o.values[0], kInf);
+  for (std::size_t i = 1; i < c.d_o.values.size(); ++i)
+    EXPECT_EQ(h.received.d_o.values[i], binary16_to_float(double_to_binary16(c.d_o.values[i])));
+  EXPECT_EQ(receive(c, float_declaration(Format::float32)).received.d_o.values[3], static_cast<double>(0.2f));
+  EXPECT_EQ(receive(c, float_declaration(Format::float64)).received.d_o.values[3], 0.1 * 3 - 1.0);
+}
+
 TEST(AttachReceive, QuantisesInt8WithTheDeclaredSchemes) {
   const Case c = core_case({2, 2, 1, 3, 4, 6, 6}, MaskKind::none, 2);
   KernelDeclaration d = float_declaration(Format::int8);

@@ -131,6 +131,7 @@ void expect_same(const Case& a, const Case& b) {
     EXPECT_TRUE(bit_identical(a.core_inputs.q, b.core_inputs.q));
     EXPECT_TRUE(bit_identical(a.core_inputs.k, b.core_inputs.k));
     EXPECT_TRUE(bit_identical(a.core_inputs.v, b.core_inputs.v));
+    EXPECT_TRUE(bit_identical(a.d_o, b.d_o));
   } else {
     EXPECT_EQ(a.block.shape, b.block.shape);
     EXPECT_EQ(std::bit_cast<std::uint32_t>(a.block.scale), std::bit_cast<std::uint32_t>(b.block.scale));
@@ -278,6 +279,30 @@ TEST(CaseFolder, RefusesShapeMismatch) {
   write_npy(dir / "k.npy", tensor_to_npy(pattern({2, 4, 5, 4}, Format::float32, 2), Format::float32));
   const InputError e = read_error(dir, "k.npy", "inputs.k.shape: expected [2, 2, 5, 4], found [2, 4, 5, 4]");
   EXPECT_EQ(e.place(), "shape");
+}
+
+TEST(CaseFolder, CarriesAnUpstreamGradientWhenGivenOne) {
+  TempDir tmp;
+  for (Format fmt : {Format::float64, Format::binary16}) {
+    Case c = core_case(fmt);
+    const CoreShape& s = c.core.shape;
+    c.d_o = pattern({s.batch, s.q_heads, s.q_len, s.value_dim}, fmt, 9);
+    const fs::path dir = tmp.path() / std::string(format_name(fmt));
+    write_case(c, dir);
+    EXPECT_EQ(read_npy(dir / "d_o.npy").descr, npy_descr_of(fmt));
+    expect_same(read_case(dir), c);
+  }
+  // Without one, no file; a misshapen or non-finite one is refused naming d_o.npy.
+  const fs::path dir = tmp.path() / "plain";
+  write_case(core_case(), dir);
+  EXPECT_FALSE(fs::exists(dir / "d_o.npy"));
+  EXPECT_TRUE(read_case(dir).d_o.values.empty());
+  write_npy(dir / "d_o.npy", tensor_to_npy(pattern({2, 4, 3, 4}, Format::float32, 2), Format::float32));
+  EXPECT_EQ(read_error(dir, "d_o.npy", "does not match [B, Hq, Tq, Dv]").place(), "shape");
+  Tensor bad = pattern({2, 4, 3, 3}, Format::float32, 2);
+  bad.values[5] = std::numeric_limits<double>::quiet_NaN();
+  write_npy(dir / "d_o.npy", tensor_to_npy(bad, Format::float32));
+  read_error(dir, "d_o.npy", "NaN");
 }
 
 TEST(CaseFolder, RefusesQueryHeadsNotAMultipleOfKvHeads) {

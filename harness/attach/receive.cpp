@@ -127,6 +127,10 @@ ReceivedCase receive(const Case& c, const KernelDeclaration& d) {
       r.received.core_inputs.k = rounded(c.core_inputs.k, d.input_format);
       r.received.core_inputs.v = rounded(c.core_inputs.v, d.input_format);
     }
+    // dO, when the case carries one, in the input format like Q, K, V (int8
+    // kernels, which have no backward, keep it float32).
+    if (!c.d_o.values.empty())
+      r.received.d_o = rounded(c.d_o, d.input_format == Format::int8 ? Format::float32 : d.input_format);
   } else {
     r.received.block.mask = received_mask(c.block.mask);
     BlockInputs& in = r.received.block_inputs;

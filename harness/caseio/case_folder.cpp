@@ -42,7 +42,10 @@ struct Slot {
 // The input tensors of a case with their fixed file names (case_folder.h).
 std::vector<Slot> slots_of(Case& c) {
   if (c.level == Level::core)
-    return {{"q.npy", &c.core_inputs.q, false}, {"k.npy", &c.core_inputs.k, false}, {"v.npy", &c.core_inputs.v, false}};
+    return {{"q.npy", &c.core_inputs.q, false},
+            {"k.npy", &c.core_inputs.k, false},
+            {"v.npy", &c.core_inputs.v, false},
+            {"d_o.npy", &c.d_o, true}};
   BlockInputs& b = c.block_inputs;
   return {{"x_q.npy", &b.x_q, false}, {"x_kv.npy", &b.x_kv, false}, {"w_q.npy", &b.w_q, false},
           {"w_k.npy", &b.w_k, false}, {"w_v.npy", &b.w_v, false}, {"w_o.npy", &b.w_o, false},
@@ -103,6 +106,13 @@ void check_finite(const Tensor& t, const fs::path& file) {
 void check_case(Case& c, const fs::path& dir) {
   const auto found = c.level == Level::core ? validate(c.core, c.core_inputs) : validate(c.block, c.block_inputs);
   if (!found.empty()) throw_findings(found, dir);
+  if (c.level == Level::core && !absent(c.d_o)) {
+    const CoreShape& s = c.core.shape;
+    const std::vector<std::int64_t> want{s.batch, s.q_heads, s.q_len, s.value_dim};
+    if (c.d_o.shape != want)
+      throw InputError((dir / "d_o.npy").string(), "shape", "does not match [B, Hq, Tq, Dv] of the manifest's \"shape\"",
+                       "save dO with the shape of the attention output, or correct the manifest");
+  }
   for (const Slot& s : slots_of(c)) check_finite(*s.tensor, dir / s.file);
 }
 

@@ -30,6 +30,7 @@ enum class Stream : std::uint64_t {
   b_v,
   b_o,
   plan,
+  d_o,
 };
 
 /// Returns: the splitmix64 finaliser of x (Steele, Lea & Flood 2014, "Fast

@@ -40,7 +40,8 @@ std::optional<std::string> why_unfit(const Case& c, const KernelDeclaration& d);
 /// Returns: the case as the kernel declared by `d` receives it: every source
 /// tensor (Q, K, V; X, W, b) rounded to d.input_format with round-to-nearest-
 /// even (binary16.h, format.h; float64 unchanged), or quantised with d's
-/// per-input schemes (quant.h); an additive bias rounded to float32 (the ABI
+/// per-input schemes (quant.h); the upstream gradient dO, when the case has
+/// one, rounded like Q, K, V (to float32 for int8); an additive bias rounded to float32 (the ABI
 /// passes it as float); dense mask entries normalised to 0/1. The values are
 /// exactly those the kernel's buffers will hold. Values beyond a format's range
 /// become ±infinity, as the conversion prescribes.

@@ -26,6 +26,8 @@ struct Case {
   Level level = Level::core;
   CoreProblem core;                      ///< level core
   CoreInputs core_inputs;
+  Tensor d_o;                            ///< level core, optional: the upstream gradient dO [B, Hq, Tq, Dv]
+                                         ///< for judging backward kernels; empty (shape {}) when absent
   BlockProblem block;                    ///< level block
   BlockInputs block_inputs;
   Format source_format = Format::float32;  ///< the format the tensors are exact in

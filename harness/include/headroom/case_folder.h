@@ -4,6 +4,7 @@
 // folder. Tensors (see npy.h for the dtypes):
 //
 //   core   q.npy [B, Hq, Tq, Dk]   k.npy [B, Hkv, Tk, Dk]   v.npy [B, Hkv, Tk, Dv]
+//          optional d_o.npy [B, Hq, Tq, Dv]: the upstream gradient dO for backward kernels
 //   block  x_q.npy [B, Tq, Dm]  x_kv.npy [B, Tk, Dm]
 //          w_q.npy [Dm, Hq·Dk]  w_k.npy [Dm, Hkv·Dk]  w_v.npy [Dm, Hkv·Dv]  w_o.npy [Hq·Dv, Dm]
 //          optional b_q.npy [Hq·Dk]  b_k.npy [Hkv·Dk]  b_v.npy [Hkv·Dv]  b_o.npy [Dm]
