@@ -288,7 +288,7 @@ TEST(AttachReceive, RoundsTheUpstreamGradientLikeTheInputs) {
   EXPECT_EQ(h.received.d_o.values[0], kInf);
   for (std::size_t i = 1; i < c.d_o.values.size(); ++i)
     EXPECT_EQ(h.received.d_o.values[i], binary16_to_float(double_to_binary16(c.d_o.values[i])));
-  EXPECT_EQ(receive(c, float_declaration(Format::float32)).received.d_o.values[3], static_cast<double>(0.2f));
+  EXPECT_EQ(receive(c, float_declaration(Format::float32)).received.d_o.values[3], static_cast<double>(static_cast<float>(0.1 * 3 - 1.0)));
   EXPECT_EQ(receive(c, float_declaration(Format::float64)).received.d_o.values[3], 0.1 * 3 - 1.0);
 }
 
