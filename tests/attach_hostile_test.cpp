@@ -23,6 +23,7 @@
 #include "attach_cases.h"
 #include "headroom/attach.h"
 #include "headroom/input_error.h"
+#include "leftovers.h"
 #include "memory_limit_under_asan.h"
 
 namespace headroom {
@@ -75,10 +76,10 @@ int count_threads() {
   return n;
 }
 
+// The attached kernels' isolation workers aside, no child process: none left running, none unreaped.
 void expect_no_child_left() {
-  errno = 0;
-  EXPECT_EQ(waitpid(-1, nullptr, WNOHANG), -1);
-  EXPECT_EQ(errno, ECHILD) << "a child process was left unreaped";
+  const auto left = testing::children_besides_workers();
+  EXPECT_TRUE(left.empty()) << "a child process was left: " << left.front();
 }
 
 // Redirects this process's fd 1 into a file for its lifetime; text() is what reached it.
@@ -160,7 +161,9 @@ TEST(HostilePlugin, OwnSignalHandlersDoNotHideHangsOrCrashes) {
       {"sound", RunStatus::ok, ""},                                  // handlers installed, answer right
   };
   for (const Mode& m : modes) {
+    // Set before attaching: the kernel runs in a copy of this process taken then (its isolation worker).
     setenv("HEADROOM_HOSTILE_SIGNALS", m.name, 1);
+    k = attach_library(HEADROOM_HOSTILE_SIGNALS);
     const auto start = Clock::now();
     const KernelRun r = run_on(*k, small_case(), isolated(0.5));
     const double s = seconds_since(start);
@@ -191,6 +194,61 @@ TEST(HostilePlugin, ThreadsStillWritingAfterReturnDieWithTheChild) {
   EXPECT_EQ(count_threads(), threads) << "a kernel thread survived into headroom's process";
   expect_no_child_left();
   expect_sound_case_runs();
+}
+
+TEST(HostilePlugin, ProcessesLeftRunningAreStrayProcessesAndEndWithTheCall) {
+  // Forked, in a session of its own, double-forked: each is reported with its
+  // name and is gone when the call is; a child the kernel waits for is fine.
+  struct Mode {
+    const char* name;
+    RunStatus status;
+  };
+  const Mode modes[] = {{"child", RunStatus::stray_process},
+                        {"setsid", RunStatus::stray_process},
+                        {"double", RunStatus::stray_process},
+                        {"waited", RunStatus::ok}};
+  for (const Mode& m : modes) {
+    int fds[2];
+    ASSERT_EQ(pipe2(fds, O_NONBLOCK), 0);
+    setenv("HEADROOM_HOSTILE_FORKS", m.name, 1);
+    setenv("HEADROOM_HOSTILE_FORKS_FD", std::to_string(fds[1]).c_str(), 1);
+    auto k = attach_library(HEADROOM_HOSTILE_FORKS);
+    const KernelRun r = run_on(*k, small_case(), isolated());
+    EXPECT_EQ(r.status, m.status) << m.name << ": " << run_status_name(r.status) << " " << r.detail;
+    if (m.status == RunStatus::stray_process) {
+      EXPECT_TRUE(contains(r.detail, "\"hr-stray\"")) << m.name << ": " << r.detail;
+      pid_t stray = 0;
+      ASSERT_EQ(read(fds[0], &stray, sizeof stray), static_cast<ssize_t>(sizeof stray)) << m.name;
+      EXPECT_TRUE(testing::ends_within(stray, 0.0)) << m.name << ": the stray " << stray << " outlived the call";
+      if (!testing::ends_within(stray, 0.0)) kill(stray, SIGKILL);
+    } else {
+      EXPECT_TRUE(bit_identical(r.out, sound_answer().out)) << m.name;
+    }
+    expect_no_child_left();
+    std::printf("forks %-7s -> %s: %s\n", m.name, run_status_name(r.status), r.detail.c_str());
+    close(fds[0]);
+    close(fds[1]);
+  }
+  unsetenv("HEADROOM_HOSTILE_FORKS");
+  unsetenv("HEADROOM_HOSTILE_FORKS_FD");
+  expect_sound_case_runs();
+}
+
+TEST(HostilePlugin, AKernelKillingItsWorkerIsACrashAndTheNextCallRuns) {
+  setenv("HEADROOM_HOSTILE_FORKS", "parent", 1);
+  auto k = attach_library(HEADROOM_HOSTILE_FORKS);
+  unsetenv("HEADROOM_HOSTILE_FORKS");
+  const KernelRun r = run_on(*k, small_case(), isolated());
+  EXPECT_EQ(r.status, RunStatus::crash) << r.detail;
+  EXPECT_TRUE(contains(r.detail, "isolation worker")) << r.detail;
+  EXPECT_TRUE(contains(r.detail, "SIGKILL")) << r.detail;
+  expect_no_child_left();
+  // The same kernel object again: a fresh worker, forked now, still sees the
+  // environment of that moment, in which the mode is unset: a sound answer.
+  const KernelRun again = run_on(*k, small_case(), isolated());
+  ASSERT_EQ(again.status, RunStatus::ok) << again.detail;
+  EXPECT_TRUE(bit_identical(again.out, sound_answer().out));
+  expect_no_child_left();
 }
 
 TEST(HostilePlugin, UnboundedAllocationEndsAtTheMemoryLimit) {

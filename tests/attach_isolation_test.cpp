@@ -1,8 +1,10 @@
 // headroom tests — every isolation class provoked by a tiny misbehaving kernel, and nothing leaked.
 #include <dirent.h>
+#include <sys/prctl.h>
 #include <sys/wait.h>
 #include <unistd.h>
 
+#include <algorithm>
 #include <cerrno>
 #include <chrono>
 #include <cmath>
@@ -10,6 +12,7 @@
 #include <cstdio>
 #include <cstdlib>
 #include <cstring>
+#include <ctime>
 #include <filesystem>
 #include <stdexcept>
 #include <string>
@@ -111,12 +114,41 @@ std::int32_t hangs(const hr_core_problem*) {
   }
 }
 
+// Spins until this process has used g_cpu_seconds of CPU time, then writes zeros: sound, CPU-bound.
+double g_cpu_seconds = 0.6;
+
+std::int32_t burns_cpu(const hr_core_problem* p) {
+  timespec t{};
+  do {
+    clock_gettime(CLOCK_PROCESS_CPUTIME_ID, &t);
+  } while (static_cast<double>(t.tv_sec) + 1e-9 * static_cast<double>(t.tv_nsec) < g_cpu_seconds);
+  write_zeros(p);
+  return HR_OK;
+}
+
+std::int32_t sleeps_forever(const hr_core_problem*) {
+  for (;;) pause();
+}
+
 int g_pid_pipe = -1;  // where reports_pid_then_hangs tells the test which process runs it
 
 std::int32_t reports_pid_then_hangs(const hr_core_problem* p) {
   const pid_t me = getpid();
   if (write(g_pid_pipe, &me, sizeof me) != static_cast<ssize_t>(sizeof me)) return HR_OK;
   return hangs(p);
+}
+
+// Tells the test which process forked it: its parent's command name.
+std::int32_t reports_parent(const hr_core_problem* p) {
+  char comm[32] = {};
+  FILE* f = std::fopen(("/proc/" + std::to_string(getppid()) + "/comm").c_str(), "r");
+  if (f != nullptr) {
+    if (std::fgets(comm, sizeof comm, f) == nullptr) comm[0] = '\0';
+    std::fclose(f);
+  }
+  if (write(g_pid_pipe, comm, sizeof comm) != static_cast<ssize_t>(sizeof comm)) return HR_OK;
+  write_zeros(p);
+  return HR_OK;
 }
 
 std::int32_t calls_exit(const hr_core_problem*) { std::exit(3); }
@@ -240,10 +272,64 @@ TEST(AttachIsolation, HangIsKilledAtTheTimeLimit) {
   opt.time_limit_s = 0.3;
   const KernelRun r = run_kernel(hangs, opt);
   const double s = std::chrono::duration<double>(std::chrono::steady_clock::now() - start).count();
-  EXPECT_RUN(r, RunStatus::timeout, "time limit of 0.3 s");
+  EXPECT_RUN(r, RunStatus::timeout, "CPU time limit of 0.3 s");
   EXPECT_GE(s, 0.3);
   EXPECT_LT(s, 3.0);
   std::printf("timeout: 0.3 s limit, call returned after %.3f s\n", s);
+}
+
+TEST(AttachIsolation, ASoundKernelOnALoadedMachineIsNotTimedOut) {
+  // Two busy-loop processes per core, started here: the kernel gets at most
+  // half a core, so its 0.3 CPU s take well over the 0.5 s limit in wall time.
+  const long cores = std::max(1L, sysconf(_SC_NPROCESSORS_ONLN));
+  std::vector<pid_t> busy;
+  for (long i = 0; i < 2 * cores; ++i) {
+    const pid_t pid = fork();
+    ASSERT_GE(pid, 0);
+    if (pid == 0) {
+      prctl(PR_SET_PDEATHSIG, SIGKILL);
+      volatile std::uint64_t spins = 0;
+      for (;;) spins = spins + 1;
+    }
+    busy.push_back(pid);
+  }
+  RunOptions opt = quick();
+  opt.time_limit_s = 0.5;
+  opt.seconds_per_work = 0;  // exactly 0.5 CPU s
+  g_cpu_seconds = 0.3;
+  const auto start = std::chrono::steady_clock::now();
+  const KernelRun r = run_kernel(burns_cpu, opt);
+  const double wall = std::chrono::duration<double>(std::chrono::steady_clock::now() - start).count();
+  for (pid_t pid : busy) kill(pid, SIGKILL);
+  for (pid_t pid : busy) waitpid(pid, nullptr, 0);
+  EXPECT_EQ(r.status, RunStatus::ok) << r.detail;
+  EXPECT_GT(wall, opt.time_limit_s) << "the machine was not loaded enough for a wall-clock limit to fire";
+  std::printf("0.3 CPU s under %ld busy loops: %.2f s wall, limit 0.5 CPU s: %s\n", 2 * cores, wall,
+              run_status_name(r.status));
+}
+
+TEST(AttachIsolation, ASleepingKernelEndsAtItsLimitToo) {
+  // No CPU used: the limit applies to the time asleep instead.
+  RunOptions opt = quick();
+  opt.time_limit_s = 0.3;
+  const auto start = std::chrono::steady_clock::now();
+  const KernelRun r = run_kernel(sleeps_forever, opt);
+  const double s = std::chrono::duration<double>(std::chrono::steady_clock::now() - start).count();
+  EXPECT_RUN(r, RunStatus::timeout, "asleep or blocked (no thread running or waiting for a core) for over 0.3 s");
+  EXPECT_GE(s, 0.3);
+  EXPECT_LT(s, 3.0);
+  std::printf("asleep: 0.3 s limit, call returned after %.3f s\n", s);
+}
+
+TEST(AttachIsolation, TheDefaultLimitGrowsWithTheProblem) {
+  RunOptions opt;
+  const Case small = testing::core_case({1, 2, 1, 3, 5, 4, 4}, MaskKind::none, 7);
+  EXPECT_NEAR(call_time_limit(small, opt), opt.time_limit_s, 1e-5);
+  Case big = small;
+  big.core.shape = {8, 32, 8, 256, 65536, 128, 128};  // 4.3e9 score elements × 256 multiply-adds
+  EXPECT_NEAR(call_time_limit(big, opt), 20.0 + 5e-9 * 8.0 * 32 * 256 * 65536 * 256, 1.0);
+  opt.seconds_per_work = 0;
+  EXPECT_EQ(call_time_limit(big, opt), opt.time_limit_s);
 }
 
 TEST(AttachIsolation, MemoryLimitEndsAGreedyKernel) {
@@ -291,6 +377,21 @@ TEST(AttachIsolation, TheChildDiesWithAKilledHeadroom) {
   ASSERT_TRUE(told) << "the kernel never started";
   EXPECT_TRUE(testing::ends_within(kernel_pid, 5.0)) << "isolated child " << kernel_pid << " outlived its parent";
   if (!testing::ends_within(kernel_pid, 0.0)) kill(kernel_pid, SIGKILL);  // a failing run leaves nothing either
+}
+
+TEST(AttachIsolation, CallsAreForkedByTheWorkerNotByHeadroom) {
+  // The worker was forked when the kernel was attached: however large this
+  // process grows afterwards, a call's fork copies only the worker.
+  int fds[2];
+  ASSERT_EQ(pipe(fds), 0);
+  g_pid_pipe = fds[1];
+  const KernelRun r = run_kernel(reports_parent);
+  char comm[32] = {};
+  ASSERT_EQ(read(fds[0], comm, sizeof comm), static_cast<ssize_t>(sizeof comm));
+  close(fds[0]);
+  close(fds[1]);
+  EXPECT_EQ(r.status, RunStatus::ok) << r.detail;
+  EXPECT_EQ(std::string(comm), "hr-worker\n");
 }
 
 TEST(AttachIsolation, DecliningAndForgettingAreNotFaults) {

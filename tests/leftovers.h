@@ -16,6 +16,7 @@
 #include <optional>
 #include <string>
 #include <thread>
+#include <vector>
 
 namespace headroom::testing {
 
@@ -46,6 +47,25 @@ inline bool ends_within(pid_t pid, double within_s) {
     std::this_thread::sleep_for(std::chrono::milliseconds(10));
   } while (std::chrono::steady_clock::now() < until);
   return false;
+}
+
+/// Returns: this process's children other than live isolation workers (named
+/// "hr-worker": one per attached library or bundled kernel, ended with it), as
+/// "PID COMM STATE"; a zombie is listed whatever its name.
+inline std::vector<std::string> children_besides_workers() {
+  std::vector<std::string> out;
+  for (const auto& task : std::filesystem::directory_iterator("/proc/self/task")) {
+    std::ifstream list(task.path() / "children");
+    long pid = 0;
+    while (list >> pid) {
+      std::ifstream stat("/proc/" + std::to_string(pid) + "/stat");
+      std::string pid_field, comm, state;
+      stat >> pid_field >> comm >> state;
+      if (comm == "(hr-worker)" && state != "Z") continue;
+      out.push_back(std::to_string(pid) + " " + comm + " " + state);
+    }
+  }
+  return out;
 }
 
 /// While alive, TMPDIR names a fresh folder of this process's own; the old value returns after.

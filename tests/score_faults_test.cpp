@@ -9,6 +9,7 @@
 
 #include "headroom/attach.h"
 #include "headroom/faults.h"
+#include "headroom/kernel_abi.h"
 #include "headroom/reference.h"
 
 namespace headroom {
@@ -315,6 +316,49 @@ TEST(Detectors, NeverWrittenElementsHaveTheirOwnMessage) {
   EXPECT_NE(f->detail.find("first at [0,0,1,1]"), std::string::npos) << f->detail;
   run.unwritten = 0;  // the same NaNs computed by the kernel: the usual message
   EXPECT_EQ(detect_non_finite(run, ref)->detail.find("never written"), std::string::npos);
+}
+
+// A kernel through the C ABI whose answer depends on how often it was called
+// in this process (a static call counter choosing a split count): each call
+// in a fresh process gives the same bits, two calls in one process do not.
+std::int32_t counts_its_calls(const hr_core_problem* p) {
+  static int calls = 0;
+  ++calls;
+  auto* o = static_cast<float*>(p->o.data);
+  const std::int64_t n = p->o.extents[0] * p->o.extents[1] * p->o.extents[2] * p->o.extents[3];
+  for (std::int64_t i = 0; i < n; ++i) o[i] = 0.25f;
+  o[0] = calls % 2 == 1 ? 0.25f : 0.25f + 0x1p-20f;  // "split 2" rounds differently
+  return HR_OK;
+}
+
+TEST(Detectors, StateKeptBetweenCallsIsNondeterministicUnderIsolation) {
+  hr_kernel abi{};
+  abi.abi_version = HEADROOM_ABI_VERSION;
+  abi.name = "counts_its_calls";
+  abi.description = "test kernel";
+  abi.level = HR_LEVEL_CORE;
+  abi.input_format = HR_FORMAT_FLOAT32;
+  abi.output_format = HR_FORMAT_FLOAT32;
+  abi.mask_kinds = HR_MASK_NONE;
+  abi.masked_row = HR_MASKED_ROW_ZEROS;
+  abi.layouts = HR_LAYOUT_BHTD;
+  abi.run_core = counts_its_calls;
+  auto k = attach_in_process(&abi);
+  const ReceivedCase rc = receive(core_case({1, 1, 1, 2, 3, 2, 2}, mask_of(MaskKind::none), 9), k->declaration());
+  RunOptions isolated;
+  const KernelRun first = k->run(rc, isolated);
+  ASSERT_EQ(first.status, RunStatus::ok) << first.detail;
+  // Every isolated call starts from the state of headroom's copy: a second
+  // lone call agrees bit for bit, so only calls made in one process show it.
+  const KernelRun alone = k->run(rc, isolated);
+  ASSERT_EQ(alone.status, RunStatus::ok);
+  EXPECT_EQ(alone.out.values, first.out.values);
+  int calls = 0;
+  const auto f = detect_nondeterminism(*k, rc, first, 3, isolated, &calls);
+  ASSERT_TRUE(f.has_value()) << "a call counter kept between calls went unseen";
+  EXPECT_EQ(f->kind, FaultClass::nondeterministic);
+  EXPECT_NE(f->detail.find("in run 3 (made in the same process right after run 2)"), std::string::npos) << f->detail;
+  EXPECT_EQ(calls, 2);
 }
 
 TEST(Detectors, NaNOnMaskedRowsDeclaredZerosIsConvention) {

@@ -7,6 +7,7 @@
 #include <utility>
 
 #include "attach/isolation.h"
+#include "attach/isolation_worker.h"
 #include "attach/packing.h"
 
 namespace headroom {
@@ -20,8 +21,34 @@ const char* run_status_name(RunStatus s) {
     case RunStatus::oob_write: return "oob_write";
     case RunStatus::timeout: return "timeout";
     case RunStatus::bad_output: return "bad_output";
+    case RunStatus::stray_process: return "stray_process";
   }
   return "?";
+}
+
+std::vector<KernelRun> AttachedKernel::run_repeated(const ReceivedCase& c, const RunOptions& opt, int times) {
+  std::vector<KernelRun> runs;
+  for (int i = 0; i < times; ++i) runs.push_back(run(c, opt));
+  return runs;
+}
+
+double call_time_limit(const Case& c, const RunOptions& opt) {
+  if (!(opt.seconds_per_work > 0)) return opt.time_limit_s;
+  double work = 0;
+  if (c.level == Level::core) {
+    const CoreShape& s = c.core.shape;
+    work = static_cast<double>(s.batch) * static_cast<double>(s.q_heads) * static_cast<double>(s.q_len) *
+           static_cast<double>(s.kv_len) * static_cast<double>(s.key_dim + s.value_dim);
+  } else {
+    const BlockShape& s = c.block.shape;
+    const double b = static_cast<double>(s.batch), dm = static_cast<double>(s.model_dim);
+    work = b * static_cast<double>(s.q_heads) * static_cast<double>(s.q_len) * static_cast<double>(s.kv_len) *
+               static_cast<double>(s.key_dim + s.value_dim) +
+           b * dm *
+               (static_cast<double>(s.q_len) * static_cast<double>(s.q_heads) * static_cast<double>(s.key_dim + s.value_dim) +
+                static_cast<double>(s.kv_len) * static_cast<double>(s.kv_heads) * static_cast<double>(s.key_dim + s.value_dim));
+  }
+  return opt.time_limit_s + opt.seconds_per_work * work;
 }
 
 namespace attach_detail {
@@ -57,15 +84,33 @@ KernelRun fault_run(const GuardedArena::Hit& hit, int write) {
   return r;
 }
 
-KernelRun classify(const CallOutcome& out, const PackedCall& p, const RunOptions& opt) {
+std::string timeout_text(const CallOutcome& out, const CallLimits& limits) {
+  char buf[256];
+  if (out.asleep) {
+    std::snprintf(buf, sizeof buf,
+                  "asleep or blocked (no thread running or waiting for a core) for over %.3g s, the time limit for "
+                  "this problem, having used %.3g CPU s (killed with SIGKILL)",
+                  limits.asleep_s, out.cpu_seconds);
+  } else {
+    std::snprintf(buf, sizeof buf,
+                  "over the CPU time limit of %.3g s for this problem (used %.3g CPU s in %.3g s; killed with SIGKILL)",
+                  limits.cpu_s, out.cpu_seconds, out.seconds);
+  }
+  return buf;
+}
+
+std::string strays_text(const CallOutcome& out) {
+  return "left " + std::to_string(out.strays) + " process(es) it started running after the call returned, the first \"" +
+         out.stray_name + "\" (killed)";
+}
+
+KernelRun classify(const CallOutcome& out, const PackedCall& p, const RunOptions& opt, const CallLimits& limits) {
   using How = CallOutcome::How;
   KernelRun r;
   switch (out.how) {
     case How::timeout: {
-      char buf[96];
-      std::snprintf(buf, sizeof buf, "over the time limit of %g s (killed with SIGKILL)", opt.time_limit_s);
       r.status = RunStatus::timeout;
-      r.detail = buf;
+      r.detail = timeout_text(out, limits);
       return r;
     }
     case How::signaled: {
@@ -116,6 +161,11 @@ KernelRun classify(const CallOutcome& out, const PackedCall& p, const RunOptions
     r.detail = "the kernel returned " + std::to_string(out.rc) + ", neither HR_OK (0) nor HR_UNSUPPORTED (1)";
     return r;
   }
+  if (out.strays > 0) {
+    r.status = RunStatus::stray_process;
+    r.detail = strays_text(out);
+    return r;
+  }
   r.out = unpack_output(p);
   r.lse = unpack_lse(p);
   r.unwritten = count_unwritten(p, &r.first_unwritten);
@@ -129,28 +179,82 @@ class AbiKernel final : public AttachedKernel {
     // Copied now: a plug-in's run pointers are read once, like its declaration.
     run_core_ = k->run_core;
     run_block_ = k->run_block;
+    // Now, while headroom is small: the worker's copy of it stays that size.
+    worker_.start();
   }
 
   const KernelDeclaration& declaration() const override { return declaration_; }
 
-  KernelRun run(const ReceivedCase& c, const RunOptions& opt) override {
-    PackedCall p = pack(c, declaration_);
-    std::function<int()> call = [this, &p]() -> int {
-      return p.level == Level::core ? run_core_(&p.core) : run_block_(&p.block);
-    };
-    CallOutcome out;
-    if (opt.isolate) {
-      p.arena.protect();
-      out = call_isolated(call, opt.time_limit_s, opt.memory_limit_bytes);
-    } else {
-      out = call_in_process(call);
-    }
-    return classify(out, p, opt);
+  KernelRun run(const ReceivedCase& c, const RunOptions& opt) override { return calls(c, opt, 1).front(); }
+
+  std::vector<KernelRun> run_repeated(const ReceivedCase& c, const RunOptions& opt, int times) override {
+    return calls(c, opt, times);
   }
 
  private:
+  int call_one(const PackedCall& p) const { return p.level == Level::core ? run_core_(&p.core) : run_block_(&p.block); }
+
+  // `times` calls on `c`, each with buffers of its own, in one process.
+  std::vector<KernelRun> calls(const ReceivedCase& c, const RunOptions& opt, int times) {
+    if (times < 1 || times > kMaxCallsPerChild) throw std::invalid_argument("run_repeated: 1 to 4 calls");
+    std::vector<PackedCall> packs;
+    for (int i = 0; i < times; ++i) packs.push_back(pack(c, declaration_));
+    std::vector<KernelRun> runs;
+    if (!opt.isolate) {
+      for (const PackedCall& p : packs) runs.push_back(classify(call_in_process([&] { return call_one(p); }), p, opt, {}));
+      return runs;
+    }
+    const double cpu = call_time_limit(c.received, opt);
+    const CallLimits limits{cpu, cpu, opt.memory_limit_bytes};
+    std::optional<CallOutcome> out = by_worker(packs, limits);
+    if (!out) {
+      for (PackedCall& p : packs) p.arena.protect();
+      out = call_isolated([&](int i) { return call_one(packs[static_cast<std::size_t>(i)]); }, times, limits);
+    }
+    // Calls that returned, then the one that ended the child (if any).
+    for (int i = 0; i < times; ++i) {
+      CallOutcome one = *out;
+      const bool returned = i < out->calls_returned;
+      if (returned) {
+        one.how = CallOutcome::How::returned;
+        one.rc = out->rcs[i];
+        if (i + 1 < times || out->how != CallOutcome::How::returned) one.strays = 0;  // counted once, at the end
+      }
+      runs.push_back(classify(one, packs[static_cast<std::size_t>(i)], opt, limits));
+      if (!returned) break;
+    }
+    return runs;
+  }
+
+  // The calls made by the isolation worker; nothing when it cannot make them.
+  std::optional<CallOutcome> by_worker(std::vector<PackedCall>& packs, const CallLimits& limits) {
+    std::vector<WorkerCall> calls;
+    for (const PackedCall& p : packs) {
+      if (p.arena.fd() < 0) return std::nullopt;
+      if (p.level == Level::core) {
+        calls.push_back({&p.arena, core_thunk, reinterpret_cast<std::uintptr_t>(run_core_), &p.core, sizeof p.core});
+      } else {
+        calls.push_back({&p.arena, block_thunk, reinterpret_cast<std::uintptr_t>(run_block_), &p.block, sizeof p.block});
+      }
+    }
+    auto out = worker_.run(calls, limits);
+    if (out) {
+      for (PackedCall& p : packs) p.arena.mark_protected_elsewhere();
+    }
+    return out;
+  }
+
+  static std::int32_t core_thunk(std::uintptr_t fn, const void* problem) {
+    return reinterpret_cast<std::int32_t (*)(const hr_core_problem*)>(fn)(static_cast<const hr_core_problem*>(problem));
+  }
+  static std::int32_t block_thunk(std::uintptr_t fn, const void* problem) {
+    return reinterpret_cast<std::int32_t (*)(const hr_block_problem*)>(fn)(static_cast<const hr_block_problem*>(problem));
+  }
+  static_assert(sizeof(hr_core_problem) <= kMaxProblemBytes && sizeof(hr_block_problem) <= kMaxProblemBytes);
+
   KernelDeclaration declaration_;
   std::shared_ptr<void> keep_alive_;
+  IsolationWorker worker_;
   std::int32_t (*run_core_)(const hr_core_problem*) = nullptr;
   std::int32_t (*run_block_)(const hr_block_problem*) = nullptr;
 };

@@ -4,6 +4,8 @@
 #include <sys/mman.h>
 #include <unistd.h>
 
+#include "attach/arena_space.h"
+
 #include <cerrno>
 #include <cstring>
 #include <stdexcept>
@@ -32,11 +34,27 @@ std::size_t first_damaged(const unsigned char* p, std::size_t n, std::size_t slo
 
 std::size_t round_up(std::size_t n, std::size_t page) { return (n + page - 1) / page * page; }
 
+// Returns: the buffers mapped from a fresh memfd at a block of the arena space, or nullptr.
+unsigned char* map_in_space(std::size_t size, int& fd) {
+  const auto block = take_space(size);
+  if (!block) return nullptr;
+  fd = memfd_create("headroom-kernel-buffers", MFD_CLOEXEC);
+  if (fd >= 0 && ftruncate(fd, static_cast<off_t>(size)) == 0) {
+    void* p = mmap(block->base, size, PROT_READ | PROT_WRITE, MAP_SHARED | MAP_FIXED, fd, 0);
+    if (p != MAP_FAILED) return static_cast<unsigned char*>(p);
+  }
+  if (fd >= 0) close(fd);
+  fd = -1;
+  return_space(*block);
+  return nullptr;
+}
+
 }  // namespace
 
 GuardedArena::GuardedArena(GuardedArena&& other) noexcept
     : slots_(std::move(other.slots_)), base_(std::exchange(other.base_, nullptr)),
-      size_(std::exchange(other.size_, 0)), page_(other.page_), protected_(other.protected_) {}
+      size_(std::exchange(other.size_, 0)), page_(other.page_), protected_(other.protected_),
+      fd_(std::exchange(other.fd_, -1)) {}
 
 GuardedArena& GuardedArena::operator=(GuardedArena&& other) noexcept {
   if (this != &other) {
@@ -46,6 +64,7 @@ GuardedArena& GuardedArena::operator=(GuardedArena&& other) noexcept {
     size_ = std::exchange(other.size_, 0);
     page_ = other.page_;
     protected_ = other.protected_;
+    fd_ = std::exchange(other.fd_, -1);
   }
   return *this;
 }
@@ -53,10 +72,19 @@ GuardedArena& GuardedArena::operator=(GuardedArena&& other) noexcept {
 GuardedArena::~GuardedArena() { release(); }
 
 void GuardedArena::release() {
-  if (base_ != nullptr) munmap(base_, size_);
+  if (base_ != nullptr && fd_ >= 0) {
+    // Back to a PROT_NONE reservation, so the block stays part of the arena space.
+    void* p = mmap(base_, size_, PROT_NONE, MAP_PRIVATE | MAP_ANONYMOUS | MAP_FIXED | MAP_NORESERVE, -1, 0);
+    if (p != MAP_FAILED) return_space({base_, size_});
+    close(fd_);
+  } else if (base_ != nullptr) {
+    munmap(base_, size_);
+  }
   base_ = nullptr;
   size_ = 0;
+  fd_ = -1;
 }
+
 
 std::size_t GuardedArena::add(std::string name, Role role, std::size_t bytes) {
   if (base_ != nullptr) throw std::logic_error("GuardedArena::add after allocate");
@@ -77,12 +105,15 @@ void GuardedArena::allocate() {
     offset = s.guard_offset + page_;
   }
   size_ = offset;
-  void* p = mmap(nullptr, size_, PROT_READ | PROT_WRITE, MAP_SHARED | MAP_ANONYMOUS, -1, 0);
-  if (p == MAP_FAILED) {
-    size_ = 0;
-    throw std::runtime_error(std::string("cannot map kernel buffers: ") + std::strerror(errno));
+  base_ = map_in_space(size_, fd_);
+  if (base_ == nullptr) {
+    void* p = mmap(nullptr, size_, PROT_READ | PROT_WRITE, MAP_SHARED | MAP_ANONYMOUS, -1, 0);
+    if (p == MAP_FAILED) {
+      size_ = 0;
+      throw std::runtime_error(std::string("cannot map kernel buffers: ") + std::strerror(errno));
+    }
+    base_ = static_cast<unsigned char*>(p);
   }
-  base_ = static_cast<unsigned char*>(p);
   for (std::size_t i = 0; i < slots_.size(); ++i) {
     const Slot& s = slots_[i];
     if (s.role == Role::output) {
@@ -93,12 +124,19 @@ void GuardedArena::allocate() {
   }
 }
 
-void GuardedArena::protect() {
+std::vector<GuardedArena::Protection> GuardedArena::protections() const {
+  std::vector<Protection> out;
   for (const Slot& s : slots_) {
-    if (mprotect(base_ + s.guard_offset, page_, PROT_NONE) != 0 ||
-        (s.role == Role::input && mprotect(base_ + s.region_offset, s.guard_offset - s.region_offset, PROT_READ) != 0)) {
+    out.push_back({s.guard_offset, page_, PROT_NONE});
+    if (s.role == Role::input) out.push_back({s.region_offset, s.guard_offset - s.region_offset, PROT_READ});
+  }
+  return out;
+}
+
+void GuardedArena::protect() {
+  for (const Protection& p : protections()) {
+    if (mprotect(base_ + p.offset, p.length, p.prot) != 0)
       throw std::runtime_error(std::string("cannot protect kernel buffers: ") + std::strerror(errno));
-    }
   }
   protected_ = true;
 }

@@ -7,6 +7,10 @@
 //   input:  [slack][data .............][guard page]     data ends where the guard begins
 //   output: [slack][canary|data|canary][guard page]     the trailing canary ends there
 //
+// The mapping is a memfd placed in the reserved arena space (arena_space.h)
+// when there is room, so an isolation worker's child can map the same buffers
+// at the same addresses (fd(), protections()); else plain MAP_SHARED memory.
+//
 // A read of one element past an input's end touches its guard page; a write
 // one element past an output's end damages its canary (or, for a long stride,
 // reaches the guard page). The start of a buffer is aligned to the element
@@ -51,6 +55,23 @@ class GuardedArena {
   /// Throws std::runtime_error when mprotect fails.
   void protect();
 
+  /// One mprotect that protect() makes: bytes [offset, offset + length) of the mapping.
+  struct Protection {
+    std::size_t offset;
+    std::size_t length;
+    int prot;  ///< PROT_NONE or PROT_READ
+  };
+  /// Returns: what protect() applies, for a process that maps the buffers itself.
+  std::vector<Protection> protections() const;
+  /// Records that another process applied protections() to its own mapping of
+  /// these buffers (damage() and locate() then read guard hits as protect() does).
+  void mark_protected_elsewhere() { protected_ = true; }
+
+  /// Returns: the memfd behind the mapping, or −1 when it is not in the arena space.
+  int fd() const { return fd_; }
+  unsigned char* base() const { return base_; }
+  std::size_t size() const { return size_; }
+
   /// Returns: the first damaged canary (or, when not protected, guard page)
   /// described as "<byte count> past the end of output o", or nothing.
   std::optional<std::string> damage() const;
@@ -80,6 +101,7 @@ class GuardedArena {
   std::size_t size_ = 0;
   std::size_t page_ = 0;
   bool protected_ = false;
+  int fd_ = -1;  ///< ≥ 0: a memfd mapped at a block of the arena space
 };
 
 }  // namespace headroom::attach_detail

@@ -56,12 +56,18 @@ enum class RunStatus : unsigned char {
   oob_read,     ///< touched the guard page after an input
   oob_write,    ///< damaged a canary around an output
   timeout,      ///< over the time limit
-  bad_output    ///< external program: missing / malformed / mis-shaped output
+  bad_output,   ///< external program: missing / malformed / mis-shaped output
+  stray_process ///< the call returned but left a process it started running
 };
 /// Returns: the fault class name used in JSON ("ok", "unsupported", "crash", "oob_read", ...).
 const char* run_status_name(RunStatus s);
 
-/// Isolation (isolate = true): the call runs in a forked child. Every input
+/// Isolation (isolate = true): the call runs in a child process, forked by a
+/// small worker process started when the kernel was attached (so a call costs
+/// the same however much headroom holds), or by headroom itself when the
+/// worker cannot be used. The child leads its own process group and reaps
+/// what the kernel starts: a process still running when the call returns is
+/// killed and reported (stray_process). Every input
 /// buffer ends exactly where a PROT_NONE guard page begins (so one element
 /// read past the end faults; the start is aligned only to the element size)
 /// and is read-only; every output has 64 canary bytes before and after it
@@ -69,6 +75,13 @@ const char* run_status_name(RunStatus s);
 /// pattern, so an element left unwritten reads as NaN. The child has no core
 /// dumps, its stdout goes to stderr (headroom's stdout stays headroom's), and
 /// RLIMIT_AS = its address space at fork + memory_limit_bytes.
+/// Time (isolated calls): the limit (call_time_limit: time_limit_s plus a
+/// share that grows with the problem) bounds the CPU time of the child, all
+/// its threads, and separately the wall time in which none of its threads is
+/// running or waiting for a core (asleep, blocked on I/O or a device): waiting
+/// for a core on a busy machine counts against neither, so a sound kernel is
+/// not timed out by load, while a hanging kernel, spinning or asleep, ends
+/// about one limit after it started. Every timeout names the limit it broke.
 /// In-process (isolate = false): same buffers, guard pages left accessible
 /// and checked like canaries afterwards; no time or memory limit, and a
 /// kernel that crashes or calls exit() ends headroom with it (for speed on
@@ -78,8 +91,10 @@ const char* run_status_name(RunStatus s);
 /// reserve terabytes they never touch); isolate is moot for them.
 struct RunOptions {
   bool isolate = true;          ///< run in a child process (guard pages, canaries, limits)
-  double time_limit_s = 20.0;   ///< wall clock, seconds; the child is SIGKILLed past it
+  double time_limit_s = 20.0;   ///< seconds for a small problem (CPU, and asleep); the child is SIGKILLed
+                                ///< past call_time_limit (external programs: wall clock, unscaled)
   std::uint64_t memory_limit_bytes = std::uint64_t{4} << 30;  ///< address space the call may add
+  double seconds_per_work = 5e-9;  ///< CPU seconds added per multiply-add of the problem (0: none)
 };
 
 struct KernelRun {
@@ -101,7 +116,19 @@ class AttachedKernel {
   /// Preconditions: `c` = receive(case, declaration()); throws
   /// std::invalid_argument otherwise (a caller's mistake, not the kernel's).
   virtual KernelRun run(const ReceivedCase& c, const RunOptions& opt) = 0;
+  /// Returns: the outcomes of `times` (1 … 4) calls on `c` made one after
+  /// another in one process (isolated: one child), so that state a kernel
+  /// keeps between calls shows; fewer when a call ended that process (the last
+  /// one says how). This default makes `times` separate calls of run().
+  virtual std::vector<KernelRun> run_repeated(const ReceivedCase& c, const RunOptions& opt, int times);
 };
+
+/// Returns: the CPU-time limit of one isolated call on `c`, in seconds:
+/// opt.time_limit_s + opt.seconds_per_work × the multiply-adds of the problem
+/// (core: score elements B·Hq·Tq·Tk × (Dk + Dv); block: those plus the four
+/// projections). The default 5e-9 s allows a kernel 0.2 G multiply-adds per
+/// second, far below any vectorised or even scalar float loop.
+double call_time_limit(const Case& c, const RunOptions& opt);
 
 /// Returns: a kernel from the in-process table `k` (a bundled kernel).
 std::unique_ptr<AttachedKernel> attach_in_process(const hr_kernel* k);

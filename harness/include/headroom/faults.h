@@ -11,6 +11,7 @@
 //                     opposite to the declared one
 //   nondeterministic  two identical runs differ in any bit
 //   crash, timeout    from RunStatus
+//   stray_process     the call returned but left a process it started running (RunStatus)
 // RunStatus unsupported and bad_output are not faults of the numerics: they are
 // counted separately (CaseFaults::unsupported_runs, bad_output_runs).
 #pragma once
@@ -35,12 +36,14 @@ enum class FaultClass : unsigned char {
   nondeterministic,
   crash,
   timeout,
+  stray_process,
 };
 
 /// Every fault class, in the order above.
 inline constexpr FaultClass kAllFaultClasses[] = {
     FaultClass::non_finite, FaultClass::mask_leak,        FaultClass::oob_read, FaultClass::oob_write,
     FaultClass::convention, FaultClass::nondeterministic, FaultClass::crash,    FaultClass::timeout,
+    FaultClass::stray_process,
 };
 
 /// Returns: the JSON name ("non_finite", "mask_leak", ...).
@@ -48,7 +51,7 @@ std::string_view fault_class_name(FaultClass c);
 /// Returns: the class of a JSON name, or nothing.
 std::optional<FaultClass> parse_fault_class(std::string_view name);
 /// Returns: the fault class of an isolation outcome (crash, oob_read,
-/// oob_write, timeout), or nothing for ok, unsupported and bad_output.
+/// oob_write, timeout, stray_process), or nothing for ok, unsupported and bad_output.
 std::optional<FaultClass> fault_of(RunStatus s);
 
 struct Fault {
@@ -131,7 +134,9 @@ std::optional<Fault> detect_mask_leak(AttachedKernel& kernel, const ReceivedCase
 
 /// Returns: a nondeterministic fault when one of `runs − 1` further identical
 /// runs differs from `baseline` in any bit of out or lse (NaN payloads and the
-/// sign of zero included), or ends with another status.
+/// sign of zero included), or ends with another status. The further runs (up
+/// to 4) are made one after another in one process (run_repeated), so state a
+/// kernel keeps between calls (a call counter choosing a split) shows too.
 std::optional<Fault> detect_nondeterminism(AttachedKernel& kernel, const ReceivedCase& c, const KernelRun& baseline,
                                            int runs, const RunOptions& opt, int* calls = nullptr);
 
