@@ -273,8 +273,10 @@ TEST(AttachIsolation, HangIsKilledAtTheTimeLimit) {
   const KernelRun r = run_kernel(hangs, opt);
   const double s = std::chrono::duration<double>(std::chrono::steady_clock::now() - start).count();
   EXPECT_RUN(r, RunStatus::timeout, "CPU time limit of 0.3 s");
+  // Ended within a tenth of a CPU second of its limit; the wall time that
+  // took depends on how loaded the machine is (not bounded here).
+  EXPECT_TRUE(contains(r.detail, "(used 0.3")) << r.detail;
   EXPECT_GE(s, 0.3);
-  EXPECT_LT(s, 3.0);
   std::printf("timeout: 0.3 s limit, call returned after %.3f s\n", s);
 }
 
