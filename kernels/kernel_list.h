@@ -17,6 +17,17 @@ extern const hr_kernel bf16_f32acc;
 extern const hr_kernel i8_tokenwise;
 extern const hr_kernel block_f32;
 extern const hr_kernel gqa_f32;
+// Backward kernels (kernels/f32_backward_tiled.cpp): judged by the score stage
+// (gradient_scores.h), not yet listed in the table qualify walks.
+extern const hr_kernel f32_backward_tiled;
+extern const hr_kernel f16_backward_f32acc;
+// Flawed backward specimens, one defect each (same file; docs/backward.md).
+extern const hr_kernel backward_d_dropped;
+extern const hr_kernel backward_no_scale;
+extern const hr_kernel backward_group_not_summed;
+extern const hr_kernel backward_p_from_row_max;
+extern const hr_kernel backward_racy_dk;
+extern const hr_kernel backward_masked_keys;
 
 // Flawed specimens (kernels/flawed/*.cpp), one deliberate defect each.
 extern const hr_kernel no_max_shift;

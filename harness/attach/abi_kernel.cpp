@@ -51,6 +51,14 @@ double call_time_limit(const Case& c, const RunOptions& opt) {
   return opt.time_limit_s + opt.seconds_per_work * work;
 }
 
+double backward_call_time_limit(const Case& c, const RunOptions& opt) {
+  if (!(opt.seconds_per_work > 0) || c.level != Level::core) return opt.time_limit_s;
+  const CoreShape& s = c.core.shape;
+  const double work = static_cast<double>(s.batch) * static_cast<double>(s.q_heads) * static_cast<double>(s.q_len) *
+                      static_cast<double>(s.kv_len) * static_cast<double>(3 * s.key_dim + 2 * s.value_dim);
+  return opt.time_limit_s + opt.seconds_per_work * work;
+}
+
 namespace attach_detail {
 namespace {
 
@@ -104,7 +112,8 @@ std::string strays_text(const CallOutcome& out) {
          out.stray_name + "\" (killed)";
 }
 
-KernelRun classify(const CallOutcome& out, const PackedCall& p, const RunOptions& opt, const CallLimits& limits) {
+// The call's status and detail; its outputs are the caller's to unpack when ok.
+KernelRun classify(const CallOutcome& out, const GuardedArena& arena, const RunOptions& opt, const CallLimits& limits) {
   using How = CallOutcome::How;
   KernelRun r;
   switch (out.how) {
@@ -115,7 +124,7 @@ KernelRun classify(const CallOutcome& out, const PackedCall& p, const RunOptions
     }
     case How::signaled: {
       if (out.fault_recorded) {
-        if (auto hit = p.arena.locate(out.fault_addr)) return fault_run(*hit, out.fault_write);
+        if (auto hit = arena.locate(out.fault_addr)) return fault_run(*hit, out.fault_write);
       }
       r.status = RunStatus::crash;
       r.detail = "killed by " + signal_text(out.signo);
@@ -146,7 +155,7 @@ KernelRun classify(const CallOutcome& out, const PackedCall& p, const RunOptions
       return r;
     case How::returned: break;
   }
-  if (auto damage = p.arena.damage()) {
+  if (auto damage = arena.damage()) {
     r.status = RunStatus::oob_write;
     r.detail = *damage;
     return r;
@@ -166,6 +175,13 @@ KernelRun classify(const CallOutcome& out, const PackedCall& p, const RunOptions
     r.detail = strays_text(out);
     return r;
   }
+  return r;
+}
+
+// A forward call classified, its outputs unpacked when it returned ok.
+KernelRun forward_run(const CallOutcome& out, const PackedCall& p, const RunOptions& opt, const CallLimits& limits) {
+  KernelRun r = classify(out, p.arena, opt, limits);
+  if (r.status != RunStatus::ok) return r;
   r.out = unpack_output(p);
   r.lse = unpack_lse(p);
   r.unwritten = count_unwritten(p, &r.first_unwritten);
@@ -179,6 +195,7 @@ class AbiKernel final : public AttachedKernel {
     // Copied now: a plug-in's run pointers are read once, like its declaration.
     run_core_ = k->run_core;
     run_block_ = k->run_block;
+    if (k->abi_version >= 2) run_backward_ = k->run_backward;  // a version-1 declaration ends before it
     // Now, while headroom is small: the worker's copy of it stays that size.
     worker_.start();
   }
@@ -191,6 +208,38 @@ class AbiKernel final : public AttachedKernel {
     return calls(c, opt, times);
   }
 
+  BackwardRun run_backward(const ReceivedCase& c, const Tensor& o, const Tensor& lse, const RunOptions& opt) override {
+    if (run_backward_ == nullptr)
+      throw std::invalid_argument("kernel \"" + declaration_.name + "\" has no backward entry");
+    PackedBackward p = pack_backward(c, declaration_, o, lse);
+    CallOutcome out;
+    CallLimits limits;
+    if (!opt.isolate) {
+      out = call_in_process([&] { return run_backward_(&p.problem); });
+    } else {
+      const double cpu = backward_call_time_limit(c.received, opt);
+      limits = CallLimits{cpu, cpu, opt.memory_limit_bytes};
+      std::optional<CallOutcome> by = std::nullopt;
+      if (p.arena.fd() >= 0) {
+        const WorkerCall call{&p.arena, backward_thunk, reinterpret_cast<std::uintptr_t>(run_backward_), &p.problem,
+                              sizeof p.problem};
+        by = worker_.run({call}, limits);
+        if (by) p.arena.mark_protected_elsewhere();
+      }
+      if (!by) {
+        p.arena.protect();
+        by = call_isolated([&](int) { return run_backward_(&p.problem); }, 1, limits);
+      }
+      out = *by;
+    }
+    const KernelRun k = classify(out, p.arena, opt, limits);
+    BackwardRun r;
+    r.status = k.status;
+    r.detail = k.detail;
+    if (r.status == RunStatus::ok) unpack_gradients(p, r);
+    return r;
+  }
+
  private:
   int call_one(const PackedCall& p) const { return p.level == Level::core ? run_core_(&p.core) : run_block_(&p.block); }
 
@@ -201,7 +250,7 @@ class AbiKernel final : public AttachedKernel {
     for (int i = 0; i < times; ++i) packs.push_back(pack(c, declaration_));
     std::vector<KernelRun> runs;
     if (!opt.isolate) {
-      for (const PackedCall& p : packs) runs.push_back(classify(call_in_process([&] { return call_one(p); }), p, opt, {}));
+      for (const PackedCall& p : packs) runs.push_back(forward_run(call_in_process([&] { return call_one(p); }), p, opt, {}));
       return runs;
     }
     const double cpu = call_time_limit(c.received, opt);
@@ -220,7 +269,7 @@ class AbiKernel final : public AttachedKernel {
         one.rc = out->rcs[i];
         if (i + 1 < times || out->how != CallOutcome::How::returned) one.strays = 0;  // counted once, at the end
       }
-      runs.push_back(classify(one, packs[static_cast<std::size_t>(i)], opt, limits));
+      runs.push_back(forward_run(one, packs[static_cast<std::size_t>(i)], opt, limits));
       if (!returned) break;
     }
     return runs;
@@ -250,13 +299,19 @@ class AbiKernel final : public AttachedKernel {
   static std::int32_t block_thunk(std::uintptr_t fn, const void* problem) {
     return reinterpret_cast<std::int32_t (*)(const hr_block_problem*)>(fn)(static_cast<const hr_block_problem*>(problem));
   }
-  static_assert(sizeof(hr_core_problem) <= kMaxProblemBytes && sizeof(hr_block_problem) <= kMaxProblemBytes);
+  static std::int32_t backward_thunk(std::uintptr_t fn, const void* problem) {
+    return reinterpret_cast<std::int32_t (*)(const hr_backward_problem*)>(fn)(
+        static_cast<const hr_backward_problem*>(problem));
+  }
+  static_assert(sizeof(hr_core_problem) <= kMaxProblemBytes && sizeof(hr_block_problem) <= kMaxProblemBytes &&
+                sizeof(hr_backward_problem) <= kMaxProblemBytes);
 
   KernelDeclaration declaration_;
   std::shared_ptr<void> keep_alive_;
   IsolationWorker worker_;
   std::int32_t (*run_core_)(const hr_core_problem*) = nullptr;
   std::int32_t (*run_block_)(const hr_block_problem*) = nullptr;
+  std::int32_t (*run_backward_)(const hr_backward_problem*) = nullptr;
 };
 
 }  // namespace
@@ -268,6 +323,10 @@ std::unique_ptr<AttachedKernel> make_abi_kernel(const hr_kernel* k, const std::s
 }
 
 }  // namespace attach_detail
+
+BackwardRun AttachedKernel::run_backward(const ReceivedCase&, const Tensor&, const Tensor&, const RunOptions&) {
+  throw std::invalid_argument("kernel \"" + declaration().name + "\" has no backward entry");
+}
 
 std::unique_ptr<AttachedKernel> attach_in_process(const hr_kernel* k) {
   return attach_detail::make_abi_kernel(k, "bundled kernel table", nullptr);

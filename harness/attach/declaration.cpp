@@ -126,8 +126,6 @@ void refuse_unjudged(const hr_kernel* k, const std::string& kernel, const std::s
       {"p_scale", k->p_scale != 0.0f, "probabilities rounded to 8 bits"},
       {"features", (k->features & ~kJudgedFeatures) != 0, "paged, packed, split, soft-capped and sink attention"},
       {"split_kv_len", k->split_kv_len != 0, "split-KV partial results"},
-      {"run_backward", k->run_backward != nullptr, "backward kernels"},
-      {"backward_flags", k->backward_flags != 0, "backward kernels"},
   };
   for (const Field& f : fields) {
     if (!f.set) continue;
@@ -135,6 +133,25 @@ void refuse_unjudged(const hr_kernel* k, const std::string& kernel, const std::s
            std::string(f.what) + " are not judged by this headroom yet",
            std::string("leave ") + f.name + " at zero (NULL for a pointer): a version-2 field is neutral at zero");
   }
+}
+
+// The backward entry: known flag bits, flags only with an entry, core level
+// with float inputs (the backward reference's domain).
+void check_backward_fields(const KernelDeclaration& d, const std::string& origin) {
+  constexpr std::uint32_t known = HR_BACKWARD_RECOMPUTES | HR_BACKWARD_NONDETERMINISTIC | HR_BACKWARD_BIAS_GRAD;
+  const std::string kernel = "kernel \"" + d.name + "\"";
+  if ((d.backward_flags & ~known) != 0)
+    refuse(origin, "field \"backward_flags\" of " + kernel, "holds bits outside HR_BACKWARD_*",
+           "combine HR_BACKWARD_RECOMPUTES, HR_BACKWARD_NONDETERMINISTIC and HR_BACKWARD_BIAS_GRAD only");
+  if (!d.backward && d.backward_flags != 0)
+    refuse(origin, "field \"backward_flags\" of " + kernel, "is set but the kernel has no run_backward",
+           "point run_backward at the backward entry, or leave backward_flags 0");
+  if (d.backward && d.level != Level::core)
+    refuse(origin, "field \"run_backward\" of " + kernel, "a backward entry is judged for core kernels only",
+           "set run_backward to NULL on a block kernel");
+  if (d.backward && d.input_format == Format::int8)
+    refuse(origin, "field \"run_backward\" of " + kernel, "a backward entry with int8 inputs is not judged",
+           "declare a float input format for a backward kernel, or set run_backward to NULL");
 }
 
 }  // namespace
@@ -167,6 +184,7 @@ bool KernelDeclaration::accepts(const Mask& m) const {
 }
 
 void check_declaration(const KernelDeclaration& d, const std::string& origin) {
+  check_backward_fields(d, origin);
   if (d.name.empty() || d.name.size() > kMaxNameLength) {
     refuse(origin, "field \"name\"", "the name is empty or longer than 64 characters",
            "give the kernel a short unique name of [a-z0-9_.-]");
@@ -332,6 +350,8 @@ KernelDeclaration declaration_of(const hr_kernel* k, const std::string& origin) 
     d.max_batch = k->max_batch;
     refuse_unjudged(k, kernel, origin);
     d.features = k->features;
+    d.backward = k->run_backward != nullptr;
+    d.backward_flags = k->backward_flags;
   }
   check_declaration(d, origin);
   if (d.level == Level::core && k->run_core == nullptr) {
@@ -373,6 +393,12 @@ std::string declaration_summary(const KernelDeclaration& d) {
   if (d.max_q_len > 0) s += " max_q_len=" + std::to_string(d.max_q_len);
   if (d.max_batch > 0) s += " max_batch=" + std::to_string(d.max_batch);
   if (d.features & HR_FEATURE_WINDOW) s += " window=yes";
+  if (d.backward) {
+    s += " backward=yes";
+    if (d.backward_flags & HR_BACKWARD_RECOMPUTES) s += ",recomputes";
+    if (d.backward_flags & HR_BACKWARD_NONDETERMINISTIC) s += ",nondeterministic";
+    if (d.backward_flags & HR_BACKWARD_BIAS_GRAD) s += ",bias_grad";
+  }
   return s;
 }
 

@@ -322,6 +322,103 @@ std::int64_t count_unwritten(const PackedCall& p, std::int64_t* first) {
   return count;
 }
 
+PackedBackward pack_backward(const ReceivedCase& c, const KernelDeclaration& d, const Tensor& o, const Tensor& lse) {
+  check_received(c, d);
+  const CoreShape& s = c.received.core.shape;
+  const auto fail = [&](const std::string& why) {
+    throw std::invalid_argument("backward of kernel \"" + d.name + "\" on case \"" + c.received.name + "\": " + why);
+  };
+  if (!d.backward) fail("the kernel has no backward entry");
+  if (d.level != Level::core) fail("backward calls are core level");
+  if (c.received.d_o.shape != std::vector<std::int64_t>{s.batch, s.q_heads, s.q_len, s.value_dim})
+    fail("the case carries no dO of shape [B, Hq, Tq, Dv]");
+  if (o.shape != c.received.d_o.shape) fail("O is not shaped [B, Hq, Tq, Dv]");
+  if (lse.shape != std::vector<std::int64_t>{s.batch, s.q_heads, s.q_len}) fail("lse is not shaped [B, Hq, Tq]");
+  PackedBackward p;
+  p.output_format = d.output_format;
+  const CoreInputs& in = c.received.core_inputs;
+  const bool bthd = (d.layouts & HR_LAYOUT_BHTD) == 0;
+  const Format f = d.input_format;
+  const std::int64_t qe[4] = {s.batch, s.q_heads, s.q_len, s.key_dim};
+  const std::int64_t ke[4] = {s.batch, s.kv_heads, s.kv_len, s.key_dim};
+  const std::int64_t ve[4] = {s.batch, s.kv_heads, s.kv_len, s.value_dim};
+  const std::int64_t oe[4] = {s.batch, s.q_heads, s.q_len, s.value_dim};
+  InputPlan q = plan_input(p.arena, "q", &in.q, nullptr, qe, bthd, f);
+  InputPlan k = plan_input(p.arena, "k", &in.k, nullptr, ke, bthd, f);
+  InputPlan v = plan_input(p.arena, "v", &in.v, nullptr, ve, bthd, f);
+  InputPlan op = plan_input(p.arena, "o", &o, nullptr, oe, bthd, d.output_format);
+  InputPlan dop = plan_input(p.arena, "d_o", &c.received.d_o, nullptr, oe, bthd, f);
+  const std::size_t lse_slot = p.arena.add("lse", Role::input, lse.values.size() * sizeof(float));
+  MaskPlan mask = plan_mask(p.arena, c.received.core.mask, s);
+  const char* names[3] = {"d_q", "d_k", "d_v"};
+  const std::int64_t* extents[3] = {qe, ke, ve};
+  for (int g = 0; g < 3; ++g) {
+    std::memcpy(p.grad_extents[g], extents[g], sizeof p.grad_extents[g]);
+    set_strides(p.grad_extents[g], bthd, p.grad_strides[g]);
+    p.grad_slot[g] = p.arena.add(names[g], Role::output, count(extents[g]) * item_size(d.output_format));
+  }
+  const Mask& m = c.received.core.mask;
+  if ((d.backward_flags & HR_BACKWARD_BIAS_GRAD) != 0 && m.kind == MaskKind::bias) {
+    p.bias_shape = m.bias.shape;
+    p.bias_slot = p.arena.add("d_bias", Role::output, m.bias.values.size() * sizeof(float));
+  }
+  p.arena.allocate();
+  hr_backward_problem& bp = p.problem;
+  hr_core_problem& cp = bp.forward;
+  cp.batch = s.batch, cp.q_heads = s.q_heads, cp.kv_heads = s.kv_heads;
+  cp.q_len = s.q_len, cp.kv_len = s.kv_len, cp.key_dim = s.key_dim, cp.value_dim = s.value_dim;
+  cp.scale = c.received.core.scale;
+  cp.mask = fill_mask(p.arena, mask);
+  cp.q = fill_input(p.arena, q, f);
+  cp.k = fill_input(p.arena, k, f);
+  cp.v = fill_input(p.arena, v, f);
+  cp.window_left = -1;
+  cp.window_right = -1;
+  if (c.received.core.mask.has_window()) {
+    cp.features |= HR_FEATURE_WINDOW;
+    cp.window_left = c.received.core.mask.window_left;
+    cp.window_right = c.received.core.mask.window_right;
+  }
+  bp.o = fill_input(p.arena, op, d.output_format);
+  bp.d_o = fill_input(p.arena, dop, f);
+  auto* lse_dst = reinterpret_cast<float*>(p.arena.data(lse_slot));
+  for (std::size_t i = 0; i < lse.values.size(); ++i) lse_dst[i] = static_cast<float>(lse.values[i]);
+  bp.lse = lse_dst;
+  hr_out_tensor* outs[3] = {&bp.d_q, &bp.d_k, &bp.d_v};
+  for (int g = 0; g < 3; ++g) {
+    fill_unwritten(d.output_format, p.arena.data(p.grad_slot[g]), count(p.grad_extents[g]));
+    outs[g]->data = p.arena.data(p.grad_slot[g]);
+    outs[g]->format = abi_format(d.output_format);
+    std::memcpy(outs[g]->extents, p.grad_extents[g], sizeof outs[g]->extents);
+    std::memcpy(outs[g]->strides, p.grad_strides[g], sizeof outs[g]->strides);
+  }
+  if (p.bias_slot) {
+    fill_unwritten(Format::float32, p.arena.data(*p.bias_slot), p.arena.bytes(*p.bias_slot) / sizeof(float));
+    bp.d_bias = reinterpret_cast<float*>(p.arena.data(*p.bias_slot));
+  }
+  return p;
+}
+
+void unpack_gradients(const PackedBackward& p, BackwardRun& r) {
+  Tensor* outs[3] = {&r.d_q, &r.d_k, &r.d_v};
+  const std::size_t n = item_size(p.output_format);
+  for (int g = 0; g < 3; ++g) {
+    const std::int64_t* e = p.grad_extents[g];
+    *outs[g] = Tensor({e[0], e[1], e[2], e[3]});
+    const unsigned char* src = p.arena.data(p.grad_slot[g]);
+    for_each_element(e, p.grad_strides[g], [&](std::size_t i, std::size_t at) {
+      outs[g]->values[i] = load_element(p.output_format, src + at * n);
+    });
+  }
+  r.d_bias = Tensor{};
+  if (p.bias_slot) {
+    r.d_bias = Tensor(p.bias_shape);
+    const unsigned char* src = p.arena.data(*p.bias_slot);
+    for (std::size_t i = 0; i < r.d_bias.values.size(); ++i)
+      r.d_bias.values[i] = load_element(Format::float32, src + i * sizeof(float));
+  }
+}
+
 Tensor unpack_lse(const PackedCall& p) {
   if (!p.lse_slot) return Tensor{};
   Tensor lse({p.core.batch, p.core.q_heads, p.core.q_len});

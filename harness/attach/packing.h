@@ -30,6 +30,27 @@ struct PackedCall {
   std::vector<std::int64_t> out_shape;  ///< of KernelRun::out: [B, Hq, Tq, Dv] or [B, Tq, Dm]
 };
 
+/// A backward call's buffers: the forward's inputs and mask, O, lse and dO as
+/// guarded inputs, dQ, dK, dV (and d(bias)) as canaried outputs prefilled
+/// with "unwritten" NaNs, laid out as the forward's (BHTD or BTHD).
+struct PackedBackward {
+  GuardedArena arena;
+  hr_backward_problem problem{};
+  Format output_format = Format::float32;
+  std::size_t grad_slot[3] = {0, 0, 0};          ///< dQ, dK, dV
+  std::int64_t grad_extents[3][4] = {};
+  std::int64_t grad_strides[3][4] = {};
+  std::optional<std::size_t> bias_slot;           ///< d(bias), float32, contiguous
+  std::vector<std::int64_t> bias_shape;
+};
+
+/// Returns: the buffers and problem structure for one backward call of kernel
+/// `d` on `c`, given O and lse. Preconditions: as AttachedKernel::run_backward.
+PackedBackward pack_backward(const ReceivedCase& c, const KernelDeclaration& d, const Tensor& o, const Tensor& lse);
+
+/// Returns: the gradients of a returned backward call into `r` (d_q, d_k, d_v, d_bias).
+void unpack_gradients(const PackedBackward& p, BackwardRun& r);
+
 /// Returns: nothing when `c` was received for kernel `d` (level, input format,
 /// mask kind, int8 codes and schemes); throws std::invalid_argument otherwise.
 void check_received(const ReceivedCase& c, const KernelDeclaration& d);

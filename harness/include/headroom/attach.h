@@ -108,6 +108,18 @@ struct KernelRun {
   std::int64_t first_unwritten = -1;  ///< flat index into `out` of the first of them, −1 when none
 };
 
+/// The outcome of one backward call: gradients in the kernel's output format
+/// (as doubles), filled only when status is ok (unwritten elements read as NaN).
+struct BackwardRun {
+  RunStatus status = RunStatus::ok;
+  std::string detail;  ///< human-readable reason when status != ok
+  Tensor d_q;          ///< [B, Hq, Tq, Dk]
+  Tensor d_k;          ///< [B, Hkv, Tk, Dk]
+  Tensor d_v;          ///< [B, Hkv, Tk, Dv]
+  Tensor d_bias;       ///< [B, Hm, Tq, Tk] float32 values when the kernel declares HR_BACKWARD_BIAS_GRAD and
+                       ///< the mask is a bias; else empty
+};
+
 class AttachedKernel {
  public:
   virtual ~AttachedKernel() = default;
@@ -121,6 +133,15 @@ class AttachedKernel {
   /// keeps between calls shows; fewer when a call ended that process (the last
   /// one says how). This default makes `times` separate calls of run().
   virtual std::vector<KernelRun> run_repeated(const ReceivedCase& c, const RunOptions& opt, int times);
+  /// Returns: the outcome of one backward call on `c` given the forward output
+  /// `o` [B, Hq, Tq, Dv] (values of the kernel's output format; rounded to it
+  /// when not) and log-sum-exp `lse` [B, Hq, Tq] (rounded to float32; −inf or
+  /// NaN on fully masked rows). Under the same buffers, guards and isolation as
+  /// run. Never throws for kernel misbehaviour.
+  /// Preconditions: declaration().backward, `c` = receive(case, declaration())
+  /// of a case with dO (ReceivedCase::received.d_o); throws
+  /// std::invalid_argument otherwise.
+  virtual BackwardRun run_backward(const ReceivedCase& c, const Tensor& o, const Tensor& lse, const RunOptions& opt);
 };
 
 /// Returns: the CPU-time limit of one isolated call on `c`, in seconds:
@@ -129,6 +150,10 @@ class AttachedKernel {
 /// projections). The default 5e-9 s allows a kernel 0.2 G multiply-adds per
 /// second, far below any vectorised or even scalar float loop.
 double call_time_limit(const Case& c, const RunOptions& opt);
+/// Returns: the CPU-time limit of one isolated backward call on core case `c`,
+/// in seconds: as call_time_limit with the backward's multiply-adds
+/// B·Hq·Tq·Tk × (3Dk + 2Dv) (S recomputed, dP, dV, dQ, dK: one product each).
+double backward_call_time_limit(const Case& c, const RunOptions& opt);
 
 /// Returns: a kernel from the in-process table `k` (a bundled kernel).
 std::unique_ptr<AttachedKernel> attach_in_process(const hr_kernel* k);

@@ -51,6 +51,9 @@ struct KernelDeclaration {
   /// The kernel_abi.h version (plug-ins) or exchange protocol (external
   /// programs) the kernel was written against; informational.
   int interface_version = 2;
+  // Version 2: the backward entry (kernel_abi.h run_backward, docs/backward.md).
+  bool backward = false;              ///< the kernel has a backward entry (core level, float inputs)
+  std::uint32_t backward_flags = 0;   ///< HR_BACKWARD_* bits
 
   /// Returns: whether the kernel declares support for mask kind k.
   bool supports(MaskKind k) const;
@@ -84,7 +87,9 @@ std::uint32_t mask_bit(MaskKind k);
 /// a head-dim list that is unterminated within 64 entries, holds a value < 1
 /// or a duplicate, a negative multiple or maximum, and any version-2 field
 /// this build does not judge yet (8-bit formats, per-block scales, P
-/// quantisation, features, split length, a backward entry) set non-neutral.
+/// quantisation, features, split length) set non-neutral; backward_flags bits
+/// outside HR_BACKWARD_*, flags without a run_backward, or a backward entry on
+/// a block or int8 kernel.
 KernelDeclaration declaration_of(const hr_kernel* k, const std::string& origin);
 
 /// Returns: nothing when `d` is consistent; throws InputError naming origin

@@ -1,0 +1,143 @@
+// headroom — tests of the backward entry: declaration fields, packing, the call isolated or not.
+//
+// The gradients of the bundled f32_backward_tiled are checked here against a
+// plain double-precision backward written out below from the published
+// formulas (Dao et al. 2022, Alg. 4) — enough to show that the buffers reach
+// the kernel and come back in the right places; their accuracy against the
+// certified reference is the score stage's (score_backward_test).
+#include <gtest/gtest.h>
+
+#include <cmath>
+#include <stdexcept>
+
+#include "attach_cases.h"
+#include "headroom/attach.h"
+#include "headroom/input_error.h"
+#include "headroom/kernel.h"
+#include "kernel_list.h"
+
+namespace headroom {
+namespace {
+
+using testing::core_case;
+
+// dQ, dK, dV in double from the received values: P from a max-shifted softmax.
+struct Grads {
+  Tensor d_q, d_k, d_v;
+};
+Grads plain_backward(const Case& c) {
+  const CoreShape& s = c.core.shape;
+  const CoreInputs& in = c.core_inputs;
+  Grads g{Tensor({s.batch, s.q_heads, s.q_len, s.key_dim}), Tensor({s.batch, s.kv_heads, s.kv_len, s.key_dim}),
+          Tensor({s.batch, s.kv_heads, s.kv_len, s.value_dim})};
+  const double sc = c.core.scale;
+  for (std::int64_t b = 0; b < s.batch; ++b)
+    for (std::int64_t h = 0; h < s.q_heads; ++h) {
+      const std::int64_t kv = kv_head_of(s, h);
+      for (std::int64_t i = 0; i < s.q_len; ++i) {
+        std::vector<double> z(static_cast<std::size_t>(s.kv_len), -INFINITY);
+        double m = -INFINITY;
+        for (std::int64_t j = 0; j < s.kv_len; ++j) {
+          if (!c.core.mask.visible(s, b, h, i, j)) continue;
+          double dot = 0;
+          for (std::int64_t d = 0; d < s.key_dim; ++d) dot += in.q.at(b, h, i, d) * in.k.at(b, kv, j, d);
+          z[static_cast<std::size_t>(j)] = sc * dot + c.core.mask.bias_at(b, h, i, j);
+          m = std::max(m, z[static_cast<std::size_t>(j)]);
+        }
+        if (m == -INFINITY) continue;
+        double sum = 0;
+        for (double& x : z) sum += (x = std::exp(x - m));
+        std::vector<double> dp(z.size());
+        double delta = 0;
+        for (std::int64_t j = 0; j < s.kv_len; ++j) {
+          const auto ju = static_cast<std::size_t>(j);
+          z[ju] /= sum;
+          for (std::int64_t d = 0; d < s.value_dim; ++d) dp[ju] += c.d_o.at(b, h, i, d) * in.v.at(b, kv, j, d);
+          delta += z[ju] * dp[ju];
+        }
+        for (std::int64_t j = 0; j < s.kv_len; ++j) {
+          const auto ju = static_cast<std::size_t>(j);
+          const double ds = z[ju] * (dp[ju] - delta);
+          for (std::int64_t d = 0; d < s.value_dim; ++d) g.d_v.at(b, kv, j, d) += z[ju] * c.d_o.at(b, h, i, d);
+          for (std::int64_t d = 0; d < s.key_dim; ++d) {
+            g.d_q.at(b, h, i, d) += sc * ds * in.k.at(b, kv, j, d);
+            g.d_k.at(b, kv, j, d) += sc * ds * in.q.at(b, h, i, d);
+          }
+        }
+      }
+    }
+  return g;
+}
+
+Case with_upstream(Case c, std::uint32_t seed) {
+  std::mt19937 rng(seed);
+  const CoreShape& s = c.core.shape;
+  c.d_o = testing::random_tensor({s.batch, s.q_heads, s.q_len, s.value_dim}, rng);
+  return c;
+}
+
+TEST(AttachBackward, DeclarationCarriesTheBackwardEntry) {
+  const auto k = attach_in_process(&hr_kernels::f32_backward_tiled);
+  EXPECT_TRUE(k->declaration().backward);
+  EXPECT_EQ(k->declaration().backward_flags, 0u);
+  EXPECT_NE(declaration_summary(k->declaration()).find("backward=yes"), std::string::npos);
+  EXPECT_FALSE(attach_in_process(&hr_kernels::f32_tiled_64)->declaration().backward);
+}
+
+TEST(AttachBackward, RefusesInconsistentBackwardFields) {
+  auto refused = [](hr_kernel k, const std::string& field) {
+    try {
+      declaration_of(&k, "test table");
+    } catch (const InputError& e) {
+      EXPECT_NE(e.place().find(field), std::string::npos) << e.what();
+      return;
+    }
+    ADD_FAILURE() << "accepted a declaration with a bad " << field;
+  };
+  hr_kernel bits = hr_kernels::f32_backward_tiled;
+  bits.backward_flags = 1u << 7;
+  refused(bits, "backward_flags");
+  hr_kernel no_entry = hr_kernels::f32_tiled_64;
+  no_entry.backward_flags = HR_BACKWARD_RECOMPUTES;
+  refused(no_entry, "backward_flags");
+  hr_kernel int8 = hr_kernels::i8_tokenwise;
+  int8.run_backward = hr_kernels::f32_backward_tiled.run_backward;
+  refused(int8, "run_backward");
+}
+
+TEST(AttachBackward, GradientsComeBackInPlaceIsolatedOrNot) {
+  const auto k = attach_in_process(&hr_kernels::f32_backward_tiled);
+  for (MaskKind kind : {MaskKind::none, MaskKind::causal_top_left, MaskKind::key_padding, MaskKind::bias}) {
+    SCOPED_TRACE(std::string(mask_kind_name(kind)));
+    const Case c = with_upstream(core_case({2, 4, 2, 5, 70, 8, 6}, kind, 11), 12);
+    const ReceivedCase r = receive(c, k->declaration());
+    const KernelRun fwd = k->run(r, RunOptions{false, 20.0, 0});
+    ASSERT_EQ(fwd.status, RunStatus::ok) << fwd.detail;
+    const BackwardRun a = k->run_backward(r, fwd.out, fwd.lse, RunOptions{true, 20.0, std::uint64_t{1} << 30});
+    const BackwardRun b = k->run_backward(r, fwd.out, fwd.lse, RunOptions{false, 20.0, 0});
+    ASSERT_EQ(a.status, RunStatus::ok) << a.detail;
+    ASSERT_EQ(b.status, RunStatus::ok) << b.detail;
+    EXPECT_TRUE(bit_identical(a.d_q, b.d_q) && bit_identical(a.d_k, b.d_k) && bit_identical(a.d_v, b.d_v));
+    EXPECT_TRUE(a.d_bias.values.empty());
+    const Grads want = plain_backward(r.received);
+    for (auto [got, exp] : {std::pair{&a.d_q, &want.d_q}, {&a.d_k, &want.d_k}, {&a.d_v, &want.d_v}}) {
+      ASSERT_EQ(got->shape, exp->shape);
+      for (std::size_t e = 0; e < got->values.size(); ++e)
+        EXPECT_NEAR(got->values[e], exp->values[e], 1e-4 * (1 + std::fabs(exp->values[e]))) << e;
+    }
+  }
+}
+
+TEST(AttachBackward, CallsNeedABackwardEntryAndAnUpstreamGradient) {
+  const auto tiled = attach_in_process(&hr_kernels::f32_tiled_64);
+  const auto k = attach_in_process(&hr_kernels::f32_backward_tiled);
+  const Case c = core_case({1, 1, 1, 3, 4, 4, 4}, MaskKind::none, 3);
+  const ReceivedCase plain = receive(c, k->declaration());
+  const KernelRun fwd = k->run(plain, RunOptions{false, 20.0, 0});
+  EXPECT_THROW(k->run_backward(plain, fwd.out, fwd.lse, RunOptions{false, 20.0, 0}), std::invalid_argument);
+  const ReceivedCase r = receive(with_upstream(c, 4), tiled->declaration());
+  EXPECT_THROW(tiled->run_backward(r, fwd.out, fwd.lse, RunOptions{false, 20.0, 0}), std::invalid_argument);
+}
+
+}  // namespace
+}  // namespace headroom
