@@ -206,6 +206,13 @@ CaseScore score_core(const Tensor& out, const Tensor* lse, const CoreReference& 
   return s;
 }
 
+CaseScore score_gradient(const Tensor& out, const GradientReference& ref, bool certified, Format f) {
+  const std::vector<std::int64_t>& e = ref.out.shape;
+  const std::int64_t rows = e.size() == 4 ? e[0] * e[1] * e[2] : 0;
+  const std::vector<std::uint8_t> none(static_cast<std::size_t>(rows), 0);
+  return score(out, RefView{ref.out, ref.bound, ref.magnitude, none, certified, false}, f);
+}
+
 CaseScore score_block(const Tensor& out, const BlockReference& ref, Format f) {
   return score(out, view_of(ref), f);
 }

@@ -28,6 +28,7 @@
 #include "headroom/case.h"
 #include "headroom/format.h"
 #include "headroom/reference.h"
+#include "headroom/reference_backward.h"
 #include "headroom/tensor.h"
 
 namespace headroom {
@@ -127,6 +128,15 @@ CaseScore score_core(const Tensor& out, const Tensor* lse, const CoreReference& 
 /// Y[b, i, :] is excluded when query i is fully masked in any head of batch b.
 /// Throws std::invalid_argument on a shape mismatch.
 CaseScore score_block(const Tensor& out, const BlockReference& ref, Format f);
+
+/// Returns: the scores of one gradient tensor `out` (dQ, dK, dV, or d(bias)
+/// per query head) against its certified reference (reference_backward.h), in
+/// output format f: the same figures, the scaled error in units of the
+/// gradient's natural magnitude. No element is excluded: the gradient of a
+/// fully masked row, or of a key no query sees, is exactly 0 and scored as
+/// such (any other value is counted in subnormal steps of F).
+/// Throws std::invalid_argument on a shape mismatch.
+CaseScore score_gradient(const Tensor& out, const GradientReference& ref, bool certified, Format f);
 
 /// Fills s.row_score_magnitude and s.score_terms from the values the kernel
 /// received (double arithmetic: a budget coordinate, relative error ≤ 2^-50).
