@@ -157,8 +157,6 @@ TEST(AbiVersions, FieldsThisBuildDoesNotJudgeAreRefusedByName) {
   const Set sets[] = {
       {"features", [](hr_kernel& k) { k.features = HR_FEATURE_SOFTCAP; }},
       {"split_kv_len", [](hr_kernel& k) { k.split_kv_len = 512; }},
-      {"run_backward", [](hr_kernel& k) { k.run_backward = [](const hr_backward_problem*) { return HR_OK; }; }},
-      {"backward_flags", [](hr_kernel& k) { k.backward_flags = HR_BACKWARD_RECOMPUTES; }},
       {"p_quant", [](hr_kernel& k) { k.p_quant = HR_PQUANT_E4M3; }},
       {"input_format", [](hr_kernel& k) { k.input_format = HR_FORMAT_E4M3; }},
   };
@@ -169,6 +167,18 @@ TEST(AbiVersions, FieldsThisBuildDoesNotJudgeAreRefusedByName) {
     EXPECT_NE(e.find(s.field), std::string::npos) << s.field << ": " << e;
     EXPECT_NE(e.find("not judged"), std::string::npos) << s.field << ": " << e;
   }
+}
+
+TEST(AbiVersions, BackwardFieldsAreJudgedAndCheckedByName) {
+  hr_kernel k = v2_kernel();
+  k.backward_flags = HR_BACKWARD_RECOMPUTES;  // flags without an entry
+  std::string e = refusal(k);
+  EXPECT_NE(e.find("backward_flags"), std::string::npos) << e;
+  EXPECT_NE(e.find("no run_backward"), std::string::npos) << e;
+  k.run_backward = [](const hr_backward_problem*) { return HR_OK; };
+  k.backward_flags = 1u << 9;  // a bit outside HR_BACKWARD_*
+  e = refusal(k);
+  EXPECT_NE(e.find("bits outside HR_BACKWARD_"), std::string::npos) << e;
 }
 
 TEST(AbiVersions, ExternalProgramsDeclareTheSameFieldsUnderProtocolTwo) {
