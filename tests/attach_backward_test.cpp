@@ -7,7 +7,11 @@
 // certified reference is the score stage's (score_backward_test).
 #include <gtest/gtest.h>
 
+#include <unistd.h>
+
 #include <cmath>
+#include <cstdio>
+#include <cstring>
 #include <stdexcept>
 
 #include "attach_cases.h"
@@ -126,6 +130,75 @@ TEST(AttachBackward, GradientsComeBackInPlaceIsolatedOrNot) {
         EXPECT_NEAR(got->values[e], exp->values[e], 1e-4 * (1 + std::fabs(exp->values[e]))) << e;
     }
   }
+}
+
+// ---- backward entries that misbehave, each one way --------------------------
+
+std::int64_t count4(const std::int64_t e[4]) { return e[0] * e[1] * e[2] * e[3]; }
+
+void zero_gradients(const hr_backward_problem* p) {
+  for (const hr_out_tensor* t : {&p->d_q, &p->d_k, &p->d_v})
+    std::memset(t->data, 0, static_cast<std::size_t>(count4(t->extents)) * sizeof(float));
+}
+
+int g_parent_pipe = -1;  // where reports_parent tells the test which process forked the call
+
+std::int32_t reports_parent(const hr_backward_problem* p) {
+  char comm[32] = {};
+  FILE* f = std::fopen(("/proc/" + std::to_string(getppid()) + "/comm").c_str(), "r");
+  if (f != nullptr) {
+    if (std::fgets(comm, sizeof comm, f) == nullptr) comm[0] = '\0';
+    std::fclose(f);
+  }
+  if (write(g_parent_pipe, comm, sizeof comm) != static_cast<ssize_t>(sizeof comm)) return HR_OK;
+  zero_gradients(p);
+  return HR_OK;
+}
+
+std::int32_t writes_past_d_k(const hr_backward_problem* p) {
+  zero_gradients(p);
+  static_cast<volatile float*>(p->d_k.data)[count4(p->d_k.extents) + 32] = 1.0f;  // past the canary: guard page
+  return HR_OK;
+}
+
+std::int32_t writes_into_d_o(const hr_backward_problem* p) {
+  zero_gradients(p);
+  const_cast<float*>(static_cast<const float*>(p->d_o.data))[1] = 1.0f;
+  return HR_OK;
+}
+
+std::int32_t aborts(const hr_backward_problem*) { std::abort(); }
+
+BackwardRun run_misbehaving(std::int32_t (*entry)(const hr_backward_problem*)) {
+  hr_kernel k = hr_kernels::f32_backward_tiled;
+  k.run_backward = entry;
+  const auto kernel = attach_in_process(&k);
+  const ReceivedCase r = receive(with_upstream(core_case({1, 2, 1, 3, 5, 4, 4}, MaskKind::none, 7), 8),
+                                 kernel->declaration());
+  const KernelRun fwd = kernel->run(r, RunOptions{false, 20.0, 0});
+  return kernel->run_backward(r, fwd.out, fwd.lse, RunOptions{true, 5.0, std::uint64_t{256} << 20});
+}
+
+TEST(AttachBackward, IsolatedBackwardCallsAreTheWorkersAndFaultLikeTheForward) {
+  int fds[2];
+  ASSERT_EQ(pipe(fds), 0);
+  g_parent_pipe = fds[1];
+  const BackwardRun ok = run_misbehaving(reports_parent);
+  char comm[32] = {};
+  ASSERT_EQ(read(fds[0], comm, sizeof comm), static_cast<ssize_t>(sizeof comm));
+  close(fds[0]);
+  close(fds[1]);
+  EXPECT_EQ(ok.status, RunStatus::ok) << ok.detail;
+  EXPECT_EQ(std::string(comm), "hr-worker\n");  // forked by the isolation worker, as forward calls are
+  const BackwardRun past = run_misbehaving(writes_past_d_k);
+  EXPECT_EQ(past.status, RunStatus::oob_write) << past.detail;
+  EXPECT_NE(past.detail.find("output d_k"), std::string::npos) << past.detail;
+  const BackwardRun into = run_misbehaving(writes_into_d_o);
+  EXPECT_EQ(into.status, RunStatus::oob_write) << into.detail;
+  EXPECT_NE(into.detail.find("wrote into input d_o"), std::string::npos) << into.detail;
+  const BackwardRun crash = run_misbehaving(aborts);
+  EXPECT_EQ(crash.status, RunStatus::crash) << crash.detail;
+  EXPECT_NE(crash.detail.find("SIGABRT"), std::string::npos) << crash.detail;
 }
 
 TEST(AttachBackward, CallsNeedABackwardEntryAndAnUpstreamGradient) {
