@@ -257,11 +257,11 @@ rc::Gen<Case> case_gen(const CaseRequest& req) {
   });
 }
 
-rc::Shrinkable<Case> shrinkable_case(const CaseRequest& req) {
+namespace {
+
+// The recipe of `req` after its shrink path.
+Recipe recipe_of(const CaseRequest& req) {
   const std::size_t family = checked_family(req);
-  auto origin = std::make_shared<Origin>();
-  origin->request = req;
-  origin->request.shrink_path.clear();
   Recipe r = sample_recipe(req, family, rc::Random(req.seed), req.size);
   for (std::size_t step = 0; step < req.shrink_path.size(); ++step) {
     const std::vector<Recipe> candidates = shrink_candidates(r);
@@ -273,7 +273,25 @@ rc::Shrinkable<Case> shrinkable_case(const CaseRequest& req) {
                        "use a path recorded in a case's provenance");
     r = candidates[static_cast<std::size_t>(i)];
   }
-  return shrinkable_at(r, std::move(origin), req.shrink_path);
+  return r;
+}
+
+std::shared_ptr<Origin> origin_of(const CaseRequest& req) {
+  auto origin = std::make_shared<Origin>();
+  origin->request = req;
+  origin->request.shrink_path.clear();
+  return origin;
+}
+
+}  // namespace
+
+rc::Shrinkable<Case> shrinkable_case(const CaseRequest& req) {
+  return shrinkable_at(recipe_of(req), origin_of(req), req.shrink_path);
+}
+
+CaseOutline case_outline(const CaseRequest& req) {
+  const Recipe r = recipe_of(req);
+  return {case_name(r, *origin_of(req), req.shrink_path), r.level, r.shape, r.mask, r.model_dim};
 }
 
 Case make_case(const CaseRequest& req) { return shrinkable_case(req).value(); }

@@ -5,6 +5,7 @@
 
 #include "headroom/families.h"
 #include "headroom/input_error.h"
+#include "suite_builder.h"
 
 namespace headroom {
 namespace {
@@ -14,29 +15,8 @@ constexpr MaskKind kAllMasks[] = {MaskKind::none,        MaskKind::causal_top_le
 
 // Sections draw seeds from disjoint ranges so no two requests of a suite can
 // produce the same case.
-class Builder {
- public:
-  void add(std::string_view family, std::uint64_t seed, int size, std::optional<CoreShape> shape = std::nullopt,
-           std::optional<MaskKind> mask = std::nullopt, std::optional<std::int64_t> model_dim = std::nullopt) {
-    CaseRequest r;
-    r.family = std::string(family);
-    r.seed = seed;
-    r.size = size;
-    r.shape = shape;
-    r.mask = mask;
-    r.model_dim = model_dim;
-    out_.push_back(std::move(r));
-  }
-  std::vector<CaseRequest> take() { return std::move(out_); }
-
- private:
-  std::vector<CaseRequest> out_;
-};
-
-CoreShape shape(std::int64_t b, std::int64_t hq, std::int64_t hkv, std::int64_t tq, std::int64_t tk, std::int64_t dk,
-                std::int64_t dv) {
-  return CoreShape{b, hq, hkv, tq, tk, dk, dv};
-}
+using Builder = generate_internal::SuiteBuilder;
+using generate_internal::shape;
 
 // Every family at `seeds` seeds, sizes cycling through `sizes`.
 void every_family(Builder& b, std::uint64_t base, int seeds, std::initializer_list<int> sizes) {
@@ -82,6 +62,9 @@ std::vector<CaseRequest> quick() {
   b.add("long_sequence", 501, 0);
   b.add("block_gaussian", 601, 20, shape(1, 4, 2, 8, 8, 8, 8));
   full_head_blocks(b, 901, 1);
+  // A taste of production shapes, kept cheap: head dim 128 and 64, Tk past 256 and 1024.
+  b.add("gaussian", 951, 100, shape(1, 8, 2, 4, 257, 128, 128), MaskKind::causal_bottom_right);
+  b.add("attention_sink", 952, 100, shape(2, 4, 1, 1, 1025, 64, 64), MaskKind::key_padding);
   return b.take();
 }
 
@@ -104,6 +87,7 @@ std::vector<CaseRequest> standard() {
   }
   for (const FamilyInfo& f : kFamilies) b.add(f.name, 701, 30, std::nullopt, MaskKind::causal_bottom_right);
   full_head_blocks(b, 901, 4);
+  generate_internal::production_sections(b, generate_internal::Depth::standard, 1001);
   return b.take();
 }
 
@@ -127,6 +111,7 @@ std::vector<CaseRequest> deep() {
   for (const FamilyInfo& f : kFamilies)
     for (MaskKind m : kAllMasks) b.add(f.name, 801, 30, std::nullopt, m);
   full_head_blocks(b, 901, 8);
+  generate_internal::production_sections(b, generate_internal::Depth::deep, 2001);
   return b.take();
 }
 

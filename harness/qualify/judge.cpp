@@ -100,6 +100,17 @@ void fill_figures(CaseFigures& fig, const CaseScore& s) {
 
 }  // namespace
 
+std::vector<std::uint8_t> sample_rows(const CoreShape& s, std::int64_t key_rows) {
+  const std::int64_t rows = s.batch * s.q_heads * s.q_len;
+  if (rows * s.kv_len <= key_rows) return {};
+  const std::int64_t want = std::min(rows, std::max<std::int64_t>(16, key_rows / std::max<std::int64_t>(1, s.kv_len)));
+  if (want >= rows) return {};
+  std::vector<std::uint8_t> pick(static_cast<std::size_t>(rows), 0);
+  // Row (k+1)·rows/want − 1 for k = 0 … want−1: evenly spread, the last row included.
+  for (std::int64_t k = 0; k < want; ++k) pick[static_cast<std::size_t>((k + 1) * rows / want - 1)] = 1;
+  return pick;
+}
+
 bool receives_alike(const KernelDeclaration& a, const KernelDeclaration& b) {
   return a.level == b.level && a.input_format == b.input_format && a.output_format == b.output_format &&
          a.q_quant == b.q_quant && a.k_quant == b.k_quant && a.v_quant == b.v_quant;
@@ -213,20 +224,31 @@ Judgement judge_case(AttachedKernel& k, const Case& c, const JudgeOptions& opt, 
     return j;
   }
 
-  const AnyReference ref = reference_of(rc.received, opt.detect.reference);
+  // A long case's reference judges a deterministic sample of rows (sample_rows);
+  // the detectors below share the sample, and every row is still checked for
+  // non-finite output and the masked-row convention.
+  DetectorOptions detect = opt.detect;
+  if (c.level == Level::core) detect.reference.rows = sample_rows(c.core.shape);
+  const AnyReference ref = reference_of(rc.received, detect.reference);
   j.score = score_of(first, ref, d.output_format);
   condition_on_scores(*j.score, rc.received);
   fill_figures(rec.figures, *j.score);
   rec.ulp_histogram.assign(j.score->ulp_histogram.begin(), j.score->ulp_histogram.end());
   rec.reference_certified = j.score->reference_certified;  // explained once per report, not per case
 
-  j.faults = faults_of(k, rc, first, ref, opt.detect);
+  if (!detect.reference.rows.empty()) {
+    const auto judged = std::count(detect.reference.rows.begin(), detect.reference.rows.end(), std::uint8_t{1});
+    rec.fault_details.push_back("note: scored " + std::to_string(judged) + " of " +
+                                std::to_string(detect.reference.rows.size()) +
+                                " query rows (a deterministic sample); every row checked for faults");
+  }
+  j.faults = faults_of(k, rc, first, ref, detect);
   record_faults(rec, j.faults);
 
   // What rounding or quantising the inputs cost, apart from the kernel's arithmetic.
   const bool rounded = d.input_format != c.source_format && d.input_format != Format::float64;
   if (opt.quantisation_split && rounded) {
-    const AnyReference src = reference_of(c, opt.detect.reference);
+    const AnyReference src = reference_of(c, detect.reference);
     const QuantSplit split = ref.core ? split_quantisation(first.out, nullptr, *ref.core, *src.core, d.output_format)
                                       : split_quantisation(first.out, *ref.block, *src.block, d.output_format);
     rec.figures.input_error = split.input.max_scaled_error;

@@ -94,6 +94,13 @@ std::function<void(CaseRecord&, const Judgement&, const Case&)> budget_applier(K
   };
 }
 
+PlannedCase planned(const CaseRequest& r) {
+  PlannedCase p;
+  p.request = r;
+  p.name = case_outline(r).name;
+  return p;
+}
+
 RunRecord run_cases(AttachedKernel& k, const std::vector<PlannedCase>& cases, const RunnerOptions& opt,
                     std::vector<std::string>* skipped) {
   const KernelDeclaration& d = k.declaration();
@@ -106,35 +113,40 @@ RunRecord run_cases(AttachedKernel& k, const std::vector<PlannedCase>& cases, co
 
   std::vector<const PlannedCase*> mine;
   for (const auto& p : cases)
-    if (in_shard(p.c.name, opt.shard)) mine.push_back(&p);
-  std::sort(mine.begin(), mine.end(), [](const PlannedCase* a, const PlannedCase* b) { return a->c.name < b->c.name; });
+    if (in_shard(p.case_name(), opt.shard)) mine.push_back(&p);
+  std::sort(mine.begin(), mine.end(),
+            [](const PlannedCase* a, const PlannedCase* b) { return a->case_name() < b->case_name(); });
 
   std::size_t done = 0;
   for (const PlannedCase* p : mine) {
     if (opt.journal) {
-      if (const CaseRecord* seen = opt.journal->find(p->c.name)) {
+      if (const CaseRecord* seen = opt.journal->find(p->case_name())) {
         record.cases.push_back(*seen);
         if (opt.progress) opt.progress(++done, mine.size(), *seen);
         continue;
       }
     }
+    // A planned case is made now, and freed when the next one is.
+    std::optional<Case> made;
+    if (p->c.name.empty() && p->request) made = make_case(*p->request);
+    const Case& c = made ? *made : p->c;
     const std::string replay = p->request
-                                   ? make_and_replay_command(opt, d.name, *p->request, "case-" + case_folder_name(p->c.name))
+                                   ? make_and_replay_command(opt, d.name, *p->request, "case-" + case_folder_name(c.name))
                                    : replay_command(opt, d.name, p->folder.string());
-    Judgement j = judge_case(k, p->c, opt.judge, replay);
+    Judgement j = judge_case(k, c, opt.judge, replay);
     if (p->request) j.record.size = p->request->size;
     if (j.unfit) {
-      const std::string line = p->c.name + ": " + *j.unfit;
+      const std::string line = c.name + ": " + *j.unfit;
       record.skipped.push_back(line);
       if (skipped) skipped->push_back(line);
       if (opt.progress) opt.progress(++done, mine.size(), j.record);
       continue;
     }
-    if (opt.apply_budget) opt.apply_budget(j.record, j, p->c);
+    if (opt.apply_budget) opt.apply_budget(j.record, j, c);
     if (!j.record.within_budget && !opt.save_failures.empty()) {
-      const auto folder = opt.save_failures / case_folder_name(p->c.name);
+      const auto folder = opt.save_failures / case_folder_name(c.name);
       std::filesystem::create_directories(opt.save_failures);
-      write_case(p->c, folder);
+      write_case(c, folder);
       j.record.replay = replay_command(opt, d.name, folder.string());
     }
     if (opt.journal) opt.journal->append(j.record);

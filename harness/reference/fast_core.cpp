@@ -210,6 +210,10 @@ bool FastCore::run_group(std::int64_t group, CoreReference& ref, Scratch& sc, Ro
       write_fully_masked(row, ref);
       continue;
     }
+    if (row_left_out(opt_, row)) {
+      write_unsampled(row, ref);
+      continue;
+    }
     if (batch > 0 && rs.keys != sc.row[row_of[0]].keys) flush();
     row_of[batch] = r;
     prepare_row(row, rs, args[batch], outs[batch]);

@@ -63,6 +63,12 @@ void write_fully_masked(std::int64_t row, CoreReference& ref) {
   ref.fully_masked[static_cast<std::size_t>(row)] = 1;
 }
 
+void write_unsampled(std::int64_t row, CoreReference& ref) {
+  write_fully_masked(row, ref);
+  ref.fully_masked[static_cast<std::size_t>(row)] = 0;
+  ref.unsampled[static_cast<std::size_t>(row)] = 1;
+}
+
 struct MpCoreRows::Impl {
   const CoreProblem& p;
   const CoreInputs& in;
@@ -109,6 +115,10 @@ bool MpCoreRows::run(std::int64_t row, CoreReference& ref, const std::uint8_t* w
   const auto n = static_cast<std::int64_t>(m.keys.size());
   if (n == 0) {
     write_fully_masked(row, ref);
+    return true;
+  }
+  if (row_left_out(m.opt, row)) {
+    write_unsampled(row, ref);
     return true;
   }
   const double* q = &m.in.q.values[static_cast<std::size_t>(m.in.q.offset(b, h, i, 0))];

@@ -52,4 +52,13 @@ class MpCoreRows : public RowRecompute {
 /// lse_bound NaN, fully_masked = 1.
 void write_fully_masked(std::int64_t row, CoreReference& ref);
 
+/// Returns: whether `opt` leaves query row `row` out (ReferenceOptions::rows).
+inline bool row_left_out(const ReferenceOptions& opt, std::int64_t row) {
+  return !opt.rows.empty() && opt.rows[static_cast<std::size_t>(row)] == 0;
+}
+
+/// Writes a row left out by ReferenceOptions::rows: out, bound, magnitude, lse
+/// and lse_bound NaN, unsampled = 1.
+void write_unsampled(std::int64_t row, CoreReference& ref);
+
 }  // namespace headroom::detail

@@ -9,6 +9,8 @@
 #include <cstdint>
 #include <memory>
 #include <optional>
+#include <stdexcept>
+#include <string>
 #include <vector>
 
 #include "fast_core.h"
@@ -30,6 +32,10 @@ CoreReference reference_core(const CoreProblem& p, const CoreInputs& in, const R
   ref.lse_bound = Tensor(ref.lse.shape);
   const std::int64_t rows = s.batch * s.q_heads * s.q_len;
   ref.fully_masked.assign(static_cast<std::size_t>(rows), 0);
+  ref.unsampled.assign(static_cast<std::size_t>(rows), 0);
+  if (!opt.rows.empty() && static_cast<std::int64_t>(opt.rows.size()) != rows)
+    throw std::invalid_argument("reference_core: ReferenceOptions::rows has " + std::to_string(opt.rows.size()) +
+                                " entries for " + std::to_string(rows) + " query rows");
 
   const unsigned workers = detail::worker_count(rows, opt.threads);
   std::optional<detail::FastCore> fast;

@@ -42,31 +42,36 @@ std::vector<std::uint8_t> block_excluded_rows(const BlockReference& ref) {
   return ex;
 }
 
+// `unsampled` rows (a long case's rows the reference left out) have a visible
+// key, so their exact output, a convex combination of finite values, is finite.
 std::optional<Fault> non_finite_in(const KernelRun& run, const Tensor& ref_out, const std::vector<std::uint8_t>& excluded,
-                                   const Tensor* ref_lse) {
+                                   const Tensor* ref_lse, const std::vector<std::uint8_t>* unsampled = nullptr) {
+  auto left_out = [&](std::size_t row) { return unsampled != nullptr && row < unsampled->size() && (*unsampled)[row]; };
   Fault f;
   f.kind = FaultClass::non_finite;
   const std::int64_t width = ref_out.shape.empty() ? 1 : ref_out.shape.back();
   const std::size_t n = std::min(run.out.values.size(), ref_out.values.size());
   for (std::size_t k = 0; k < n; ++k) {
     const std::size_t row = width == 0 ? 0 : k / static_cast<std::size_t>(width);
-    if ((row < excluded.size() && excluded[row]) || !std::isfinite(ref_out.values[k])) continue;
+    if ((row < excluded.size() && excluded[row]) || (!left_out(row) && !std::isfinite(ref_out.values[k]))) continue;
     if (std::isfinite(run.out.values[k])) continue;
     if (f.count++ == 0) {
       f.where = unflatten(static_cast<std::int64_t>(k), ref_out.shape);
       f.detail = "output " + index_text(f.where) + " is " + hex_float(run.out.values[k]) + " where the reference is " +
-                 hex_float(ref_out.values[k]);
+                 (left_out(row) ? std::string("finite (a row with a visible key; not sampled for scoring)")
+                                : hex_float(ref_out.values[k]));
     }
   }
   std::int64_t lse_count = 0;
   if (ref_lse != nullptr && !run.lse.values.empty()) {
     for (std::size_t k = 0; k < std::min(run.lse.values.size(), ref_lse->values.size()); ++k) {
-      if ((k < excluded.size() && excluded[k]) || !std::isfinite(ref_lse->values[k])) continue;
+      if ((k < excluded.size() && excluded[k]) || (!left_out(k) && !std::isfinite(ref_lse->values[k]))) continue;
       if (std::isfinite(run.lse.values[k])) continue;
       if (lse_count++ == 0 && f.count == 0) {
         f.where = unflatten(static_cast<std::int64_t>(k), ref_lse->shape);
         f.detail = "log-sum-exp " + index_text(f.where) + " is " + hex_float(run.lse.values[k]) +
-                   " where the reference is " + hex_float(ref_lse->values[k]);
+                   " where the reference is " +
+                   (left_out(k) ? std::string("finite (not sampled for scoring)") : hex_float(ref_lse->values[k]));
       }
     }
   }
@@ -188,7 +193,7 @@ const Fault* CaseFaults::find(FaultClass c) const {
 }
 
 std::optional<Fault> detect_non_finite(const KernelRun& run, const CoreReference& ref) {
-  return non_finite_in(run, ref.out, ref.fully_masked, &ref.lse);
+  return non_finite_in(run, ref.out, ref.fully_masked, &ref.lse, &ref.unsampled);
 }
 
 std::optional<Fault> detect_non_finite(const KernelRun& run, const BlockReference& ref) {

@@ -43,7 +43,7 @@ int replay_main(const ReplayFlags& f) {
   std::vector<PlannedCase> cases;
   std::set<std::string> names;
   for (const auto& dir : folders) {
-    PlannedCase p{read_case(dir), std::nullopt, dir};
+    PlannedCase p{read_case(dir), std::nullopt, dir, {}};
     // Names must be unique in a record; two corpora may reuse one.
     if (!names.insert(p.c.name).second) {
       p.c.name += "@" + dir.string();

@@ -88,7 +88,8 @@ struct DetectorOptions {
 };
 
 /// Returns: a non_finite fault when `out` (or `lse`) holds NaN/Inf where `ref`
-/// is finite, outside fully masked rows; else nothing.
+/// is finite, outside fully masked rows; else nothing. Rows the reference left
+/// out (CoreReference::unsampled) count as finite: every one is still checked.
 std::optional<Fault> detect_non_finite(const KernelRun& run, const CoreReference& ref);
 std::optional<Fault> detect_non_finite(const KernelRun& run, const BlockReference& ref);
 

@@ -49,6 +49,18 @@ struct CaseRequest {
 /// block level, or a shrink path index past the shrinks there are.
 Case make_case(const CaseRequest& req);
 
+/// What make_case(req) gives, without its values: cheap (no tensor is made).
+struct CaseOutline {
+  std::string name;  ///< the case's name, as make_case gives it
+  Level level = Level::core;
+  CoreShape shape;   ///< the attention's shape (inside a block too)
+  MaskKind mask = MaskKind::none;
+  std::int64_t model_dim = 1;  ///< block level; 1 for core
+};
+
+/// Returns: the outline of make_case(req). Throws: InputError as make_case.
+CaseOutline case_outline(const CaseRequest& req);
+
 /// Returns: the family's generator with the request's shape, mask and level
 /// fixed; req.seed, req.size and req.shrink_path are not used (the Random and
 /// size passed to it are). Cases carry a replay command only when run with

@@ -45,11 +45,22 @@ bool in_shard(const std::string& name, const Shard& s);
 std::string case_folder_name(const std::string& name);
 
 /// One case to run, and the request that recreates it from nothing (absent for a case read from a folder).
+/// A case with a request and an empty c.name is made when its turn comes
+/// (planned() below), so a suite of production-sized cases never holds more
+/// than one case's tensors at a time.
 struct PlannedCase {
   Case c;
   std::optional<CaseRequest> request;
   std::filesystem::path folder;  ///< where the case was read from, when it was
+  std::string name;              ///< the case's name when c is not made yet (c.name otherwise)
+
+  /// Returns: the case's name.
+  const std::string& case_name() const { return c.name.empty() ? name : c.name; }
 };
+
+/// Returns: the case of `r`, to be made by run_cases when its turn comes
+/// (name from case_outline, no values yet). Throws: InputError as make_case.
+PlannedCase planned(const CaseRequest& r);
 
 struct RunnerOptions {
   JudgeOptions judge;

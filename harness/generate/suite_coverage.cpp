@@ -1,0 +1,102 @@
+// headroom — what a suite covers, from its requests' outlines (suite.h); user shapes and family filters.
+#include <algorithm>
+#include <map>
+#include <set>
+
+#include "headroom/families.h"
+#include "headroom/input_error.h"
+#include "headroom/suite.h"
+#include "suite_builder.h"
+
+namespace headroom {
+
+std::vector<CaseRequest> shape_requests(const std::vector<CoreShape>& shapes, int seeds) {
+  generate_internal::SuiteBuilder b;
+  std::uint64_t seed = 1;
+  for (const CoreShape& s : shapes)
+    for (std::string_view f : generate_internal::kShapeFamilies)
+      for (int k = 0; k < seeds; ++k, ++seed) {
+        b.add(f, seed, kDefaultSize, s);
+        if (s.q_len != 1) b.add(f, seed, kDefaultSize, s, MaskKind::causal_bottom_right);
+      }
+  return b.take();
+}
+
+std::vector<CaseRequest> only_families(std::vector<CaseRequest> requests, const std::vector<std::string>& families) {
+  if (families.empty()) return requests;
+  for (const std::string& f : families)
+    if (!find_family(f)) {
+      std::string names;
+      for (const FamilyInfo& i : kFamilies) names += (names.empty() ? "" : ", ") + std::string(i.name);
+      throw InputError("command line", "--family " + f, "is no generator family", "use one of: " + names);
+    }
+  std::erase_if(requests, [&](const CaseRequest& r) {
+    return std::find(families.begin(), families.end(), r.family) == families.end();
+  });
+  return requests;
+}
+
+SuiteCoverage suite_coverage(const std::vector<CaseRequest>& requests) {
+  SuiteCoverage c;
+  std::set<std::pair<std::int64_t, std::int64_t>> dims;
+  std::set<std::int64_t> groups;
+  std::set<MaskKind> masks;
+  std::set<std::string> fams;
+  for (const CaseRequest& r : requests) {
+    const CaseOutline o = case_outline(r);
+    const CoreShape& s = o.shape;
+    ++c.cases;
+    if (o.level == Level::block) ++c.block_cases;
+    c.max_kv_len = std::max(c.max_kv_len, s.kv_len);
+    c.max_q_len = std::max(c.max_q_len, s.q_len);
+    c.max_batch = std::max(c.max_batch, s.batch);
+    if (s.kv_len >= 4096) ++c.long_cases;
+    dims.insert({s.key_dim, s.value_dim});
+    groups.insert(s.q_heads / s.kv_heads);
+    masks.insert(o.mask);
+    fams.insert(r.family);
+  }
+  for (auto [dk, dv] : dims) {
+    if (std::min(dk, dv) < kProductionHeadDim) {
+      ++c.small_head_dims;
+      c.largest_small_dim = std::max({c.largest_small_dim, dk, dv});
+      if (dk % 8 != 0 || dv % 8 != 0) ++c.odd_head_dims;
+      continue;
+    }
+    c.head_dims.push_back(dk == dv ? std::to_string(dk) : std::to_string(dk) + "/" + std::to_string(dv));
+  }
+  c.group_sizes.assign(groups.begin(), groups.end());
+  for (MaskKind m : masks) c.masks.emplace_back(mask_kind_name(m));
+  for (const FamilyInfo& f : kFamilies)
+    if (fams.count(std::string(f.name))) c.families.emplace_back(f.name);
+  return c;
+}
+
+std::vector<std::string> coverage_text(const SuiteCoverage& c) {
+  auto join = [](const auto& v) {
+    std::string out;
+    for (const auto& x : v) {
+      if (!out.empty()) out += ", ";
+      if constexpr (std::is_same_v<std::decay_t<decltype(x)>, std::string>)
+        out += x;
+      else
+        out += std::to_string(x);
+    }
+    return out;
+  };
+  return {
+      "cases: " + std::to_string(c.cases) + " (" + std::to_string(c.block_cases) + " block level, " +
+          std::to_string(c.long_cases) + " with Tk >= 4096)",
+      "largest Tk: " + std::to_string(c.max_kv_len) + "; largest Tq: " + std::to_string(c.max_q_len) +
+          "; largest batch: " + std::to_string(c.max_batch),
+      "head dims (Dk or Dk/Dv) from 64: " + (c.head_dims.empty() ? std::string("none") : join(c.head_dims)) +
+          "; and " + std::to_string(c.small_head_dims) + " smaller pairs up to " + std::to_string(c.largest_small_dim) +
+          " (" + std::to_string(c.odd_head_dims) + " with a dim not a multiple of 8)",
+      "group sizes (Hq/Hkv): " + join(c.group_sizes),
+      "masks: " + join(c.masks),
+      "families: " + std::to_string(c.families.size()) + " of " + std::to_string(std::size(kFamilies)),
+      "formats: the kernel's own (each case is rounded or quantised to the input format it declares)",
+  };
+}
+
+}  // namespace headroom
