@@ -17,7 +17,12 @@ std::vector<CaseRequest> shape_requests(const std::vector<CoreShape>& shapes, in
     for (std::string_view f : generate_internal::kShapeFamilies)
       for (int k = 0; k < seeds; ++k, ++seed) {
         b.add(f, seed, kDefaultSize, s);
-        if (s.q_len != 1) b.add(f, seed, kDefaultSize, s, MaskKind::causal_bottom_right);
+        CaseRequest own;
+        own.family = std::string(f);
+        own.seed = seed;
+        own.shape = s;
+        if (case_outline(own).mask != MaskKind::causal_bottom_right)
+          b.add(f, seed, kDefaultSize, s, MaskKind::causal_bottom_right);
       }
   return b.take();
 }

@@ -48,12 +48,12 @@ void production_sections(SuiteBuilder& b, Depth depth, std::uint64_t base) {
       b.add(family_at(d + f), seed++, 100, shape(1, 8, 2, 16, 513, dk, dv), serving_mask(turn));
     }
 
-  // Group sizes: decode (Tq 1) and a chunk of 16 query rows, Tk crossing 1024.
+  // Group sizes: decode (Tq 1) and a chunk of 8 query rows, Tk crossing 1024.
   const std::size_t per_group = deep ? 6 : 3;
   for (std::size_t g = 0; g < kGroups.size(); ++g)
     for (std::size_t f = 0; f < per_group; ++f, ++turn) {
       const auto [hq, hkv] = kGroups[g];
-      b.add(family_at(3 * g + f), seed++, 100, shape(1, hq, hkv, f % 2 == 0 ? 16 : 1, 1025, 128, 128),
+      b.add(family_at(3 * g + f), seed++, 100, shape(1, hq, hkv, f % 2 == 0 ? 8 : 1, 1025, 128, 128),
             serving_mask(turn));
     }
 
@@ -69,7 +69,7 @@ void production_sections(SuiteBuilder& b, Depth depth, std::uint64_t base) {
   const int top = deep ? 16 : 14;
   for (int k = 8; k <= top; ++k) {
     const std::int64_t p = std::int64_t{1} << k;
-    const std::int64_t tq = k <= 9 ? 192 : k <= 11 ? 32 : k <= 13 ? 4 : 1;
+    const std::int64_t tq = k == 8 ? 192 : k == 9 ? 96 : k == 10 ? 32 : k == 11 ? 16 : k <= 13 ? 4 : 1;
     // Fewer heads as Tk grows keeps each tensor near 2^22 elements.
     const std::int64_t hq = k <= 14 ? 8 : 4, hkv = k <= 12 ? 2 : 1;
     const std::int64_t dim = k <= 14 ? 128 : 64;

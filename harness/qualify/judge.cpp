@@ -111,6 +111,12 @@ std::vector<std::uint8_t> sample_rows(const CoreShape& s, std::int64_t key_rows)
   return pick;
 }
 
+int leak_patterns_for(const CoreShape& s, int most) {
+  const std::int64_t work = s.batch * s.q_heads * s.q_len * s.kv_len * (s.key_dim + s.value_dim);
+  const std::int64_t fit = kLeakProbeWork / std::max<std::int64_t>(1, 3 * work);
+  return static_cast<int>(std::clamp<std::int64_t>(fit, 1, std::max(1, most)));
+}
+
 bool receives_alike(const KernelDeclaration& a, const KernelDeclaration& b) {
   return a.level == b.level && a.input_format == b.input_format && a.output_format == b.output_format &&
          a.q_quant == b.q_quant && a.k_quant == b.k_quant && a.v_quant == b.v_quant;
@@ -228,7 +234,10 @@ Judgement judge_case(AttachedKernel& k, const Case& c, const JudgeOptions& opt, 
   // the detectors below share the sample, and every row is still checked for
   // non-finite output and the masked-row convention.
   DetectorOptions detect = opt.detect;
-  if (c.level == Level::core) detect.reference.rows = sample_rows(c.core.shape);
+  if (c.level == Level::core) {
+    detect.reference.rows = sample_rows(c.core.shape);
+    detect.max_leak_patterns = leak_patterns_for(c.core.shape, detect.max_leak_patterns);
+  }
   const AnyReference ref = reference_of(rc.received, detect.reference);
   j.score = score_of(first, ref, d.output_format);
   condition_on_scores(*j.score, rc.received);

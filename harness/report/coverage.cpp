@@ -1,4 +1,5 @@
 // headroom — what a run tried, what it did not, and what its verdict could mislead about (run_summary.h).
+#include <algorithm>
 #include <charconv>
 #include <set>
 
@@ -29,6 +30,20 @@ std::vector<std::string> absent(const Names& names, const std::map<std::string, 
     if (!seen.count(std::string(n))) out.emplace_back(n);
   return out;
 }
+
+// RunRecord::skipped lines are "<case name>: <reason>"; case names hold no ": ".
+std::vector<std::pair<std::string, std::size_t>> skipped_reasons(const RunRecord& r) {
+  std::map<std::string, std::size_t> count;
+  for (const auto& line : r.skipped) {
+    const auto at = line.find(": ");
+    ++count[at == std::string::npos ? std::string("no reason recorded") : line.substr(at + 2)];
+  }
+  std::vector<std::pair<std::string, std::size_t>> out(count.begin(), count.end());
+  std::stable_sort(out.begin(), out.end(), [](const auto& a, const auto& b) { return a.second > b.second; });
+  return out;
+}
+
+std::string cases_text(std::size_t n) { return n == 1 ? "1 case" : fmt::format("{} cases", n); }
 
 void add_cautions(const RunRecord& r, Coverage& cov) {
   auto& say = cov.cautions;
@@ -85,6 +100,18 @@ void add_cautions(const RunRecord& r, Coverage& cov) {
 }
 
 }  // namespace
+
+std::string skipped_headline(const RunRecord& r) {
+  if (r.skipped.empty()) return {};
+  const std::size_t total = r.skipped.size() + r.cases.size();
+  std::string out = r.skipped.size() > r.cases.size() ? "MOST OF THE SUITE WAS SKIPPED. " : "";
+  out += fmt::format("Skipped {} of {} (not run, outside the kernel's declaration):", r.skipped.size(),
+                     cases_text(total));
+  const auto reasons = skipped_reasons(r);
+  for (std::size_t i = 0; i < reasons.size(); ++i)
+    out += fmt::format("{} {}: {}", i ? ";" : "", reasons[i].first, cases_text(reasons[i].second));
+  return out + ".";
+}
 
 std::optional<ShapeExtents> parse_shape(const std::string& level, const std::string& shape) {
   std::vector<std::int64_t> v;
@@ -148,6 +175,7 @@ Coverage coverage(const RunRecord& r) {
     }
   }
   cov.skipped = r.skipped.size();
+  cov.skipped_reasons = skipped_reasons(r);
   std::vector<std::string> family_names, mask_names, format_names;
   for (const auto& f : families()) family_names.emplace_back(f.name);
   for (MaskKind m : kMaskKinds) mask_names.emplace_back(mask_kind_name(m));

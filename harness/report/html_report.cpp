@@ -135,6 +135,7 @@ std::string html_report(const RunRecord& r) {
                    pass ? "PASS" : "FAIL", kStyle);
   o += fmt::format("<h1>headroom review: {} — <span class=\"verdict-{}\">{}</span>{}</h1>\n", h(r.kernel),
                    pass ? "pass" : "fail", pass ? "PASS" : "FAIL", h(r.verdict_line().substr(r.verdict().size())));
+  if (const std::string skipped = skipped_headline(r); !skipped.empty()) o += "<p><b>" + h(skipped) + "</b></p>\n";
   o += "<table>\n";
   for (const auto& f : report_detail::run_facts(r)) o += table_row({"<b>" + h(f.label) + "</b>", h(f.text)}, "td");
   o += "</table>\n";

@@ -55,6 +55,7 @@ std::string markdown_report(const RunRecord& r) {
   std::string md = fmt::format("# headroom review: {} — {}{}\n\n", markdown_cell(r.kernel),
                                r.verdict() == "pass" ? "PASS" : "FAIL", r.verdict_line().substr(r.verdict().size()));
 
+  if (const std::string skipped = skipped_headline(r); !skipped.empty()) md += "**" + markdown_cell(skipped) + "**\n\n";
   md += row({"", ""}) + rule("ll");
   for (const auto& f : report_detail::run_facts(r)) md += row({"**" + f.label + "**", markdown_cell(f.text)});
   md += fmt::format("\n> {}\n\n", kEvidenceNotProof);

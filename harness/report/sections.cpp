@@ -77,7 +77,10 @@ std::vector<Line> coverage_lines(const Coverage& cov) {
                  list_or(cov.formats_not_tried, "none") +
                      (cov.formats_not_tried.empty() ? "" : " (a kernel has one input format: qualify a kernel of each)")});
   out.push_back({"Largest scaled score |z|", cov.logit_scale.empty() ? "—" : figure_text(cov.logit_scale.high)});
-  out.push_back({"Skipped (not run)", cases_text(cov.skipped)});
+  std::string skipped = cases_text(cov.skipped);
+  for (std::size_t i = 0; i < cov.skipped_reasons.size(); ++i)
+    skipped += fmt::format("{} {}: {}", i ? ";" : ":", cov.skipped_reasons[i].first, cases_text(cov.skipped_reasons[i].second));
+  out.push_back({"Skipped (not run)", skipped});
   return out;
 }
 

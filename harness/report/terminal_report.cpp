@@ -77,6 +77,7 @@ std::string terminal_summary(const RunRecord& r, bool colour) {
   std::string out = fmt::format("{} {} ({} → {}), suite {}, shard {}, budget {}: {}\n", paint("headroom", kBold, colour),
                                 r.kernel, r.input_format, r.output_format, r.suite, r.shard, r.budget,
                                 paint(verdict, verdict_colour, colour) + r.verdict_line().substr(verdict.size()));
+  if (const std::string skipped = skipped_headline(r); !skipped.empty()) out += "  " + skipped + "\n";
 
   // Only the figures a limit applies to: a worst figure beside no limit says
   // nothing about the verdict (an int8 kernel's ULP error, say).

@@ -69,6 +69,15 @@ inline constexpr std::int64_t kJudgedKeyRows = std::int64_t{1} << 20;
 /// still checked for non-finite output and the masked-row convention.
 std::vector<std::uint8_t> sample_rows(const CoreShape& s, std::int64_t key_rows = kJudgedKeyRows);
 
+/// Multiply-adds of one kernel call (B·Hq·Tq·Tk·(Dk + Dv)) that the mask-leak
+/// probes of one case may spend in all: each probe is three full calls
+/// (faults.h), so a production-sized case probes fewer masked-key sets.
+inline constexpr std::int64_t kLeakProbeWork = std::int64_t{1} << 30;
+
+/// Returns: the masked-key sets to probe for a core case of shape `s`:
+/// `most` when B·Hq·Tq·Tk·(Dk+Dv)·3·most ≤ kLeakProbeWork, else fewer, at least 1.
+int leak_patterns_for(const CoreShape& s, int most);
+
 /// Returns: "B,Hq,Hkv,Tq,Tk,Dk,Dv" (core) or "B,Tq,Tk,Dm,Hq,Hkv,Dk,Dv" (block).
 std::string shape_text(const Case& c);
 

@@ -132,6 +132,8 @@ struct Coverage {
   std::size_t unparsed_shapes = 0;
   ValueRange logit_scale;
   std::size_t skipped = 0;
+  /// Skipped cases per reason (the text after "name: " in RunRecord::skipped), most frequent first.
+  std::vector<std::pair<std::string, std::size_t>> skipped_reasons;
   /// Plain statements of what a reader could wrongly conclude from the
   /// verdict (no masked case, no long sequence, no block level, ...), one each.
   std::vector<std::string> cautions;
@@ -146,6 +148,12 @@ inline constexpr double kFloat32ExpOverflow = 88.72283905206835;
 
 /// Returns: the coverage of the record.
 Coverage coverage(const RunRecord& r);
+
+/// Returns: empty when no case was skipped; else one line for a report's first
+/// lines: "Skipped 14 of 80 cases (not run): key dim 80 not declared (64, 128):
+/// 14 cases." — led by "MOST OF THE SUITE WAS SKIPPED" when skipped cases
+/// outnumber those run, so a pass over the rest is not read as a pass over all.
+std::string skipped_headline(const RunRecord& r);
 
 /// The sentence every report carries (DESIGN.md: a pass is evidence, not proof).
 inline constexpr const char* kEvidenceNotProof =

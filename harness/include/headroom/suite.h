@@ -56,8 +56,9 @@ std::vector<CaseRequest> suite_requests(std::string_view name);
 
 /// Returns: every adversarial family (the core families that take any fixed
 /// shape) at each of `shapes`, `seeds` seeds each, under the family's own
-/// mask and, for Tq ≠ 1, also causal bottom-right (decode and prefill): the
-/// requests behind `qualify --shape` and `--shapes`.
+/// mask and under causal bottom-right (decode: every key visible; prefill:
+/// the causal mask serving uses), once when they coincide: the requests
+/// behind `qualify --shape` and `--shapes`.
 std::vector<CaseRequest> shape_requests(const std::vector<CoreShape>& shapes, int seeds = 1);
 
 /// Returns: the requests whose family is one of `families` (all when empty).
