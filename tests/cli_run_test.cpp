@@ -58,7 +58,10 @@ TEST(Cli, ExitCodesSayPassFailAndBadInput) {
 
 TEST(Cli, KilledRunResumesToTheUninterruptedRecord) {
   const auto dir = fresh_dir("resume");
-  const std::string common = "qualify --kernel f32_tiled_16 --suite standard --no-isolation --determinism-runs 1 ";
+  // Standard's small families (its production-shaped sections would make this slow).
+  const std::string common = "qualify --kernel f32_tiled_16 --suite standard --family masks --family tile_edges "
+                             "--family ragged --family long_sequence --family block_gaussian --no-isolation "
+                             "--determinism-runs 1 ";
   ASSERT_EQ(run(common + "--json " + (dir / "whole.json").string()), 0);
 
   const fs::path out = dir / "cut.json", journal = dir / "cut.json.journal";

@@ -62,9 +62,6 @@ std::vector<CaseRequest> quick() {
   b.add("long_sequence", 501, 0);
   b.add("block_gaussian", 601, 20, shape(1, 4, 2, 8, 8, 8, 8));
   full_head_blocks(b, 901, 1);
-  // A taste of production shapes, kept cheap: head dim 128 and 64, Tk past 256 and 1024.
-  b.add("gaussian", 951, 100, shape(1, 8, 2, 4, 257, 128, 128), MaskKind::causal_bottom_right);
-  b.add("attention_sink", 952, 100, shape(2, 4, 1, 1, 1025, 64, 64), MaskKind::key_padding);
   return b.take();
 }
 
