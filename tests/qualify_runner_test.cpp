@@ -35,7 +35,7 @@ TEST(Runner, DeclinedCaseIsSkippedWithItsReasonNotAFault) {
   req.seed = 1;
   req.size = 10;
   req.level = Level::core;
-  const std::vector<PlannedCase> cases{{make_case(req), req, {}}};
+  const std::vector<PlannedCase> cases{{make_case(req), req, {}, {}}};
   RunnerOptions opt;
   opt.judge.detect.run.isolate = false;
   opt.apply_budget = budget_applier(default_budget(Format::float32));
