@@ -166,6 +166,11 @@ std::vector<Recipe> shrink_candidates(const Recipe& r) {
   for (std::size_t k = 0; k < r.knobs.size(); ++k)
     for (std::int64_t v : toward(r.knobs[k], 0)) edit([&](Recipe& c) { c.knobs[k] = static_cast<int>(v); });
   for (std::int64_t v : toward(r.value_bits, 1)) edit([&](Recipe& c) { c.value_bits = static_cast<int>(v); });
+  // Fewer heads with the same group size (a kernel specialised per group keeps
+  // failing): last, so the indices of the shrinks above, which saved shrink
+  // paths name, do not move.
+  const std::int64_t group = s.q_heads / s.kv_heads;
+  for (std::int64_t v : toward(s.kv_heads, 1)) edit([&](Recipe& c) { c.shape.kv_heads = v, c.shape.q_heads = v * group; });
   return out;
 }
 

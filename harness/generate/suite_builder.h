@@ -1,6 +1,7 @@
 // headroom — building a suite's request list (suite.h): the builder and the production sections.
 #pragma once
 
+#include <array>
 #include <cstdint>
 #include <optional>
 #include <string>
@@ -44,6 +45,16 @@ inline constexpr std::string_view kShapeFamilies[] = {
     "gaussian",          "large_logits",        "near_ties",     "dominant_key",      "outlier_channels",
     "sparse_outliers",   "massive_activations", "common_offset", "cancelling_values", "attention_sink",
     "repeated_maxima",   "format_edges"};
+
+// The head dims kernels specialise for (common practice: 64, 80, 96, 128,
+// 192, 256 are the sizes of released decoder models; 192/128 and 128/64 are
+// the Dk ≠ Dv pairs of latent-attention and distilled models).
+inline constexpr std::array<std::pair<std::int64_t, std::int64_t>, 8> kHeadDims{
+    {{64, 64}, {80, 80}, {96, 96}, {128, 128}, {192, 192}, {256, 256}, {192, 128}, {128, 64}}};
+
+// Group sizes 1, 2, 4, 8, 16 at realistic head counts (Hq 32 over Hkv 8, 4, 2).
+inline constexpr std::array<std::pair<std::int64_t, std::int64_t>, 6> kGroups{
+    {{8, 8}, {16, 8}, {32, 8}, {32, 4}, {32, 2}, {16, 1}}};
 
 /// How big a production section is: `standard` or `deep`.
 enum class Depth : unsigned char { standard, deep };

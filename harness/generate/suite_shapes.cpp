@@ -18,16 +18,6 @@ constexpr std::size_t kFamilyCount = std::size(kShapeFamilies);
 
 std::string_view family_at(std::size_t i) { return kShapeFamilies[i % kFamilyCount]; }
 
-// The head dims kernels specialise for (common practice: 64, 80, 96, 128,
-// 192, 256 are the sizes of released decoder models; 192/128 and 128/64 are
-// the Dk ≠ Dv pairs of latent-attention and distilled models).
-constexpr std::array<std::pair<std::int64_t, std::int64_t>, 8> kHeadDims{
-    {{64, 64}, {80, 80}, {96, 96}, {128, 128}, {192, 192}, {256, 256}, {192, 128}, {128, 64}}};
-
-// Group sizes 1, 2, 4, 8, 16 at realistic head counts (Hq 32 over Hkv 8, 4, 2).
-constexpr std::array<std::pair<std::int64_t, std::int64_t>, 6> kGroups{
-    {{8, 8}, {16, 8}, {32, 8}, {32, 4}, {32, 2}, {16, 1}}};
-
 constexpr MaskKind kServingMasks[] = {MaskKind::causal_bottom_right, MaskKind::none, MaskKind::key_padding,
                                       MaskKind::causal_top_left};
 

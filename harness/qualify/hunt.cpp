@@ -6,6 +6,7 @@
 #include "headroom/case_folder.h"
 #include "headroom/families.h"
 #include "headroom/input_error.h"
+#include "headroom/shape_draw.h"
 
 namespace headroom {
 namespace {
@@ -50,6 +51,9 @@ std::vector<CaseRequest> hunt_requests(const HuntOptions& opt, Level level) {
       throw InputError("command line", "--family " + n, "makes cases of the other level than the kernel computes",
                        "choose families of the kernel's level (see `headroom case families`)");
   }
+  if (opt.max_kv_len != 0 && (opt.max_kv_len < 16 || opt.max_kv_len > (std::int64_t{1} << 17)))
+    throw InputError("command line", "--max-kv-len " + std::to_string(opt.max_kv_len), "is outside 16 to 131072",
+                     "give a largest Tk from 16 to 131072 (e.g. 16384), or leave it out for small shapes only");
   std::vector<CaseRequest> reqs;
   if (names.empty()) return reqs;
   for (int i = 0; i < opt.cases; ++i) {
@@ -58,6 +62,8 @@ std::vector<CaseRequest> hunt_requests(const HuntOptions& opt, Level level) {
     r.seed = opt.seed + static_cast<std::uint64_t>(i);
     r.size = opt.cases <= 1 ? kDefaultSize : 10 + (kDefaultSize - 10) * i / (opt.cases - 1);
     r.level = level;
+    if (opt.max_kv_len > 0 && level == Level::core && takes_any_shape(r.family) && draws_production_shape(r.seed))
+      r.shape = draw_production_shape(r.seed, opt.max_kv_len);
     reqs.push_back(r);
   }
   return reqs;

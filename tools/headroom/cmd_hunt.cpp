@@ -15,10 +15,12 @@ struct HuntFlags {
   std::string save;
   std::vector<std::string> families;
   int max_shrink_steps = 200;
+  std::int64_t max_kv_len = 0;
 };
 
 int hunt_main(const HuntFlags& f) {
-  std::string identity = setup_identity(f.run) + " cases " + std::to_string(f.cases) + " seed " + std::to_string(f.seed);
+  std::string identity = setup_identity(f.run) + " cases " + std::to_string(f.cases) + " seed " + std::to_string(f.seed) +
+                         (f.max_kv_len > 0 ? " max-kv-len " + std::to_string(f.max_kv_len) : "");
   for (const auto& fam : f.families) identity += " " + fam;
   RunSetup setup = open_run(f.run, "hunt", identity);
   HuntOptions opt;
@@ -28,6 +30,7 @@ int hunt_main(const HuntFlags& f) {
   opt.families = f.families;
   opt.save = f.save;
   opt.max_shrink_steps = f.max_shrink_steps;
+  opt.max_kv_len = f.max_kv_len;
   HuntResult result = hunt(*setup.kernel, opt);
   for (const auto& h : result.findings)
     std::cout << "found " << h.signature << ": " << h.original << " shrunk in " << h.shrink_steps << " steps to "
@@ -46,6 +49,9 @@ const CommandRegistration reg{"hunt", 30, [](CLI::App& app) {
   cmd->add_option("--save", flags->save, "save each shrunk failing case as a case folder here");
   cmd->add_option("--family", flags->families, "only these families (repeatable); default all of the kernel's level");
   cmd->add_option("--max-shrink-steps", flags->max_shrink_steps, "shrinks judged per failure")->check(CLI::Range(0, 100000));
+  cmd->add_option("--max-kv-len", flags->max_kv_len,
+                  "also draw production shapes (head dims 64-256, groups to 16, batches to 8, lengths tile multiples "
+                  "as often as not) with Tk up to this, for half the cases (16 to 131072; default: small shapes only)");
   cmd->callback([flags] { exit_with(hunt_main(*flags)); });
 }};
 

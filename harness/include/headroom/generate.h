@@ -5,7 +5,7 @@
 // request's shrink path. Shrinking (the Shrinkable's shrinks(), most
 // aggressive first) gives fewer batches and heads, fewer tokens, smaller head
 // and model dims, family knobs towards their simplest setting and base values
-// with fewer significant bits; every shrink is a valid case (validate() is
+// with fewer significant bits, and last fewer heads at the same group size; every shrink is a valid case (validate() is
 // empty) whose surviving elements keep their values, and whose provenance
 // command recreates it.
 #pragma once

@@ -2,7 +2,10 @@
 //
 // `hunt` generates N cases across the generator families of the kernel's level
 // (family i mod F, seed S + i, size growing from small to the default, as
-// RapidCheck ramps its size), judges each, and for each failure walks
+// RapidCheck ramps its size), judges each — with a size knob (max_kv_len),
+// half the cases of the families that take any shape get a production-sized
+// shape instead (shape_draw.h: head dims 64-256, groups to 16, batches to 8,
+// lengths tile multiples as often as not, Tk up to the knob) — and for each failure walks
 // RapidCheck's shrink tree (generate.h) greedily: the first shrink that still
 // fails *the same way* is taken, until none does or the step limit is reached.
 // "The same way" means the same first fault class, or — for a failure of the
@@ -26,6 +29,9 @@ struct HuntOptions {
   std::vector<std::string> families;   ///< empty: every family of the kernel's level
   std::filesystem::path save;          ///< folder for shrunk failing cases (empty: not saved)
   int max_shrink_steps = 200;          ///< judged shrinks per failure, at most
+  /// > 0: a core case of a family that takes any shape gets, with even odds, a
+  /// production shape with Tk up to this (draw_production_shape); 0: small shapes only.
+  std::int64_t max_kv_len = 0;
 };
 
 struct HuntFinding {
@@ -46,7 +52,9 @@ struct HuntResult {
 std::string failure_signature(const CaseRecord& r);
 
 /// Returns: the requests of a hunt, before sharding: family i mod F, seed S + i,
-/// size from 10 up to kDefaultSize.
+/// size from 10 up to kDefaultSize; with opt.max_kv_len, the production shapes
+/// above as the request's fixed shape (so `case make --shape` recreates the case).
+/// Throws: InputError (place "--max-kv-len") for a knob outside [16, 2^17].
 std::vector<CaseRequest> hunt_requests(const HuntOptions& opt, Level level);
 
 /// Returns: the hunt's result on kernel `k`.
