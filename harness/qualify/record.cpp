@@ -7,6 +7,7 @@
 #include <sstream>
 
 #include "headroom/atomic_file.h"
+#include "headroom/error_growth.h"
 #include "headroom/families.h"
 #include "headroom/input_error.h"
 
@@ -172,7 +173,12 @@ nlohmann::json json_number(double x) {
 std::string RunRecord::verdict() const {
   for (const auto& c : cases)
     if (!c.within_budget) return "fail";
-  return "pass";
+  return growth_failures().empty() ? "pass" : "fail";
+}
+
+std::vector<std::string> RunRecord::growth_failures() const {
+  if (std::isnan(growth_limit)) return {};
+  return headroom::growth_failures(error_growth(cases), growth_limit, growth_limit_origin);
 }
 
 std::vector<LevelTake> RunRecord::level_takes() const {
@@ -252,6 +258,30 @@ json to_json(const CaseRecord& c) {
           {"reference_certified", c.reference_certified}};
 }
 
+namespace {
+
+// The fits are derived from the cases (error_growth.h): written for readers, never read back.
+json growth_json(const std::vector<FormatGrowth>& g) {
+  json out = json::array();
+  auto line = [](const GrowthLine& l) {
+    return json{{"exponent", json_number(l.exponent)}, {"intercept", json_number(l.intercept)},
+                {"spread", json_number(l.spread)}};
+  };
+  for (const FormatGrowth& f : g) {
+    json families = json::array();
+    for (const FamilyGrowth& x : f.families)
+      families.push_back({{"family", x.family}, {"cases", x.cases}, {"lengths", x.lengths},
+                          {"min_kv_len", x.min_kv_len}, {"max_kv_len", x.max_kv_len},
+                          {"median", line(x.median)}, {"worst", line(x.worst)}});
+    out.push_back({{"format", f.format}, {"exponent", json_number(f.exponent)}, {"low", json_number(f.low)},
+                   {"high", json_number(f.high)}, {"worst_exponent", json_number(f.worst_exponent)},
+                   {"families", families}});
+  }
+  return out;
+}
+
+}  // namespace
+
 json to_json(const RunRecord& r) {
   json levels = json::array();
   for (const LevelTake& t : r.level_takes())
@@ -275,7 +305,10 @@ json to_json(const RunRecord& r) {
           {"tolerated_faults", r.tolerated_faults},
           {"cases", cases},
           {"skipped", r.skipped},
-          {"warnings", r.warnings}};
+          {"warnings", r.warnings},
+          {"growth_limit", json_number(r.growth_limit)},
+          {"growth_limit_origin", r.growth_limit_origin},
+          {"error_growth", growth_json(error_growth(r.cases))}};
 }
 
 CaseRecord case_record_from_json(const json& j, const std::string& file, const std::string& place) {
@@ -334,6 +367,8 @@ RunRecord run_record_from_json(const json& j, const std::string& file) {
   // Added after schema 1 was first written: records without it still read (as none).
   if (r.has("tolerated_faults")) rec.tolerated_faults = r.strings("tolerated_faults");
   if (r.has("warnings")) rec.warnings = r.strings("warnings");
+  if (r.has("growth_limit")) rec.growth_limit = r.num("growth_limit");
+  if (r.has("growth_limit_origin")) rec.growth_limit_origin = r.str("growth_limit_origin");
   return rec;
 }
 

@@ -97,6 +97,17 @@ const char* const kPlotScript = R"JS(
       tip(el("line", {x1: (x - 6).toFixed(2), x2: (x + 6).toFixed(2), y1: y.toFixed(2), y2: y.toFixed(2),
                       "class": "limit"}, s), c.name + ": scaled-error limit " + c.limit);
     });
+    // Growth fits (error-vs-Tk only): log10 e = intercept + exponent · log10 Tk, over the Tk the family spans.
+    var fits = key === "kv_len" ? (data.growth || []) : [];
+    fits.forEach(function (g) {
+      if (g.exponent === null || g.intercept === null) return;
+      var at = function (tk) { return Math.pow(10, g.intercept + g.exponent * Math.log10(tk)); };
+      var m = el("line", {x1: (M.l + xs.f(g.from) * PW).toFixed(2), y1: (M.t + (1 - ys.f(at(g.from))) * PH).toFixed(2),
+                          x2: (M.l + xs.f(g.to) * PW).toFixed(2), y2: (M.t + (1 - ys.f(at(g.to))) * PH).toFixed(2),
+                          "class": "fit"}, s);
+      tip(m, g.family + " (" + g.format + "): growth exponent " + g.exponent.toFixed(2) + " ± " +
+             (g.spread === null ? "?" : g.spread.toFixed(2)) + " over Tk " + g.from + "–" + g.to);
+    });
     // Failing cases are drawn last so that they stay on top.
     pts.slice().sort(function (a, b) { return (a.pass === b.pass) ? 0 : (a.pass ? -1 : 1); }).forEach(function (c) {
       var m = el("circle", {cx: (M.l + xs.f(c[key]) * PW).toFixed(2), cy: (M.t + (1 - ys.f(c.scaled)) * PH).toFixed(2),
@@ -105,6 +116,7 @@ const char* const kPlotScript = R"JS(
     });
     var left = data.cases.length - pts.length;
     caption(id, pts.length + " cases plotted" + (left ? "; " + left + " without a finite figure not plotted" : "") +
+                (fits.length ? "; " + fits.length + " growth fits drawn" : "") +
                 "; zero values sit on the lower or left edge.");
   }
 

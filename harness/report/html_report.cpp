@@ -34,6 +34,7 @@ pre { background: #f5f6f9; border: 1px solid #e1e4ea; padding: 0.5em 0.8em; over
 .verdict-pass { color: #17702d; } .verdict-fail { color: #b3261e; }
 td.fail, span.fail { color: #b3261e; font-weight: 600; }
 line.limit { stroke: #4a5263; stroke-width: 2; } .key.limit-key { border-top: 2px solid #4a5263; height: 0; }
+line.fit { stroke: #e08a1e; stroke-width: 1.5; stroke-dasharray: 5 3; } .key.fit-key { border-top: 2px dashed #e08a1e; height: 0; }
 blockquote { border-left: 4px solid #8a94a8; margin: 1em 0; padding: 0.3em 1em; background: #f7f8fb; }
 .plots { display: grid; grid-template-columns: repeat(auto-fill, minmax(660px, 1fr)); gap: 1em; }
 figure { margin: 0; border: 1px solid #e1e4ea; padding: 0.6em; background: #fff; }
@@ -104,8 +105,15 @@ json plot_data(const RunRecord& r) {
   }
   json faults = json::array();
   for (const auto& family : family_order) faults.push_back({{"family", family}, {"counts", by_family[family]}});
+  // Each family's fit through its median error (error_growth.h), drawn over the error-vs-Tk plot.
+  json fits = json::array();
+  for (const auto& g : error_growth(r.cases))
+    for (const auto& f : g.families)
+      fits.push_back({{"format", f.format}, {"family", f.family}, {"exponent", plot_number(f.median.exponent)},
+                      {"intercept", plot_number(f.median.intercept)}, {"spread", plot_number(f.median.spread)},
+                      {"from", f.min_kv_len}, {"to", f.max_kv_len}});
   return {{"cases", cases}, {"histogram", {{"counts", counts}, {"labels", labels}}},
-          {"fault_classes", classes}, {"faults", faults}};
+          {"fault_classes", classes}, {"faults", faults}, {"growth", fits}};
 }
 
 std::string h(const std::string& s) { return xml_escape(s); }
@@ -182,11 +190,30 @@ std::string html_report(const RunRecord& r) {
     if (std::string(id) == "kv-len" || std::string(id) == "logit-scale")
       keys = "<br><span class=\"key pass-key\"></span>within budget<span class=\"key fail-key\"></span>failing"
              "<span class=\"key limit-key\"></span>the case's scaled-error limit";
+    if (std::string(id) == "kv-len") keys += "<span class=\"key fit-key\"></span>each family's growth fit (median error)";
     if (std::string(id) == "faults") keys = "<br>" + fault_keys;
     o += fmt::format("<figure id=\"fig-{0}\"><figcaption>{1} <span id=\"note-{0}\"></span>{2}</figcaption></figure>\n",
                      id, h(text), keys);
   }
   o += "</div>\n<noscript><p>The plots are drawn by the page's inline script; enable scripts to see them.</p></noscript>\n";
+
+  o += "<h2>Error growth with Tk</h2>\n";
+  const auto growth = error_growth(r.cases);
+  if (growth.empty()) o += "<p>" + h(report_detail::no_growth_fit_text()) + "</p>\n";
+  o += "<ul>";
+  for (const auto& line : growth_lines(growth)) o += "<li><b>" + h(line) + "</b></li>";
+  for (const auto& f : r.growth_failures()) o += "<li class=\"fail\"><b>Fails the budget:</b> " + h(f) + "</li>";
+  o += "</ul>\n";
+  if (!growth.empty()) {
+    o += "<p>" + h(report_detail::kGrowthNote) + "</p>\n<table class=\"growth\">\n";
+    const auto table = report_detail::growth_table(growth);
+    for (std::size_t i = 0; i < table.size(); ++i) {
+      std::vector<std::string> cells;
+      for (const auto& c : table[i]) cells.push_back(h(c));
+      o += table_row(cells, i == 0 ? "th" : "td");
+    }
+    o += "</table>\n";
+  }
 
   o += "<h2>Error budget</h2>\n<p>Worst figure seen against its limit, per family and format, for each figure a "
        "limit applies to. Limits are resolved at each case's shape, so a range means they differ between the cases of a "

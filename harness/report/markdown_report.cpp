@@ -166,6 +166,21 @@ std::string markdown_report(const RunRecord& r) {
   if (failing == 0) md += "None: every case tried is within budget.\n";
   if (failing > kFailuresListed) md += fmt::format("- … and {} more in the JSON record\n", failing - kFailuresListed);
 
+  md += "\n## Error growth with Tk\n\n";
+  const auto growth = error_growth(r.cases);
+  if (growth.empty()) md += report_detail::no_growth_fit_text() + "\n";
+  for (const auto& line : growth_lines(growth)) md += "- **" + markdown_cell(line) + "**\n";
+  for (const auto& f : r.growth_failures()) md += "- **Fails the budget:** " + markdown_cell(f) + "\n";
+  if (!growth.empty()) {
+    md += fmt::format("\n{}\n\n", report_detail::kGrowthNote);
+    const auto table = report_detail::growth_table(growth);
+    for (std::size_t i = 0; i < table.size(); ++i) {
+      std::vector<std::string> cells;
+      for (const auto& c : table[i]) cells.push_back(markdown_cell(c));
+      md += row(cells) + (i == 0 ? rule("llrrrrr") : "");
+    }
+  }
+
   md += "\n## Coverage\n\n";
   for (const auto& line : report_detail::coverage_lines(cov))
     md += fmt::format("- **{}**: {}\n", line.label, markdown_cell(line.text));

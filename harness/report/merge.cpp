@@ -67,6 +67,8 @@ MergeResult merge_records(const std::vector<MergeInput>& inputs) {
   m.budget = first.record.budget;
   m.tolerated_faults = first.record.tolerated_faults;
   m.warnings = first.record.warnings;  // one budget, one kernel: every shard doubted the same
+  m.growth_limit = first.record.growth_limit;  // the same budget: the merged cases are fitted against it
+  m.growth_limit_origin = first.record.growth_limit_origin;
   m.command = "merge";
   m.shard = "merged";
 

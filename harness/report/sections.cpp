@@ -132,4 +132,21 @@ std::string worst_element_text(const CaseRecord& c) {
   return text;
 }
 
+std::vector<std::vector<std::string>> growth_table(const std::vector<FormatGrowth>& g) {
+  std::vector<std::vector<std::string>> rows{
+      {"family", "format", "Tk", "lengths", "cases", "exponent (median error)", "exponent (worst error)"}};
+  auto pm = [](const GrowthLine& l) { return fmt::format("{:.2f} ± {:.2f}", l.exponent, l.spread); };
+  for (const FormatGrowth& f : g)
+    for (const FamilyGrowth& x : f.families)
+      rows.push_back({x.family, x.format, fmt::format("{}–{}", x.min_kv_len, x.max_kv_len), std::to_string(x.lengths),
+                      std::to_string(x.cases), pm(x.median), pm(x.worst)});
+  return rows;
+}
+
+std::string no_growth_fit_text() {
+  return fmt::format("No growth fit: no family's cases span {} or more distinct Tk over a factor of {:g} (the suites "
+                     "standard and deep, or --shape at several Tk, do).",
+                     kGrowthMinLengths, kGrowthMinSpan);
+}
+
 }  // namespace headroom::report_detail

@@ -8,6 +8,7 @@
 #include <string>
 #include <vector>
 
+#include "headroom/error_growth.h"
 #include "headroom/record.h"
 #include "headroom/run_summary.h"
 
@@ -41,5 +42,18 @@ std::string case_headline(const CaseRecord& c);
 /// Returns: "at b,h,i,d expected <hexfloat> obtained <hexfloat>", or "" when
 /// no element was scored.
 std::string worst_element_text(const CaseRecord& c);
+
+/// What a growth exponent means, with its source, for the error growth section.
+inline constexpr const char* kGrowthNote =
+    "Each family's scaled error fitted against Tk on log-log axes, through the median and through the worst error at "
+    "each Tk; ± is the standard error of the slope. A sound kernel's roundings accumulate like a random walk, an "
+    "exponent about 0.5 (Higham & Mary, SIAM J. Sci. Comput. 41(5), 2019); about 1 is an error that grows with every "
+    "key.";
+
+/// Returns: the header and one row per fitted family: family, format, Tk range,
+/// lengths, cases, "0.52 ± 0.04" through the median and through the worst.
+std::vector<std::vector<std::string>> growth_table(const std::vector<FormatGrowth>& g);
+/// Returns: the line saying why no fit was made (no family spans enough lengths).
+std::string no_growth_fit_text();
 
 }  // namespace headroom::report_detail

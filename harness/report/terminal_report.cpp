@@ -11,6 +11,7 @@
 
 #include <fmt/format.h>
 
+#include "headroom/error_growth.h"
 #include "headroom/run_summary.h"
 #include "headroom/scores.h"
 
@@ -149,6 +150,8 @@ std::string terminal_summary(const RunRecord& r, bool colour) {
                                              figure_text(total.worst_rel_rmse));
     out += worst + "\n";
   }
+  for (const auto& g : growth_lines(error_growth(r.cases))) out += "  " + g + "\n";
+  for (const auto& f : r.growth_failures()) out += "  " + paint("fails the budget: " + f, kRed, colour) + "\n";
   if (!r.skipped.empty()) {
     // Why, not only how many: the reasons, most frequent first.
     std::map<std::string, std::size_t> why;

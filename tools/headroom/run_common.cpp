@@ -153,6 +153,11 @@ RunSetup open_run(const RunFlags& f, const std::string& command, const std::stri
 int finish_run(RunRecord& record, const RunFlags& f, const RunSetup& setup) {
   record.budget = setup.budget.source;
   record.warnings = setup.warnings;
+  const Limit& growth = setup.budget.for_kernel(setup.kernel->declaration()).max_growth_exponent;
+  if (growth.kind == Limit::Kind::fixed) {
+    record.growth_limit = growth.value;
+    record.growth_limit_origin = growth.origin;
+  }
   if (!f.json.empty()) write_run_record(record, f.json);
   // The record is safe on disk: the journal has done its job.
   if (setup.journal) {

@@ -7,6 +7,8 @@
 //   max_rel_rmse        relative RMSE, RMSE / RMS(o*)
 //   max_ratio_to_plain  both ratios to the textbook kernel of the format (PlainRatio)
 //   tolerated_faults    fault classes that do not fail the case (normally none)
+//   max_growth_exponent the largest error growth exponent of the run (error_growth.h;
+//                       a fixed number or none, the default): fails the run, not a case
 // A limit is fixed (a number), absent ("none"), or probabilistic: it grows with
 // the case's accumulation length n like λ·√n·u_w — the probabilistic rounding
 // error bound of Higham & Mary (SIAM J. Sci. Comput. 41(5), 2019, Thm 3.1:
@@ -66,6 +68,7 @@ struct Limit {
 /// The limits for one kernel, all sections resolved.
 struct KernelBudget {
   Limit max_ulp, max_scaled_error, max_rel_rmse, max_ratio_to_plain;
+  Limit max_growth_exponent;  ///< fixed or none; checked over the run (RunRecord::growth_limit)
   std::vector<FaultClass> tolerated_faults;
   std::string tolerated_origin;
   /// Precision p_s of the arithmetic the kernel forms scores in (u_s = 2^-p_s).
@@ -100,7 +103,7 @@ KernelBudget default_budget(Format input);
 
 /// Any subset of the keys, as one section of a budget file sets them.
 struct BudgetSection {
-  std::optional<Limit> max_ulp, max_scaled_error, max_rel_rmse, max_ratio_to_plain;
+  std::optional<Limit> max_ulp, max_scaled_error, max_rel_rmse, max_ratio_to_plain, max_growth_exponent;
   std::optional<std::vector<FaultClass>> tolerated_faults;
   std::string tolerated_origin;
   std::optional<int> score_bits;

@@ -99,8 +99,13 @@ struct RunRecord {
   std::vector<std::string> tolerated_faults;  ///< fault classes the budget tolerates; optional on read (absent: none)
   std::vector<std::string> warnings;  ///< what the run doubted in its input (a budget section naming no kernel of
                                       ///< the run); optional on read (absent: none)
+  /// The budget's max_growth_exponent: the largest error growth exponent
+  /// (error_growth.h) a format may show; NaN: none. Optional on read (absent: none).
+  double growth_limit = std::numeric_limits<double>::quiet_NaN();
+  std::string growth_limit_origin;  ///< where it was set, e.g. "budget.toml line 4"
 
-  /// Returns: "pass" when every case is within budget, else "fail".
+  /// Returns: "pass" when every case is within budget and no format's error
+  /// growth exponent is above growth_limit (growth_failures()), else "fail".
   std::string verdict() const;
   /// Returns: per level with at least one case run (declined included), in
   /// the order core, block, how many of its cases the kernel took. A skipped
@@ -110,6 +115,8 @@ struct RunRecord {
   /// kernel took, e.g. "pass on 2 of 21 block cases" (every report face and
   /// the JSON "verdict_line" show this, so thin coverage is never a plain pass).
   std::string verdict_line() const;
+  /// Returns: error_growth.h growth_failures() of the cases against growth_limit.
+  std::vector<std::string> growth_failures() const;
   /// Returns: fault counts summed over all cases, by class name.
   std::map<std::string, int> fault_totals() const;
 };
