@@ -5,6 +5,7 @@
 
 #include <filesystem>
 #include <fstream>
+#include <map>
 #include <string>
 
 #include "cli_support.h"
@@ -65,6 +66,35 @@ TEST(Replay, ExternalProgramLineUsesKernelCmd) {
   ASSERT_NE(c, nullptr);
   EXPECT_NE(c->replay.find(" replay --kernel-cmd '" + program + "' --budget b.toml"), std::string::npos) << c->replay;
   EXPECT_EQ(shell(c->replay, dir), 1) << c->replay;
+}
+
+TEST(Replay, ACorpusIsReadOneFolderAtATimeAndKeepsNamesUnique) {
+  // Folders are planned first (each read whole, so a malformed one is refused
+  // before anything runs) and read again when their turn comes. Two corpora
+  // holding the same case give two records, the second named after its folder.
+  const auto dir = fresh_dir("two_corpora");
+  const fs::path one = kSource + "/corpora/no_max_shift";
+  fs::copy(one, dir / "copy", fs::copy_options::recursive);
+  ASSERT_EQ(shell(kTool + " replay --kernel f32_textbook --determinism-runs 1 --json run.json " + one.string() + " copy",
+                  dir),
+            0);
+  const RunRecord r = read_run_record(dir / "run.json");
+  std::map<std::string, const CaseRecord*> by_name;
+  for (const auto& c : r.cases) by_name[c.name] = &c;
+  std::size_t pairs = 0;
+  for (const auto& c : r.cases) {
+    const std::size_t at = c.name.find('@');
+    if (at == std::string::npos) continue;
+    ++pairs;
+    EXPECT_EQ(c.name.compare(at + 1, 5, "copy/"), 0) << c.name << ": named after the copy's folder";
+    const auto twin = by_name.find(c.name.substr(0, at));
+    ASSERT_NE(twin, by_name.end()) << c.name;
+    // The same values judged again: the same figures, bit for bit.
+    EXPECT_EQ(c.figures.max_scaled_error, twin->second->figures.max_scaled_error) << c.name;
+    EXPECT_EQ(c.figures.rmse, twin->second->figures.rmse) << c.name;
+  }
+  EXPECT_GT(pairs, 0u);
+  EXPECT_EQ(2 * pairs, r.cases.size()) << "every case of the copy is named after its folder";
 }
 
 }  // namespace

@@ -2,6 +2,13 @@
 // verdict, and a case the kernel declines listed as skipped, not as a fault.
 #include <gtest/gtest.h>
 
+#include <unistd.h>
+
+#include <filesystem>
+#include <string>
+#include <vector>
+
+#include "headroom/case_folder.h"
 #include "headroom/generate.h"
 #include "headroom/qualify.h"
 
@@ -17,7 +24,9 @@ class Declining : public AttachedKernel {
     decl_.masked_row = MaskedRowConvention::zeros;
   }
   const KernelDeclaration& declaration() const override { return decl_; }
-  KernelRun run(const ReceivedCase&, const RunOptions&) override {
+  std::vector<double> seen_q;  ///< Q as the last call received it
+  KernelRun run(const ReceivedCase& rc, const RunOptions&) override {
+    seen_q = rc.received.core_inputs.q.values;
     KernelRun r;
     r.status = RunStatus::unsupported;
     r.detail = "the kernel returned HR_UNSUPPORTED";
@@ -49,6 +58,38 @@ TEST(Runner, DeclinedCaseIsSkippedWithItsReasonNotAFault) {
   EXPECT_EQ(r.verdict(), "pass");
   // Declining everything is no plain pass: the level's cases were offered and not taken.
   EXPECT_EQ(r.verdict_line(), "pass on 0 of 1 core cases");
+}
+
+TEST(Runner, AFolderIsReadWhenItsTurnComesNotWhenPlanned) {
+  // A corpus of production-sized cases must not be held whole: planned(dir)
+  // keeps the folder's name and path only, and run_cases reads it when it runs.
+  CaseRequest req;
+  req.family = "gaussian";
+  req.seed = 1;
+  req.size = 10;
+  req.level = Level::core;
+  const auto dir = std::filesystem::temp_directory_path() / ("headroom_runner_turn_" + std::to_string(getpid()));
+  std::filesystem::remove_all(dir);
+  write_case(make_case(req), dir);
+  const PlannedCase p = planned(dir);
+  EXPECT_TRUE(p.c.name.empty());
+  EXPECT_TRUE(p.c.core_inputs.q.values.empty()) << "planning holds no tensor";
+  EXPECT_EQ(p.case_name(), make_case(req).name);
+
+  // The folder changes after planning: the kernel receives what it holds then.
+  req.seed = 2;
+  const Case later = make_case(req);
+  std::filesystem::remove_all(dir);
+  write_case(later, dir);
+  Declining k;
+  RunnerOptions opt;
+  opt.judge.detect.run.isolate = false;
+  opt.apply_budget = budget_applier(default_budget(Format::float32));
+  const RunRecord r = run_cases(k, {p}, opt);
+  ASSERT_EQ(r.skipped.size(), 1u);
+  EXPECT_EQ(r.skipped[0].rfind(p.case_name() + ": ", 0), 0u) << "named as planned: " << r.skipped[0];
+  EXPECT_EQ(k.seen_q, later.core_inputs.q.values);
+  std::filesystem::remove_all(dir);
 }
 
 TEST(Runner, ReplayCommandsCarryTheBinaryTheKernelOptionAndTheJudgingOptions) {

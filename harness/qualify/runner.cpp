@@ -101,6 +101,13 @@ PlannedCase planned(const CaseRequest& r) {
   return p;
 }
 
+PlannedCase planned(const std::filesystem::path& dir, const std::string& name) {
+  PlannedCase p;
+  p.folder = dir;
+  p.name = name.empty() ? read_case(dir).name : name;
+  return p;
+}
+
 RunRecord run_cases(AttachedKernel& k, const std::vector<PlannedCase>& cases, const RunnerOptions& opt,
                     std::vector<std::string>* skipped) {
   const KernelDeclaration& d = k.declaration();
@@ -126,9 +133,13 @@ RunRecord run_cases(AttachedKernel& k, const std::vector<PlannedCase>& cases, co
         continue;
       }
     }
-    // A planned case is made now, and freed when the next one is.
+    // A planned case is made or read now, and freed when the next one is.
     std::optional<Case> made;
     if (p->c.name.empty() && p->request) made = make_case(*p->request);
+    if (p->c.name.empty() && !p->request && !p->folder.empty()) {
+      made = read_case(p->folder);
+      made->name = p->name;  // a corpus's duplicate names were made unique when planned
+    }
     const Case& c = made ? *made : p->c;
     const std::string replay = p->request
                                    ? make_and_replay_command(opt, d.name, *p->request, "case-" + case_folder_name(c.name))

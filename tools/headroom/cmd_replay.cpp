@@ -43,11 +43,13 @@ int replay_main(const ReplayFlags& f) {
   std::vector<PlannedCase> cases;
   std::set<std::string> names;
   for (const auto& dir : folders) {
-    PlannedCase p{read_case(dir), std::nullopt, dir, {}};
+    // One case folder in memory at a time: read here (a malformed folder is
+    // refused before anything runs), then again when its turn comes.
+    PlannedCase p = planned(dir);
     // Names must be unique in a record; two corpora may reuse one.
-    if (!names.insert(p.c.name).second) {
-      p.c.name += "@" + dir.string();
-      names.insert(p.c.name);
+    if (!names.insert(p.name).second) {
+      p.name += "@" + dir.string();
+      names.insert(p.name);
     }
     cases.push_back(std::move(p));
   }

@@ -55,7 +55,7 @@ inline ::testing::AssertionResult WithinBudget(const std::string& kernel_spec, c
                           " --determinism-runs 3";
     opt.apply_budget = budget_applier(budget.for_kernel(kernel->declaration()));
 
-    const std::vector<PlannedCase> cases{{read_case(case_dir), std::nullopt, case_dir, {}}};
+    const std::vector<PlannedCase> cases{planned(case_dir)};
     const RunRecord record = run_cases(*kernel, cases, opt);
     if (record.cases.empty()) {
       std::ostringstream why;

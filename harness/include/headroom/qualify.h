@@ -45,9 +45,10 @@ bool in_shard(const std::string& name, const Shard& s);
 std::string case_folder_name(const std::string& name);
 
 /// One case to run, and the request that recreates it from nothing (absent for a case read from a folder).
-/// A case with a request and an empty c.name is made when its turn comes
-/// (planned() below), so a suite of production-sized cases never holds more
-/// than one case's tensors at a time.
+/// A case with an empty c.name is made (from its request) or read (from its
+/// folder) when its turn comes, named `name` (planned() below), so a suite or
+/// a corpus of production-sized cases never holds more than one case's
+/// tensors at a time.
 struct PlannedCase {
   Case c;
   std::optional<CaseRequest> request;
@@ -61,6 +62,12 @@ struct PlannedCase {
 /// Returns: the case of `r`, to be made by run_cases when its turn comes
 /// (name from case_outline, no values yet). Throws: InputError as make_case.
 PlannedCase planned(const CaseRequest& r);
+
+/// Returns: the case folder `dir`, to be read again by run_cases when its
+/// turn comes, named `name` (its manifest's name when empty). The folder is
+/// read whole now, so a malformed one is refused before anything runs, and
+/// dropped. Throws: InputError as read_case.
+PlannedCase planned(const std::filesystem::path& dir, const std::string& name = "");
 
 struct RunnerOptions {
   JudgeOptions judge;
