@@ -13,6 +13,8 @@
 #include <mpfr.h>
 #include <boost/multiprecision/cpp_bin_float.hpp>
 
+#include "../harness/reference/mp_arith.h"
+#include "../harness/reference/mp_row.h"
 #include "headroom/input_error.h"
 #include "reference_support.h"
 
@@ -291,6 +293,25 @@ RC_GTEST_PROP(ReferenceProperties, ThreadCountChangesNoBit, ()) {
   const CoreReference a = reference_core(c.problem, c.inputs, one), b = reference_core(c.problem, c.inputs, many);
   RC_ASSERT(bit_identical(a.out, b.out) && bit_identical(a.bound, b.bound) && bit_identical(a.magnitude, b.magnitude));
   RC_ASSERT(bit_identical(a.lse, b.lse) && bit_identical(a.lse_bound, b.lse_bound));
+}
+
+TEST(ReferenceCore, MultiprecisionScratchIsAtTheWorkingPrecisionWhenARowGrows) {
+  // Under a causal mask each row sees one key more than the one before, so a
+  // worker's scratch grows row by row at one precision. A number added then
+  // must be at the working precision, not the library's default (167 bits for
+  // Boost's mpfr_float): its roundings would escape the bound's analysis above
+  // 167 bits, and results would depend on which rows a worker did before (seen
+  // as last-bit differences between --threads 2 runs of one case).
+  using Ws = detail::MpWorkspace<detail::MpfrArith>;
+  for (long prec : {120L, 300L}) {
+    const detail::MpfrArith ar(prec);
+    Ws ws;
+    ws.prepare(ar, 3, 2, 2);
+    ws.prepare(ar, 40, 5, 7);  // a longer row, same precision
+    for (auto* v : {&ws.w, &ws.n_acc, &ws.g_acc, &ws.q})
+      for (std::size_t i = 0; i < v->size(); ++i)
+        EXPECT_EQ(mpfr_get_prec(detail::MpfrArith::raw((*v)[i])), prec) << "element " << i << " at " << prec << " bits";
+  }
 }
 
 }  // namespace

@@ -93,10 +93,15 @@ struct MpWorkspace {
 
   void prepare(const Arith& ar, std::int64_t n, std::int64_t dv, std::int64_t dk) {
     const bool repr = precision != ar.precision();
+    // Every number at the working precision: all of them when it changes, and
+    // the ones a longer row adds (a default-constructed Num has the library's
+    // default precision, not ours: its roundings would escape the analysis,
+    // and a row's bits would depend on the rows its worker did before).
     auto fit = [&](std::vector<Num>& v, std::int64_t size) {
       const auto want = static_cast<std::size_t>(size);
-      if (v.size() < want) v.resize(want);
-      if (repr) for (auto& x : v) ar.init(x);
+      const std::size_t had = v.size();
+      if (had < want) v.resize(want);
+      for (std::size_t i = repr ? 0 : had; i < v.size(); ++i) ar.init(v[i]);
     };
     fit(w, n);
     fit(n_acc, dv);
