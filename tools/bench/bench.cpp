@@ -2,6 +2,7 @@
 //
 //   bench [--small] [--core-only | --block-only] [--sizes T:D,...] [--block-lengths T,...]
 //         [--q-rows Q] [--naive-rows R] [--reps N] [--threads N] [--no-naive] [--block-mpfr]
+//         [--suites quick,standard,deep [--suites-kernel K]]
 //
 // Sections (one file each, sections.h): core rows (core_section.cpp: T in
 // {256, 1024, 4096} × D in {64, 128}) and block rows (block_section.cpp:
@@ -10,7 +11,9 @@
 // seconds with one thread, wall seconds with more; the plain baselines get
 // the same thread count as the reference. --small: core T in {64, 256} at
 // D = 64, block T = 128. --q-rows Q keeps Tk = T but takes only Q query
-// rows (long-key memory checks).
+// rows (long-key memory checks). --suites runs only the suites section
+// (suites_section.cpp): `headroom qualify` per suite on the float32 textbook
+// example plug-in (or K), isolated and --no-isolation, wall and CPU seconds.
 #include <algorithm>
 #include <cstdio>
 #include <cstdlib>
@@ -75,15 +78,27 @@ int main(int argc, char** argv) {
       opt.naive = false;
     } else if (arg == "--block-mpfr") {
       opt.block_mpfr = true;
+    } else if (arg == "--suites" && a + 1 < argc) {
+      const std::string list = argv[++a];
+      for (std::size_t at = 0; at < list.size();) {
+        const std::size_t comma = std::min(list.find(',', at), list.size());
+        opt.suites.push_back(list.substr(at, comma - at));
+        at = comma + 1;
+      }
+      core = block = false;
+    } else if (arg == "--suites-kernel" && a + 1 < argc) {
+      opt.suites_kernel = argv[++a];
     } else {
       std::fprintf(stderr,
                    "usage: bench [--small] [--core-only | --block-only] [--sizes T:D,...] [--block-lengths T,...] "
-                   "[--q-rows Q] [--naive-rows R] [--reps N] [--threads N] [--no-naive] [--block-mpfr]\n");
+                   "[--q-rows Q] [--naive-rows R] [--reps N] [--threads N] [--no-naive] [--block-mpfr] "
+                   "[--suites quick,standard,deep [--suites-kernel K]]\n");
       return 2;
     }
   }
   bench::cpu_clock() = opt.threads == 1;
   if (core) bench::core_section(opt);
   if (block) bench::block_section(opt);
+  if (!opt.suites.empty()) bench::suites_section(opt);
   return 0;
 }

@@ -6,6 +6,7 @@
 #pragma once
 
 #include <cstdint>
+#include <string>
 #include <utility>
 #include <vector>
 
@@ -20,11 +21,15 @@ struct Options {
   int reps = 3;                 ///< best of this many runs (plain, fast)
   bool naive = true;            ///< time the all-MPFR core reference
   bool block_mpfr = false;      ///< time the all-MPFR block too (minutes at T = 128)
+  std::vector<std::string> suites;  ///< suites to run end to end (suites_section); empty: none
+  std::string suites_kernel;        ///< the kernel they run on; empty: the example plug-in
 };
 
 /// Core attention: plain float64 vs certified (fast) vs all-MPFR.
 void core_section(const Options& opt);
 /// Block level (d_model 512, 8 heads of 64): plain float64 block vs certified block.
 void block_section(const Options& opt);
+/// Suites end to end: `headroom qualify --suite S` on a kernel, isolated and --no-isolation.
+void suites_section(const Options& opt);
 
 }  // namespace bench
