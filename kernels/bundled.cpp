@@ -17,6 +17,8 @@ const hr_bundled_kernel kTable[] = {
     {&bf16_f32acc, 0, nullptr, nullptr},
     {&i8_tokenwise, 0, nullptr, nullptr},
     {&gqa_f32, 0, nullptr, nullptr},
+    {&e4m3_tensorwise, 0, nullptr, nullptr},
+    {&e4m3_blockwise, 0, nullptr, nullptr},
     {&block_f32, 0, nullptr, nullptr},
     // Flawed specimens (kernels/flawed/): one deliberate defect each.
     {&no_max_shift, 1, "non_finite", "exp of the raw scores, no max shift: overflows past logit 88.7"},
@@ -35,6 +37,11 @@ const hr_bundled_kernel kTable[] = {
      "binary16 QK^T formed before the scale: raw dot overflows 65504 while the logit is in range"},
     {&window_off_by_one, 1, "mask_leak",
      "sliding window tested as j >= i' - left - 1: one key left of the window attended"},
+    {&e4m3_overflow_nan, 1, "non_finite",
+     "E4M3 conversion of P*480 gives NaN instead of saturating to 448 when one key holds > 96.7% of a row"},
+    {&e4m3_block_scale_shifted, 1, "error",
+     "K scale looked up for token j+1: the last key of each 64-token block uses the next block's scale"},
+    {&e4m3_p_unscaled, 1, "error", "P rounded to E4M3 without its x448 scale: weights below 2^-10 flush to zero"},
     {nullptr, 0, nullptr, nullptr},  // sentinel, not counted
 };
 

@@ -17,6 +17,8 @@ extern const hr_kernel bf16_f32acc;
 extern const hr_kernel i8_tokenwise;
 extern const hr_kernel block_f32;
 extern const hr_kernel gqa_f32;
+extern const hr_kernel e4m3_tensorwise;
+extern const hr_kernel e4m3_blockwise;
 // Backward kernels (kernels/f32_backward_tiled.cpp): judged by the score stage
 // (gradient_scores.h), not yet listed in the table qualify walks.
 extern const hr_kernel f32_backward_tiled;
@@ -42,5 +44,8 @@ extern const hr_kernel hang_on_shape;
 extern const hr_kernel crash_one_token;
 extern const hr_kernel f16_late_scale;
 extern const hr_kernel window_off_by_one;
+extern const hr_kernel e4m3_overflow_nan;
+extern const hr_kernel e4m3_block_scale_shifted;
+extern const hr_kernel e4m3_p_unscaled;
 
 }  // namespace hr_kernels

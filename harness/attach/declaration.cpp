@@ -1,5 +1,7 @@
 // headroom — reading a kernel's declaration, trusting nothing in it (kernel.h).
 #include <algorithm>
+#include <cmath>
+#include <cstdio>
 #include <cstring>
 #include <string>
 #include <vector>
@@ -35,29 +37,35 @@ Format format_of(std::int32_t v, const std::string& origin, const std::string& p
     case HR_FORMAT_BINARY16: return Format::binary16;
     case HR_FORMAT_BFLOAT16: return Format::bfloat16;
     case HR_FORMAT_INT8: return Format::int8;
-    case HR_FORMAT_E4M3:
-    case HR_FORMAT_E5M2:
-      refuse(origin, place, "8-bit float formats (E4M3, E5M2) are not judged by this headroom yet",
-             "declare float32, binary16, bfloat16, float64 or int8 input");
+    case HR_FORMAT_E4M3: return Format::e4m3;
+    case HR_FORMAT_E5M2: return Format::e5m2;
     default: break;
   }
   refuse(origin, place, "unknown format value " + std::to_string(v),
-         "use one of the HR_FORMAT_* values of kernel_abi.h (0..4)");
+         "use one of the HR_FORMAT_* values of kernel_abi.h (0..6)");
 }
 
-QuantScheme scheme_of(const hr_quant& q, const std::string& origin, const std::string& place) {
+QuantScheme scheme_of(const hr_quant& q, std::int32_t block, const std::string& origin, const std::string& place) {
   QuantScheme s;
   switch (q.granularity) {
     case HR_QUANT_PER_TENSOR: s.granularity = Granularity::per_tensor; break;
     case HR_QUANT_PER_HEAD: s.granularity = Granularity::per_head; break;
     case HR_QUANT_PER_TOKEN: s.granularity = Granularity::per_token; break;
     case HR_QUANT_PER_CHANNEL: s.granularity = Granularity::per_channel; break;
-    case HR_QUANT_PER_BLOCK:
-      refuse(origin, place + ".granularity", "per-block scales are not judged by this headroom yet",
-             "use HR_QUANT_PER_TENSOR, PER_HEAD, PER_TOKEN or PER_CHANNEL");
+    case HR_QUANT_PER_BLOCK: s.granularity = Granularity::per_block; break;
     default:
       refuse(origin, place + ".granularity", "unknown granularity value " + std::to_string(q.granularity),
-             "use one of the HR_QUANT_* values of kernel_abi.h (0..3)");
+             "use one of the HR_QUANT_* values of kernel_abi.h (0..4)");
+  }
+  s.block = s.granularity == Granularity::per_block ? block : 0;
+  if (s.granularity == Granularity::per_block && block < 1) {
+    refuse(origin, place + ".granularity", "per-block scales with a block of " + std::to_string(block) + " tokens",
+           "set q_block, k_block or v_block (tokens per scale block, e.g. 64 or 128) for each per-block input");
+  }
+  if (s.granularity != Granularity::per_block && block != 0) {
+    refuse(origin, place + ".granularity", "a block size of " + std::to_string(block) + " for " +
+               std::string(granularity_name(s.granularity)) + " scales",
+           "leave q_block, k_block, v_block zero unless that input's granularity is HR_QUANT_PER_BLOCK");
   }
   if (q.asymmetric != 0 && q.asymmetric != 1) {
     refuse(origin, place + ".asymmetric", "value " + std::to_string(q.asymmetric) + " is neither 0 nor 1",
@@ -79,9 +87,18 @@ std::string mask_list(std::uint32_t bits) {
 
 // "per_token" or "per_token,asymmetric": one space-free token for the summary line.
 std::string scheme_token(const QuantScheme& q) {
-  return std::string(granularity_name(q.granularity)) + (q.asymmetric ? ",asymmetric" : "");
+  std::string s = granularity_name(q.granularity) == "per_block" ? "per_block:" + std::to_string(q.block)
+                                                                  : std::string(granularity_name(q.granularity));
+  return s + (q.asymmetric ? ",asymmetric" : "");
 }
 
+
+// A float exactly, in the shortest decimal that reads back (e.g. "448").
+std::string fmt_float(float v) {
+  char buf[32];
+  std::snprintf(buf, sizeof buf, "%.9g", static_cast<double>(v));
+  return buf;
+}
 
 std::string dim_list(const std::vector<std::int64_t>& dims) {
   std::string out;
@@ -118,12 +135,6 @@ void refuse_unjudged(const hr_kernel* k, const std::string& kernel, const std::s
     const char* what;
   };
   const Field fields[] = {
-      {"q_block", k->q_block != 0, "per-block scales"},
-      {"k_block", k->k_block != 0, "per-block scales"},
-      {"v_block", k->v_block != 0, "per-block scales"},
-      {"fp8_saturating", k->fp8_saturating != 0, "8-bit float conversions"},
-      {"p_quant", k->p_quant != HR_PQUANT_NONE, "probabilities rounded to 8 bits"},
-      {"p_scale", k->p_scale != 0.0f, "probabilities rounded to 8 bits"},
       {"features", (k->features & ~kJudgedFeatures) != 0, "paged, packed, split, soft-capped and sink attention"},
       {"split_kv_len", k->split_kv_len != 0, "split-KV partial results"},
   };
@@ -149,12 +160,53 @@ void check_backward_fields(const KernelDeclaration& d, const std::string& origin
   if (d.backward && d.level != Level::core)
     refuse(origin, "field \"run_backward\" of " + kernel, "a backward entry is judged for core kernels only",
            "set run_backward to NULL on a block kernel");
-  if (d.backward && d.input_format == Format::int8)
-    refuse(origin, "field \"run_backward\" of " + kernel, "a backward entry with int8 inputs is not judged",
+  if (d.backward && is_quantised(d.input_format))
+    refuse(origin, "field \"run_backward\" of " + kernel,
+           "a backward entry with " + std::string(format_name(d.input_format)) + " inputs is not judged",
            "declare a float input format for a backward kernel, or set run_backward to NULL");
 }
 
 }  // namespace
+
+void check_fp8_declaration(const KernelDeclaration& d, const std::string& origin) {
+  if (is_fp8(d.output_format)) {
+    refuse(origin, "field \"output_format\"", who(d) + " declares " + std::string(format_name(d.output_format)) +
+               " output; 8-bit floats are input formats only",
+           "return float32 (or binary16, bfloat16, float64) and declare that");
+  }
+  if (is_fp8(d.input_format)) {
+    if (d.level == Level::block) {
+      refuse(origin, "field \"input_format\"", who(d) + " is a block kernel with 8-bit float input; headroom quantises only Q, K, V",
+             "declare a float input format for block kernels, or make it a core kernel");
+    }
+    for (const auto& [field, s] : {std::pair{"q_quant", &d.q_quant}, std::pair{"k_quant", &d.k_quant}, std::pair{"v_quant", &d.v_quant}}) {
+      if (s->asymmetric) {
+        refuse(origin, std::string("field \"") + field + "\"", who(d) + " declares asymmetric 8-bit float scales",
+               "set asymmetric = 0: 8-bit float inputs have scales only, no zero points");
+      }
+    }
+  }
+  if (d.p_quant && !is_fp8(*d.p_quant)) {
+    refuse(origin, "field \"p_quant\"", who(d) + " rounds P to " + std::string(format_name(*d.p_quant)),
+           "use HR_PQUANT_E4M3 or HR_PQUANT_E5M2, or HR_PQUANT_NONE");
+  }
+  if (d.p_quant && d.level == Level::block) {
+    refuse(origin, "field \"p_quant\"", who(d) + " is a block kernel declaring P quantisation",
+           "declare p_quant on core kernels only");
+  }
+  if (!(d.p_scale > 0.0f) || !std::isfinite(d.p_scale)) {
+    refuse(origin, "field \"p_scale\"", who(d) + " declares p_scale " + std::to_string(d.p_scale),
+           "use a positive finite factor, or 0 for 1");
+  }
+  if (!d.p_quant && d.p_scale != 1.0f) {
+    refuse(origin, "field \"p_scale\"", who(d) + " declares p_scale without p_quant",
+           "leave p_scale 0 unless p_quant rounds the probabilities");
+  }
+  if (d.fp8_saturating && !is_fp8(d.input_format) && !d.p_quant) {
+    refuse(origin, "field \"fp8_saturating\"", who(d) + " declares saturating 8-bit conversions but has none",
+           "leave fp8_saturating 0 unless the input format is E4M3/E5M2 or p_quant is set");
+  }
+}
 
 const char* masked_row_name(MaskedRowConvention c) {
   switch (c) {
@@ -204,11 +256,12 @@ void check_declaration(const KernelDeclaration& d, const std::string& origin) {
     refuse(origin, "field \"input_format\"", who(d) + " is a block kernel with int8 input; headroom quantises only Q, K, V",
            "declare a float input format for block kernels, or make it a core kernel");
   }
-  if (d.input_format != Format::int8 && !(d.q_quant == QuantScheme{} && d.k_quant == QuantScheme{} && d.v_quant == QuantScheme{})) {
+  if (!is_quantised(d.input_format) && !(d.q_quant == QuantScheme{} && d.k_quant == QuantScheme{} && d.v_quant == QuantScheme{})) {
     refuse(origin, "field \"q_quant\"", who(d) + " gives quantisation schemes but its input format is " +
                std::string(format_name(d.input_format)),
-           "leave q_quant, k_quant, v_quant zero unless input_format is int8");
+           "leave q_quant, k_quant, v_quant zero unless input_format is int8, e4m3 or e5m2");
   }
+  check_fp8_declaration(d, origin);
   if ((d.mask_kinds & ~kAllMasks) != 0) {
     refuse(origin, "field \"mask_kinds\"", who(d) + " sets mask bits outside HR_MASK_*",
            "combine only the HR_MASK_* bits of kernel_abi.h");
@@ -308,10 +361,16 @@ KernelDeclaration declaration_of(const hr_kernel* k, const std::string& origin) 
   }
   d.input_format = format_of(k->input_format, origin, "field \"input_format\" of " + kernel);
   d.output_format = format_of(k->output_format, origin, "field \"output_format\" of " + kernel);
-  if (d.input_format == Format::int8) {
-    d.q_quant = scheme_of(k->q_quant, origin, "field \"q_quant\" of " + kernel);
-    d.k_quant = scheme_of(k->k_quant, origin, "field \"k_quant\" of " + kernel);
-    d.v_quant = scheme_of(k->v_quant, origin, "field \"v_quant\" of " + kernel);
+  if (k->abi_version < 2 && (is_fp8(d.input_format) || is_fp8(d.output_format))) {
+    refuse(origin, "field \"input_format\"", kernel + " declares an 8-bit float format with abi_version 1",
+           "8-bit floats are kernel_abi.h version 2: set abi_version = HEADROOM_ABI_VERSION");
+  }
+  // Block sizes are version-2 fields: a version-1 declaration has none.
+  const bool v2 = k->abi_version >= 2;
+  if (is_quantised(d.input_format)) {
+    d.q_quant = scheme_of(k->q_quant, v2 ? k->q_block : 0, origin, "field \"q_quant\" of " + kernel);
+    d.k_quant = scheme_of(k->k_quant, v2 ? k->k_block : 0, origin, "field \"k_quant\" of " + kernel);
+    d.v_quant = scheme_of(k->v_quant, v2 ? k->v_block : 0, origin, "field \"v_quant\" of " + kernel);
   } else {
     // Zero-initialised hr_quant means per_tensor symmetric: the neutral value a
     // float kernel leaves there. Anything else signals a confused declaration.
@@ -348,6 +407,28 @@ KernelDeclaration declaration_of(const hr_kernel* k, const std::string& origin) 
     d.kv_len_multiple = k->kv_len_multiple == 0 ? 1 : k->kv_len_multiple;
     d.max_q_len = k->max_q_len;
     d.max_batch = k->max_batch;
+    if (!is_quantised(d.input_format)) {
+      for (const auto& [field, blk] : {std::pair{"q_block", k->q_block}, std::pair{"k_block", k->k_block}, std::pair{"v_block", k->v_block}}) {
+        if (blk != 0) {
+          refuse(origin, std::string("field \"") + field + "\" of " + kernel, "a block size on a kernel without quantised input",
+                 "leave q_block, k_block, v_block zero unless the input format is int8, e4m3 or e5m2");
+        }
+      }
+    }
+    if (k->fp8_saturating != 0 && k->fp8_saturating != 1) {
+      refuse(origin, "field \"fp8_saturating\" of " + kernel, "value " + std::to_string(k->fp8_saturating) + " is neither 0 nor 1",
+             "set 1 when the kernel's 8-bit conversions saturate to the largest finite value, else 0");
+    }
+    d.fp8_saturating = k->fp8_saturating == 1;
+    switch (k->p_quant) {
+      case HR_PQUANT_NONE: break;
+      case HR_PQUANT_E4M3: d.p_quant = Format::e4m3; break;
+      case HR_PQUANT_E5M2: d.p_quant = Format::e5m2; break;
+      default:
+        refuse(origin, "field \"p_quant\" of " + kernel, "unknown p_quant value " + std::to_string(k->p_quant),
+               "use HR_PQUANT_NONE, HR_PQUANT_E4M3 or HR_PQUANT_E5M2");
+    }
+    d.p_scale = k->p_scale == 0.0f ? 1.0f : k->p_scale;
     refuse_unjudged(k, kernel, origin);
     d.features = k->features;
     d.backward = k->run_backward != nullptr;
@@ -373,7 +454,7 @@ KernelDeclaration declaration_of(const hr_kernel* k, const std::string& origin) 
 std::string declaration_summary(const KernelDeclaration& d) {
   std::string s = d.level == Level::core ? "core" : "block";
   s += " in=" + std::string(format_name(d.input_format));
-  if (d.input_format == Format::int8) {
+  if (is_quantised(d.input_format)) {
     s += " q=" + scheme_token(d.q_quant) + " k=" + scheme_token(d.k_quant) + " v=" + scheme_token(d.v_quant);
   }
   s += " out=" + std::string(format_name(d.output_format));
@@ -399,6 +480,9 @@ std::string declaration_summary(const KernelDeclaration& d) {
     if (d.backward_flags & HR_BACKWARD_NONDETERMINISTIC) s += ",nondeterministic";
     if (d.backward_flags & HR_BACKWARD_BIAS_GRAD) s += ",bias_grad";
   }
+  // Version-2 8-bit float conversions, only where the kernel has any.
+  if (is_fp8(d.input_format) || d.p_quant) s += std::string(" fp8_saturating=") + (d.fp8_saturating ? "yes" : "no");
+  if (d.p_quant) s += " p_quant=" + std::string(format_name(*d.p_quant)) + " p_scale=" + fmt_float(d.p_scale);
   return s;
 }
 

@@ -5,6 +5,7 @@
 #include <stdexcept>
 
 #include "headroom/binary16.h"
+#include "headroom/fp8.h"
 
 namespace headroom::attach_detail {
 namespace {
@@ -24,7 +25,9 @@ std::size_t item_size(Format f) {
     case Format::float32: return 4;
     case Format::binary16:
     case Format::bfloat16: return 2;
-    case Format::int8: return 1;
+    case Format::int8:
+    case Format::e4m3:
+    case Format::e5m2: return 1;
   }
   return 0;
 }
@@ -47,9 +50,11 @@ void store_element(Format f, double x, unsigned char* dst) {
       std::memcpy(dst, &v, 2);
       return;
     }
-    case Format::int8: break;
+    case Format::int8:
+    case Format::e4m3:
+    case Format::e5m2: break;
   }
-  throw std::logic_error("store_element: int8 codes are stored by the caller");
+  throw std::logic_error("store_element: int8 and 8-bit float codes are stored by the caller");
 }
 
 double load_element(Format f, const unsigned char* src) {
@@ -75,6 +80,8 @@ double load_element(Format f, const unsigned char* src) {
       return bfloat16_to_float(v);
     }
     case Format::int8: return static_cast<double>(static_cast<std::int8_t>(*src));
+    case Format::e4m3: return fp8_to_double(*src, Fp8Kind::e4m3);
+    case Format::e5m2: return fp8_to_double(*src, Fp8Kind::e5m2);
   }
   return 0.0;
 }
@@ -88,6 +95,8 @@ void fill_unwritten(Format f, unsigned char* dst, std::size_t count) {
       case Format::binary16: std::memcpy(dst, &kUnwrittenBinary16, 2); break;
       case Format::bfloat16: std::memcpy(dst, &kUnwrittenBfloat16, 2); break;
       case Format::int8: *dst = 0x80; break;
+      case Format::e4m3: *dst = 0x7F; break;  // E4M3's NaN
+      case Format::e5m2: *dst = 0x7E; break;  // an E5M2 quiet NaN
     }
   }
 }

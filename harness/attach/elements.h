@@ -11,11 +11,11 @@
 
 namespace headroom::attach_detail {
 
-/// Returns: bytes per element: float64 8, float32 4, binary16/bfloat16 2, int8 1.
+/// Returns: bytes per element: float64 8, float32 4, binary16/bfloat16 2, int8/e4m3/e5m2 1.
 std::size_t item_size(Format f);
 
 /// Stores `x` at `dst` in format f (binary16/bfloat16 as bit patterns).
-/// Preconditions: f is not int8 (codes are stored by the caller) and x is a
+/// Preconditions: f is not int8/e4m3/e5m2 (codes are stored by the caller) and x is a
 /// value of f (or NaN/±inf).
 void store_element(Format f, double x, unsigned char* dst);
 

@@ -18,9 +18,11 @@ using nlohmann::json;
 const std::set<std::string> kFields = {"protocol",  "name",       "description", "level",       "input_format",
                                        "output_format", "q_quant", "k_quant",     "v_quant",     "mask_kinds",
                                        "masked_row", "returns_lse", "max_kv_len", "layouts"};
-// Protocol 2 (kernel_abi.h version 2): the shapes a kernel accepts.
+// Protocol 2 (kernel_abi.h version 2): the shapes a kernel accepts, persistent mode, features, and
+// its 8-bit float conversions (block sizes travel inside q_quant, k_quant, v_quant).
 const std::set<std::string> kFieldsV2 = {"key_dims",  "value_dims", "head_dim_multiple", "kv_len_multiple",
-                                         "max_q_len", "max_batch",  "serve",             "features"};
+                                         "max_q_len", "max_batch",  "serve",             "features",
+                                         "fp8_saturating", "p_quant", "p_scale"};
 // The protocol-2 names of kernel_abi.h's HR_FEATURE_* bits this build judges.
 const std::pair<const char*, std::uint32_t> kFeatureNames[] = {{"window", HR_FEATURE_WINDOW}};
 
@@ -45,7 +47,7 @@ std::string string_field(const json& v, const char* field, const std::string& or
 Format format_field(const json& j, const char* field, const std::string& origin) {
   const std::string name = string_field(required(j, field, origin), field, origin);
   auto f = parse_format(name);
-  if (!f) refuse(origin, field, "unknown format \"" + name + "\"", "use float64, float32, binary16, bfloat16 or int8");
+  if (!f) refuse(origin, field, "unknown format \"" + name + "\"", "use float64, float32, binary16, bfloat16, int8, e4m3 or e5m2");
   return *f;
 }
 
@@ -53,15 +55,26 @@ QuantScheme quant_field(const json& j, const char* field, const std::string& ori
   const json& q = required(j, field, origin);
   if (!q.is_object()) refuse(origin, field, "expected an object, found " + q.dump(), "give {\"granularity\": ..., \"asymmetric\": ...}");
   for (auto it = q.begin(); it != q.end(); ++it) {
-    if (it.key() != "granularity" && it.key() != "asymmetric") {
-      refuse(origin, field, "unknown key \"" + it.key() + "\"", "use only \"granularity\" and \"asymmetric\"");
+    if (it.key() != "granularity" && it.key() != "asymmetric" && it.key() != "block") {
+      refuse(origin, field, "unknown key \"" + it.key() + "\"", "use only \"granularity\", \"asymmetric\" and \"block\"");
     }
   }
   QuantScheme s;
   const std::string g = string_field(required(q, "granularity", origin), field, origin);
   auto gran = parse_granularity(g);
-  if (!gran) refuse(origin, field, "unknown granularity \"" + g + "\"", "use per_tensor, per_head, per_token or per_channel");
+  if (!gran) {
+    refuse(origin, field, "unknown granularity \"" + g + "\"", "use per_tensor, per_head, per_token, per_channel or per_block");
+  }
   s.granularity = *gran;
+  if (auto b = q.find("block"); b != q.end()) {
+    if (!b->is_number_integer() || b->get<std::int64_t>() < 1 || *gran != Granularity::per_block) {
+      refuse(origin, field, "\"block\" must be a positive integer, given with per_block only; found " + b->dump(),
+             "give the tokens per scale block, e.g. \"block\": 64, with \"granularity\": \"per_block\"");
+    }
+    s.block = b->get<std::int64_t>();
+  } else if (*gran == Granularity::per_block) {
+    refuse(origin, field, "per_block without \"block\"", "give the tokens per scale block, e.g. \"block\": 64");
+  }
   if (auto a = q.find("asymmetric"); a != q.end()) {
     if (!a->is_boolean()) refuse(origin, field, "\"asymmetric\" must be true or false", "give a JSON boolean");
     s.asymmetric = a->get<bool>();
@@ -70,7 +83,9 @@ QuantScheme quant_field(const json& j, const char* field, const std::string& ori
 }
 
 json scheme_json(const QuantScheme& s) {
-  return json{{"granularity", std::string(granularity_name(s.granularity))}, {"asymmetric", s.asymmetric}};
+  json j{{"granularity", std::string(granularity_name(s.granularity))}, {"asymmetric", s.asymmetric}};
+  if (s.granularity == Granularity::per_block) j["block"] = s.block;
+  return j;
 }
 
 std::int64_t count_field(const json& j, const char* field, const std::string& origin) {
@@ -155,13 +170,18 @@ KernelDeclaration declaration_from_json(const std::string& text, const std::stri
   }
   d.input_format = format_field(j, "input_format", origin);
   d.output_format = format_field(j, "output_format", origin);
-  if (d.input_format == Format::int8) {
+  if ((is_fp8(d.input_format) || is_fp8(d.output_format)) && version < 2) {
+    refuse(origin, "input_format", "8-bit float formats are protocol 2", "declare \"protocol\": 2 (docs/external-program.md)");
+  }
+  if (is_quantised(d.input_format)) {
     d.q_quant = quant_field(j, "q_quant", origin);
     d.k_quant = quant_field(j, "k_quant", origin);
     d.v_quant = quant_field(j, "v_quant", origin);
   } else {
     for (const char* f : {"q_quant", "k_quant", "v_quant"}) {
-      if (j.contains(f)) refuse(origin, f, "given but the input format is not int8", "remove it, or declare int8 input");
+      if (j.contains(f)) {
+        refuse(origin, f, "given but the input format is not int8, e4m3 or e5m2", "remove it, or declare such an input");
+      }
     }
   }
   const json& masks = required(j, "mask_kinds", origin);
@@ -218,6 +238,26 @@ KernelDeclaration declaration_from_json(const std::string& text, const std::stri
       if (!known) refuse(origin, "features", "unknown or not yet judged feature \"" + name + "\"", "use \"window\"");
     }
   }
+  if (auto it = j.find("fp8_saturating"); it != j.end()) {
+    if (!it->is_boolean()) refuse(origin, "fp8_saturating", "expected true or false, found " + it->dump(), "give a JSON boolean");
+    d.fp8_saturating = it->get<bool>();
+  }
+  if (auto it = j.find("p_quant"); it != j.end()) {
+    const std::string name = string_field(*it, "p_quant", origin);
+    if (name != "none") {
+      auto f = parse_format(name);
+      if (!f || !is_fp8(*f)) refuse(origin, "p_quant", "unknown P format \"" + name + "\"", "use \"none\", \"e4m3\" or \"e5m2\"");
+      d.p_quant = *f;
+    }
+  }
+  if (auto it = j.find("p_scale"); it != j.end()) {
+    if (!it->is_number()) refuse(origin, "p_scale", "expected a number, found " + it->dump(), "give a positive number, or 0 for 1");
+    const double v = it->get<double>();
+    d.p_scale = v == 0.0 ? 1.0f : static_cast<float>(v);
+    if (static_cast<double>(d.p_scale) != v && v != 0.0) {
+      refuse(origin, "p_scale", it->dump() + " is not a float32 value", "give a value exactly representable in float32, e.g. 448");
+    }
+  }
   check_declaration(d, origin);
   return d;
 }
@@ -251,7 +291,12 @@ std::string declaration_to_json(const KernelDeclaration& d) {
   }
   if (!features.empty()) j["features"] = features;
   if (!d.value_dims.empty()) j["value_dims"] = d.value_dims;
-  if (d.input_format == Format::int8) {
+  if (is_fp8(d.input_format) || d.p_quant) j["fp8_saturating"] = d.fp8_saturating;
+  if (d.p_quant) {
+    j["p_quant"] = std::string(format_name(*d.p_quant));
+    j["p_scale"] = d.p_scale;
+  }
+  if (is_quantised(d.input_format)) {
     j["q_quant"] = scheme_json(d.q_quant);
     j["k_quant"] = scheme_json(d.k_quant);
     j["v_quant"] = scheme_json(d.v_quant);

@@ -44,11 +44,13 @@ NpyArray raw_array(std::vector<std::int64_t> shape, const char* descr, const voi
 }
 
 void put_quantised(const fs::path& dir, const std::string& name, const QuantizedTensor& q, json& quant) {
-  put(dir, name + ".npy", raw_array(q.shape, "|i1", q.codes.data(), q.codes.size()));
+  // int8 codes as signed bytes; 8-bit float codes as their unsigned patterns.
+  put(dir, name + ".npy", raw_array(q.shape, q.format == Format::int8 ? "|i1" : "|u1", q.codes.data(), q.codes.size()));
   put(dir, name + "_scale.npy", raw_array(q.scale_shape, "<f4", q.scales.data(), q.scales.size() * sizeof(float)));
   json entry = {{"granularity", std::string(granularity_name(q.scheme.granularity))},
                 {"asymmetric", q.scheme.asymmetric},
                 {"scale", name + "_scale.npy"}};
+  if (q.scheme.granularity == Granularity::per_block) entry["block"] = q.scheme.block;
   if (q.scheme.asymmetric) {
     put(dir, name + "_zero_point.npy",
         raw_array(q.scale_shape, "<i4", q.zero_points.data(), q.zero_points.size() * sizeof(std::int32_t)));
@@ -174,7 +176,7 @@ void write_exchange(const fs::path& dir, const ReceivedCase& c, const KernelDecl
     problem["scale"] = float_decimal(k.core.scale);
     problem["scale_hex"] = float_hex(k.core.scale);
     problem["mask"] = put_mask(dir, k.core.mask);
-    if (d.input_format == Format::int8) {
+    if (is_quantised(d.input_format)) {
       json quant = json::object();
       put_quantised(dir, "q", *c.q8, quant);
       put_quantised(dir, "k", *c.k8, quant);

@@ -20,6 +20,8 @@ std::int32_t abi_format(Format f) {
     case Format::binary16: return HR_FORMAT_BINARY16;
     case Format::bfloat16: return HR_FORMAT_BFLOAT16;
     case Format::int8: return HR_FORMAT_INT8;
+    case Format::e4m3: return HR_FORMAT_E4M3;
+    case Format::e5m2: return HR_FORMAT_E5M2;
   }
   return -1;
 }
@@ -59,7 +61,7 @@ void for_each_element(const std::int64_t e[4], const std::int64_t s[4], F&& f) {
 // One input tensor: its slots are reserved first, filled after allocate().
 struct InputPlan {
   const Tensor* values = nullptr;
-  const QuantizedTensor* codes = nullptr;  ///< int8
+  const QuantizedTensor* codes = nullptr;  ///< int8, e4m3, e5m2
   std::int64_t extents[4] = {1, 1, 1, 1};
   std::int64_t strides[4] = {0, 0, 0, 0};
   std::size_t slot = 0, scale_slot = 0, zero_slot = 0;
@@ -170,8 +172,8 @@ void check_received(const ReceivedCase& c, const KernelDeclaration& d) {
   }
   const Mask& m = d.level == Level::core ? c.received.core.mask : c.received.block.mask;
   if (!d.supports(m.kind)) fail("mask kind " + std::string(mask_kind_name(m.kind)) + " not declared");
-  if (d.input_format == Format::int8) {
-    if (!c.q8 || !c.k8 || !c.v8) fail("int8 codes missing");
+  if (is_quantised(d.input_format)) {
+    if (!c.q8 || !c.k8 || !c.v8) fail("codes missing");
     if (c.q8->scheme != d.q_quant || c.k8->scheme != d.k_quant || c.v8->scheme != d.v_quant) {
       fail("quantisation schemes differ from the kernel's");
     }
@@ -201,7 +203,7 @@ void pack_core(const ReceivedCase& c, const KernelDeclaration& d, PackedCall& p)
   const CoreInputs& in = c.received.core_inputs;
   const bool bthd = (d.layouts & HR_LAYOUT_BHTD) == 0;
   const Format f = d.input_format;
-  const bool int8 = f == Format::int8;
+  const bool int8 = is_quantised(f);  // codes with scales: int8, e4m3, e5m2
   const std::int64_t qe[4] = {s.batch, s.q_heads, s.q_len, s.key_dim};
   const std::int64_t ke[4] = {s.batch, s.kv_heads, s.kv_len, s.key_dim};
   const std::int64_t ve[4] = {s.batch, s.kv_heads, s.kv_len, s.value_dim};

@@ -19,9 +19,11 @@ double received_value(double x, Format f) {
     case Format::float32: return static_cast<double>(static_cast<float>(x));
     case Format::binary16: return binary16_to_float(double_to_binary16(x));
     case Format::bfloat16: return bfloat16_to_float(double_to_bfloat16(x));
-    case Format::int8: break;
+    case Format::int8:
+    case Format::e4m3:
+    case Format::e5m2: break;
   }
-  throw std::logic_error("received_value: int8 is quantised per tensor, not rounded per value");
+  throw std::logic_error("received_value: int8 and 8-bit floats are quantised with scales, not rounded per value");
 }
 
 Tensor rounded(const Tensor& t, Format f) {
@@ -61,9 +63,9 @@ std::string problems_text(const std::vector<ProblemError>& errors) {
   return text;
 }
 
-QuantizedTensor quantized(const Case& c, const Tensor& t, const QuantScheme& scheme, const char* which) {
+QuantizedTensor quantized(const Case& c, const Tensor& t, const QuantScheme& scheme, Format f, const char* which) {
   try {
-    return quantize(t, scheme);
+    return f == Format::int8 ? quantize(t, scheme) : quantize_fp8(t, scheme, f);
   } catch (const std::invalid_argument& e) {
     throw InputError(c.name, std::string("tensor ") + which,
                      std::string("cannot be quantised as ") + scheme_name(scheme) + ": " + e.what(),
@@ -86,8 +88,8 @@ std::optional<std::string> why_unfit(const Case& c, const KernelDeclaration& d) 
   }
   if (!d.accepts(mask)) return std::string("sliding window not declared");
   if (auto reason = d.shape_unfit(shape)) return reason;
-  if (c.level == Level::block && d.input_format == Format::int8) {
-    return std::string("int8 input at block level is not supported (only Q, K, V are quantised)");
+  if (c.level == Level::block && is_quantised(d.input_format)) {
+    return std::string(format_name(d.input_format)) + " input at block level is not supported (only Q, K, V are quantised)";
   }
   if (d.masked_row == MaskedRowConvention::never_called) {
     // The mask must be consistent before visible() may index it.
@@ -115,10 +117,10 @@ ReceivedCase receive(const Case& c, const KernelDeclaration& d) {
   r.input_format = d.input_format;
   if (c.level == Level::core) {
     r.received.core.mask = received_mask(c.core.mask);
-    if (d.input_format == Format::int8) {
-      r.q8 = quantized(c, c.core_inputs.q, d.q_quant, "q");
-      r.k8 = quantized(c, c.core_inputs.k, d.k_quant, "k");
-      r.v8 = quantized(c, c.core_inputs.v, d.v_quant, "v");
+    if (is_quantised(d.input_format)) {
+      r.q8 = quantized(c, c.core_inputs.q, d.q_quant, d.input_format, "q");
+      r.k8 = quantized(c, c.core_inputs.k, d.k_quant, d.input_format, "k");
+      r.v8 = quantized(c, c.core_inputs.v, d.v_quant, d.input_format, "v");
       r.received.core_inputs.q = dequantize(*r.q8);
       r.received.core_inputs.k = dequantize(*r.k8);
       r.received.core_inputs.v = dequantize(*r.v8);

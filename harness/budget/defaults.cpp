@@ -183,6 +183,20 @@ KernelBudget default_budget(Format input) {
       b.max_scaled_error = probabilistic(kLambdaMax, 9, origin);
       b.max_rel_rmse = probabilistic(kLambdaRms, 9, origin);
       break;
+    // e4m3, e5m2: the output is float32 and the inputs are exact once decoded
+    // (the reference judges the received values), but such kernels commonly
+    // round the probabilities to 8 bits before P·V (p_quant). Rounding each
+    // weight costs at most u_P of it (u_P = 2^-4 E4M3, 2^-3 E5M2; fp8.h), and
+    // normalising by the rounded or the unrounded sum adds at most u_P more:
+    // 2·u_P·Σ_j p_j|v_j| per element, whatever Tk, i.e. a scaled error of
+    // 2·u_P / 2^-24 = 2^21 (E4M3) or 2^22 (E5M2). The per-element figure is
+    // the right one here (it holds under cancellation); the relative RMSE has
+    // no default. Kernels that keep P in float32 should set tighter limits.
+    case Format::e4m3:
+    case Format::e5m2:
+      b.max_scaled_error = fixed(input == Format::e4m3 ? 0x1p21 : 0x1p22, origin);
+      b.max_rel_rmse = none(origin);
+      break;
   }
   return b;
 }

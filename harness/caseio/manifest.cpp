@@ -245,7 +245,7 @@ Case parse_manifest(std::string_view text, const std::string& file) {
 
   const std::string fmt = r.string_at(root, "source_format", "");
   const auto format = parse_format(fmt);
-  if (!format || format_name(*format) != fmt || *format == Format::int8)
+  if (!format || format_name(*format) != fmt || is_quantised(*format))
     r.fail("source_format", "unknown source format \"" + fmt + "\"", "use \"float32\", \"float64\", \"binary16\" or \"bfloat16\"");
   c.source_format = *format;
 

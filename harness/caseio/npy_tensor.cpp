@@ -44,6 +44,8 @@ std::string_view npy_descr_of(Format f) {
     case Format::binary16: return "<f2";
     case Format::bfloat16: return "<u2";
     case Format::int8: return "|i1";
+    case Format::e4m3:
+    case Format::e5m2: return "|u1";
   }
   return "";
 }

@@ -16,18 +16,22 @@ std::string_view format_name(Format f) {
     case Format::binary16: return "binary16";
     case Format::bfloat16: return "bfloat16";
     case Format::int8: return "int8";
+    case Format::e4m3: return "e4m3";
+    case Format::e5m2: return "e5m2";
   }
   throw std::invalid_argument("format_name: not a Format value");
 }
 
 std::optional<Format> parse_format(std::string_view name) {
-  static constexpr std::array<std::pair<std::string_view, Format>, 11> kNames{{
+  static constexpr std::array<std::pair<std::string_view, Format>, 15> kNames{{
       {"float64", Format::float64}, {"f64", Format::float64},
       {"float32", Format::float32}, {"f32", Format::float32},
       {"binary16", Format::binary16}, {"f16", Format::binary16}, {"fp16", Format::binary16},
       {"half", Format::binary16},
       {"bfloat16", Format::bfloat16}, {"bf16", Format::bfloat16},
       {"int8", Format::int8},
+      {"e4m3", Format::e4m3}, {"float8_e4m3", Format::e4m3},
+      {"e5m2", Format::e5m2}, {"float8_e5m2", Format::e5m2},
   }};
   for (const auto& [known, format] : kNames) {
     if (name == known) return format;
@@ -43,7 +47,9 @@ double unit_roundoff(Format f) {
     case Format::float32: return 0x1p-24;
     case Format::binary16: return 0x1p-11;
     case Format::bfloat16: return 0x1p-8;
-    case Format::int8: return 0x1p-24;  // int8 kernels write float32
+    case Format::int8:  // int8 and 8-bit float kernels write float32
+    case Format::e4m3:
+    case Format::e5m2: return 0x1p-24;
   }
   throw std::invalid_argument("unit_roundoff: not a Format value");
 }
@@ -56,9 +62,15 @@ double round_to_format(double x, Format f) {
     case Format::float32: return static_cast<double>(static_cast<float>(x));
     case Format::binary16: return static_cast<double>(binary16_to_float(double_to_binary16(x)));
     case Format::bfloat16: return static_cast<double>(bfloat16_to_float(double_to_bfloat16(x)));
-    case Format::int8: return static_cast<double>(static_cast<float>(x));
+    case Format::int8:
+    case Format::e4m3:
+    case Format::e5m2: return static_cast<double>(static_cast<float>(x));
   }
   throw std::invalid_argument("round_to_format: not a Format value");
 }
+
+bool is_quantised(Format f) { return f == Format::int8 || is_fp8(f); }
+
+bool is_fp8(Format f) { return f == Format::e4m3 || f == Format::e5m2; }
 
 }  // namespace headroom

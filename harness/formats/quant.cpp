@@ -8,6 +8,8 @@
 // in range; when the first guess fails the scale grows by one float32 ulp.
 #include "headroom/quant.h"
 
+#include "headroom/fp8.h"
+
 #include <algorithm>
 #include <array>
 #include <cmath>
@@ -94,15 +96,22 @@ std::pair<float, std::int32_t> asymmetric_scale(double lo, double hi) {
   throw std::logic_error("quantize: asymmetric scale search did not converge");
 }
 
-std::vector<std::int64_t> scale_shape_of(const std::vector<std::int64_t>& shape, Granularity g) {
+}  // namespace
+
+std::int64_t blocks_of(std::int64_t tokens, std::int64_t block) { return block > 0 ? (tokens + block - 1) / block : 0; }
+
+std::vector<std::int64_t> scale_shape_of(const std::vector<std::int64_t>& shape, Granularity g, std::int64_t block) {
   switch (g) {
     case Granularity::per_tensor: return {1};
     case Granularity::per_head: return {shape[1]};
     case Granularity::per_token: return {shape[0], shape[1], shape[2]};
     case Granularity::per_channel: return {shape[1], shape[3]};
+    case Granularity::per_block: return {shape[0], shape[1], blocks_of(shape[2], block)};
   }
   throw std::invalid_argument("quantize: not a Granularity value");
 }
+
+namespace {
 
 std::int64_t product(const std::vector<std::int64_t>& extents) {
   std::int64_t n = 1;
@@ -118,16 +127,18 @@ std::string_view granularity_name(Granularity g) {
     case Granularity::per_head: return "per_head";
     case Granularity::per_token: return "per_token";
     case Granularity::per_channel: return "per_channel";
+    case Granularity::per_block: return "per_block";
   }
   throw std::invalid_argument("granularity_name: not a Granularity value");
 }
 
 std::optional<Granularity> parse_granularity(std::string_view name) {
-  static constexpr std::array<std::pair<std::string_view, Granularity>, 4> kNames{{
+  static constexpr std::array<std::pair<std::string_view, Granularity>, 5> kNames{{
       {"per_tensor", Granularity::per_tensor},
       {"per_head", Granularity::per_head},
       {"per_token", Granularity::per_token},
       {"per_channel", Granularity::per_channel},
+      {"per_block", Granularity::per_block},
   }};
   for (const auto& [known, g] : kNames) {
     if (name == known) return g;
@@ -136,7 +147,9 @@ std::optional<Granularity> parse_granularity(std::string_view name) {
 }
 
 std::string scheme_name(const QuantScheme& s) {
-  return std::string(s.asymmetric ? "asymmetric " : "symmetric ") + std::string(granularity_name(s.granularity));
+  std::string name = std::string(s.asymmetric ? "asymmetric " : "symmetric ") + std::string(granularity_name(s.granularity));
+  if (s.granularity == Granularity::per_block) name += " of " + std::to_string(s.block);
+  return name;
 }
 
 std::int64_t QuantizedTensor::group(std::int64_t b, std::int64_t h, std::int64_t t, std::int64_t d) const {
@@ -145,11 +158,14 @@ std::int64_t QuantizedTensor::group(std::int64_t b, std::int64_t h, std::int64_t
     case Granularity::per_head: return h;
     case Granularity::per_token: return (b * shape[1] + h) * shape[2] + t;  // kernel_abi.h: (b*H + h)*T + t
     case Granularity::per_channel: return h * shape[3] + d;                 // kernel_abi.h: h*D + d
+    case Granularity::per_block:  // kernel_abi.h: (b*H + h)*ceil(T/blk) + t/blk
+      return (b * shape[1] + h) * blocks_of(shape[2], scheme.block) + t / scheme.block;
   }
   throw std::invalid_argument("QuantizedTensor::group: not a Granularity value");
 }
 
 QuantizedTensor quantize(const Tensor& x, QuantScheme scheme) {
+  check_scheme(scheme, "quantize");
   if (x.rank() != 4) {
     throw std::invalid_argument("quantize: the tensor has rank " + std::to_string(x.rank()) +
                                 "; int8 schemes are defined on [B, H, T, D]");
@@ -161,7 +177,7 @@ QuantizedTensor quantize(const Tensor& x, QuantScheme scheme) {
   QuantizedTensor q;
   q.shape = x.shape;
   q.scheme = scheme;
-  q.scale_shape = scale_shape_of(x.shape, scheme.granularity);
+  q.scale_shape = scale_shape_of(x.shape, scheme.granularity, scheme.block);
   const auto groups = static_cast<std::size_t>(product(q.scale_shape));
 
   // Pass 1: each group's range. Symmetric needs max|x|; asymmetric needs min and
@@ -214,14 +230,29 @@ QuantizedTensor quantize(const Tensor& x, QuantScheme scheme) {
   return q;
 }
 
+void check_scheme(const QuantScheme& s, const char* who) {
+  if (s.granularity == Granularity::per_block && s.block < 1) {
+    throw std::invalid_argument(std::string(who) + ": per_block needs a block size of at least 1 token, not " +
+                                std::to_string(s.block));
+  }
+  if (s.granularity != Granularity::per_block && s.block != 0) {
+    throw std::invalid_argument(std::string(who) + ": a block size is given for " +
+                                std::string(granularity_name(s.granularity)));
+  }
+}
+
 Tensor dequantize(const QuantizedTensor& q) {
   if (q.shape.size() != 4) throw std::invalid_argument("dequantize: the shape is not [B, H, T, D]");
+  check_scheme(q.scheme, "dequantize");
+  const bool fp8 = is_fp8(q.format);
+  if (!fp8 && q.format != Format::int8) throw std::invalid_argument("dequantize: codes of a format that is not quantised");
+  if (fp8 && q.scheme.asymmetric) throw std::invalid_argument("dequantize: 8-bit float codes have no zero points");
   Tensor out(q.shape);
   if (q.codes.size() != out.values.size()) {
     throw std::invalid_argument("dequantize: " + std::to_string(q.codes.size()) + " codes for a shape of " +
                                 std::to_string(out.values.size()) + " elements");
   }
-  if (q.scale_shape != scale_shape_of(q.shape, q.scheme.granularity) ||
+  if (q.scale_shape != scale_shape_of(q.shape, q.scheme.granularity, q.scheme.block) ||
       q.scales.size() != static_cast<std::size_t>(product(q.scale_shape))) {
     throw std::invalid_argument("dequantize: the scales do not match " + scheme_name(q.scheme) + " on this shape");
   }
@@ -247,6 +278,17 @@ Tensor dequantize(const QuantizedTensor& q) {
           const auto g = static_cast<std::size_t>(q.group(b, h, t, d));
           const auto i = static_cast<std::size_t>(out.offset(b, h, t, d));
           const int c = q.codes[i];
+          if (fp8) {
+            const double v = fp8_to_double(static_cast<std::uint8_t>(c), q.format == Format::e4m3 ? Fp8Kind::e4m3 : Fp8Kind::e5m2);
+            if (!std::isfinite(v)) {
+              throw std::invalid_argument("dequantize: " + std::string(format_name(q.format)) + " code " +
+                                          std::to_string(static_cast<std::uint8_t>(c)) + " at element " +
+                                          std::to_string(i) + " is not finite");
+            }
+            // ≤ 4 significant bits times a 24-bit scale: exact.
+            out.values[i] = v * static_cast<double>(q.scales[g]);
+            continue;
+          }
           if (!q.scheme.asymmetric && c < -kSymmetricMaxCode) {
             throw std::invalid_argument("dequantize: code -128 at element " + std::to_string(i) +
                                         " in a symmetric scheme (codes are in [-127, 127])");

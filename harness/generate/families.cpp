@@ -23,7 +23,8 @@ std::span<const FamilyImpl> family_impls() {
   // reverse) is a programming error, caught on first use and by the tests.
   static const std::vector<FamilyImpl> table = [] {
     std::vector<FamilyImpl> all;
-    for (auto group : {baseline_families, score_families, activation_families, edge_families, window_families})
+    for (auto group : {baseline_families, score_families, activation_families, edge_families, window_families,
+                        fp8_families})
       for (FamilyImpl& f : group()) all.push_back(f);
     std::vector<FamilyImpl> ordered;
     for (const FamilyInfo& info : kFamilies) {

@@ -84,6 +84,7 @@ score_families();  // large_logits, near_ties, dominant_key, attention_sink, rep
 std::vector<FamilyImpl> activation_families();  // outlier_channels, sparse_outliers, massive_activations
 std::vector<FamilyImpl> edge_families();        // format_edges, masks, cancelling_values
 std::vector<FamilyImpl> window_families();      // sliding_window
+std::vector<FamilyImpl> fp8_families();         // fp8_scales
 
 // ---- shared helpers (shapes.cpp) ----
 

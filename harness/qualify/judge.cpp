@@ -262,6 +262,12 @@ Judgement judge_case(AttachedKernel& k, const Case& c, const JudgeOptions& opt, 
                                       : split_quantisation(first.out, *ref.block, *src.block, d.output_format);
     rec.figures.input_error = split.input.max_scaled_error;
   }
+  // What rounding P to 8 bits costs, as the kernel declares it (p_quant).
+  if (opt.quantisation_split && d.p_quant && ref.core) {
+    const Tensor modelled = p_rounded_attention(rc.received.core, rc.received.core_inputs, *d.p_quant, d.p_scale,
+                                                d.fp8_saturating);
+    rec.figures.p_rounding_error = score_core(modelled, nullptr, *ref.core, d.output_format).max_scaled_error;
+  }
 
   if (opt.plain && (opt.plain == &k || opt.plain->declaration().name == d.name)) {
     // The kernel is its own plain kernel (e.g. the only bundled int8 kernel):

@@ -103,6 +103,7 @@ json figures_json(const CaseFigures& f) {
           {"lse_error", number(f.lse_error)},
           {"ratio_to_plain", number(f.ratio_to_plain)},
           {"input_error", number(f.input_error)},
+          {"p_rounding_error", number(f.p_rounding_error)},
           {"kernel_error", number(f.kernel_error)},
           {"worst_index", f.worst_index},
           {"worst_expected", number(f.worst_expected)},
@@ -123,6 +124,8 @@ CaseFigures figures_from(const Reader& r) {
   f.lse_error = r.num("lse_error");
   f.ratio_to_plain = r.num("ratio_to_plain");
   f.input_error = r.num("input_error");
+  // Absent from records written before P rounding was measured.
+  f.p_rounding_error = r.has("p_rounding_error") ? r.num("p_rounding_error") : std::numeric_limits<double>::quiet_NaN();
   f.kernel_error = r.num("kernel_error");
   f.worst_index = r.str("worst_index");
   f.worst_expected = r.num("worst_expected");

@@ -15,7 +15,8 @@ namespace {
 
 constexpr MaskKind kMaskKinds[] = {MaskKind::none,        MaskKind::causal_top_left, MaskKind::causal_bottom_right,
                                    MaskKind::key_padding, MaskKind::dense,           MaskKind::bias};
-constexpr Format kFormats[] = {Format::float64, Format::float32, Format::binary16, Format::bfloat16, Format::int8};
+constexpr Format kFormats[] = {Format::float64, Format::float32, Format::binary16, Format::bfloat16,
+                               Format::int8,    Format::e4m3,    Format::e5m2};
 
 std::string join(const std::vector<std::string>& items) {
   std::string out;

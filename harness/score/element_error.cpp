@@ -24,7 +24,9 @@ FormatParams params_of(Format f) {
     case Format::float32: return {24, -126, 127};
     case Format::binary16: return {11, -14, 15};
     case Format::bfloat16: return {8, -126, 127};
-    case Format::int8: return {24, -126, 127};
+    case Format::int8:
+    case Format::e4m3:
+    case Format::e5m2: return {24, -126, 127};
   }
   throw std::invalid_argument("format_rank: not a Format value");
 }

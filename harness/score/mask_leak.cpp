@@ -15,6 +15,7 @@
 #include <string>
 
 #include "headroom/faults.h"
+#include "headroom/fp8.h"
 #include "headroom/scores.h"
 
 namespace headroom {
@@ -86,8 +87,13 @@ double poison_of(const Tensor& t, Format f) {
   return std::ldexp(1.0, std::min(e + 8, cap));
 }
 
-// int8: the code farthest from the zero point in the wanted direction.
+// int8: the code farthest from the zero point in the wanted direction;
+// e4m3/e5m2: ±the largest finite value (fp8.h).
 std::int8_t extreme_code(const QuantizedTensor& q, std::int64_t group, bool positive) {
+  if (is_fp8(q.format)) {
+    const unsigned max_bits = q.format == Format::e4m3 ? 0x7Eu : 0x7Bu;
+    return static_cast<std::int8_t>(positive ? max_bits : max_bits | 0x80u);
+  }
   const std::int32_t z = q.zero_points.empty() ? 0 : q.zero_points[static_cast<std::size_t>(group)];
   const std::int8_t lowest = q.scheme.asymmetric ? -128 : -127;
   if (positive) return z < 127 ? std::int8_t{127} : lowest;
@@ -101,7 +107,7 @@ class Poisoner {
     const Format f = base.input_format;
     if (block) {
       px_ = poison_of(base.received.block_inputs.x_kv, f);
-    } else if (f != Format::int8) {
+    } else if (!is_quantised(f)) {
       pk_ = poison_of(base.received.core_inputs.k, f);
       pv_ = poison_of(base.received.core_inputs.v, f);
     }
@@ -130,7 +136,7 @@ class Poisoner {
            bool positive) const {
     Tensor& t = key ? work.received.core_inputs.k : work.received.core_inputs.v;
     const std::size_t at = static_cast<std::size_t>(t.offset(b, g, j, d));
-    if (base_.input_format != Format::int8) {
+    if (!is_quantised(base_.input_format)) {
       t.values[at] = key ? (positive ? pk_ : -pk_) : pv_;
       return;
     }
@@ -138,6 +144,12 @@ class Poisoner {
     const std::int64_t grp = q.group(b, g, j, d);
     const std::int8_t code = extreme_code(q, grp, positive);
     q.codes[at] = code;
+    if (is_fp8(q.format)) {
+      const Fp8Kind kind = q.format == Format::e4m3 ? Fp8Kind::e4m3 : Fp8Kind::e5m2;
+      // ≤ 4 significant bits times a 24-bit scale: exact (quant.h).
+      t.values[at] = fp8_to_double(static_cast<std::uint8_t>(code), kind) * static_cast<double>(q.scales[static_cast<std::size_t>(grp)]);
+      return;
+    }
     const std::int32_t z = q.zero_points.empty() ? 0 : q.zero_points[static_cast<std::size_t>(grp)];
     // Exact: |c − z| < 2^9 times a 24-bit scale (quant.h).
     t.values[at] = static_cast<double>(code - z) * static_cast<double>(q.scales[static_cast<std::size_t>(grp)]);

@@ -24,11 +24,11 @@ namespace headroom {
 
 /// What a kernel receives for a case: the case's source values rounded or
 /// quantised to the kernel's input format. `core_inputs` / `block_inputs` hold
-/// the exact received values (what the reference must use); for int8 the codes
-/// and scales are kept too.
+/// the exact received values (what the reference must use); for int8, e4m3
+/// and e5m2 the codes and scales are kept too.
 struct ReceivedCase {
   Case received;  ///< same problem, tensors replaced by the received values
-  std::optional<QuantizedTensor> q8, k8, v8;  ///< int8 core inputs
+  std::optional<QuantizedTensor> q8, k8, v8;  ///< int8 / e4m3 / e5m2 core inputs (codes and scales)
   Format input_format = Format::float32;      ///< the format the tensors were received in
 };
 

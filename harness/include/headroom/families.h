@@ -136,6 +136,20 @@ inline constexpr FamilyInfo kFamilies[] = {
      "Qiu & Yao 2025, on low-precision flash attention failing with repeated row maxima under "
      "bfloat16 (from memory)",
      Level::core},
+    {"fp8_scales", "8-bit float scale hazards: values at 448/57344, outliers, block spikes, subnormal blocks, small P",
+     "Five kinds (knob 0), Q, K, V otherwise N(0,1). saturation: a quarter of the V rows carry one entry "
+     "among ±448, 464, 465, 480, 57344, 61440, 61441 (the E4M3 and E5M2 maxima, the ties above them and "
+     "a step past). outlier_tensor: one K and one V entry per kv head 10^3 or 10^4 times typical, which "
+     "sets a per-tensor scale and pushes the other entries towards E4M3's subnormals. block_spike: "
+     "Tk 65-160, one token of a later 64-token block holds K 300 and V 1000 in one channel, so that "
+     "block's scale is 100s of times its neighbours' (a kernel using the wrong block's scale is far off). "
+     "subnormal_block: Tk 65-160, the first block (up to 64 keys) of K and V is 2^-10 of typical, E4M3 "
+     "subnormals under one per-tensor scale, normal under per-block scales. small_weights: Tk 128-256, "
+     "key 0 leads every score by 7 to 7.5 with a value 10^-3 of typical, so the other keys' weights "
+     "(≈ e^-7 each, below 2^-10 where E4M3 without a P scale flushes to zero) carry most of the output.",
+     "OCP 8-bit Floating Point Specification (OFP8) rev 1.0, 2023 (the format limits); Shah et al. "
+     "2024, FlashAttention-3, §3.3 (per-block scales against outliers)",
+     Level::core},
     {"block_gaussian", "multi-head block: X ~ N(0,1), weights ~ N(0,1)/sqrt(fan-in), biases",
      "Block level: X_q, X_kv ~ N(0,1) (the same tensor, self-attention, half the time when Tq = Tk), "
      "W_q, W_k, W_v ~ N(0, 1/Dm), W_o ~ N(0, 1/(Hq·Dv)) (variance-preserving initialisation, common "

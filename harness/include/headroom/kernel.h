@@ -48,6 +48,10 @@ struct KernelDeclaration {
   std::int64_t max_q_len = 0;             ///< 0 = no limit
   std::int64_t max_batch = 0;             ///< 0 = no limit
   std::uint32_t features = 0;             ///< HR_FEATURE_* bits (kernel_abi.h version 2)
+  // Version 2: 8-bit floats. Block sizes live in the schemes (QuantScheme::block).
+  bool fp8_saturating = false;            ///< the kernel's own 8-bit conversions saturate
+  std::optional<Format> p_quant;          ///< e4m3/e5m2: P rounded to it before P·V; empty: not rounded
+  float p_scale = 1.0f;                   ///< P multiplied by this before rounding, divided after
   /// The kernel_abi.h version (plug-ins) or exchange protocol (external
   /// programs) the kernel was written against; informational.
   int interface_version = 2;
@@ -98,6 +102,14 @@ KernelDeclaration declaration_of(const hr_kernel* k, const std::string& origin);
 /// limits). declaration_of and
 /// the external-program reader both end with this check.
 void check_declaration(const KernelDeclaration& d, const std::string& origin);
+
+/// Returns: nothing when `d`'s 8-bit float fields are consistent; throws
+/// InputError for an 8-bit float output, 8-bit float input at block level,
+/// asymmetric 8-bit float schemes, p_quant other than e4m3/e5m2 or on a block
+/// kernel, p_scale not positive and finite or set without p_quant, and
+/// fp8_saturating on a kernel with no 8-bit conversion. check_declaration
+/// ends with it.
+void check_fp8_declaration(const KernelDeclaration& d, const std::string& origin);
 
 /// Returns: one line describing `d`, e.g.
 /// "core in=binary16 out=float32 masks=none,causal_top_left masked_row=zeros

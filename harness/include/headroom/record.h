@@ -33,6 +33,8 @@ struct CaseFigures {
   double lse_error = 0;             ///< max |lse − lse*|, NaN when the kernel returns none
   double ratio_to_plain = 0;        ///< max scaled error / that of the textbook kernel of the format; NaN if n/a
   double input_error = 0;           ///< max scaled error of reference(received) vs reference(source)
+  double p_rounding_error = std::numeric_limits<double>::quiet_NaN();  ///< max scaled error of P rounded as the
+                                    ///< kernel declares (p_quant) vs reference(received); NaN when P is not rounded
   double kernel_error = 0;          ///< max scaled error of kernel vs reference(received)  (= max_scaled_error)
   std::string worst_index;          ///< "b,h,i,d" of the worst scaled error
   double worst_expected = 0;        ///< o* there

@@ -185,4 +185,17 @@ QuantSplit split_quantisation(const Tensor& out, const Tensor* lse, const CoreRe
 QuantSplit split_quantisation(const Tensor& out, const BlockReference& of_received,
                               const BlockReference& of_source, Format f);
 
+/// Returns: the core attention of `in` computed in double with each
+/// normalised weight p_j rounded as a kernel declaring P quantisation does:
+/// p_j ← decode(fp8(p_j·p_scale)) / p_scale in `p_format` (e4m3 or e5m2),
+/// saturating or not (fp8.h). Scored against the certified reference of the
+/// same inputs, it is what rounding P costs apart from the rest of the
+/// kernel's arithmetic: a model (double arithmetic, error ~2^-50 relative,
+/// far below the 2^-4 being measured), not a certified enclosure. Fully
+/// masked rows are left 0 (the scorer skips them). A saturating model of a
+/// weight that overflows gives the largest finite value; a non-saturating
+/// one gives NaN or infinity, as the format's conversion does.
+/// Preconditions: validate(p, in) is empty.
+Tensor p_rounded_attention(const CoreProblem& p, const CoreInputs& in, Format p_format, float p_scale, bool saturating);
+
 }  // namespace headroom

@@ -1,0 +1,112 @@
+// headroom — the 8-bit float family: fp8_scales. Documented in families.h.
+//
+// Five kinds (knob 0), each aimed at one way 8-bit float inputs with amax
+// scales (quant.h, quantize_fp8) or 8-bit probabilities go wrong. Limits from
+// the OCP 8-bit Floating Point Specification rev 1.0 (fp8.h): E4M3 largest
+// finite 448, smallest normal 2^-6, smallest subnormal 2^-9; E5M2 57344.
+#include <algorithm>
+#include <cmath>
+
+#include "recipe.h"
+
+namespace headroom::generate_internal {
+namespace {
+
+enum Kind { kSaturation = 0, kOutlierTensor = 1, kBlockSpike = 2, kSubnormalBlock = 3, kSmallWeights = 4 };
+
+// The E4M3 and E5M2 maxima, the ties just above them (464 rounds to 448,
+// 61440 overflows E5M2), and a step past each.
+constexpr double kEdges[] = {448.0, 464.0, 465.0, 480.0, 57344.0, 61440.0, 61441.0};
+
+void fp8_sample(Draw& d, int size, Recipe& r) {
+  r.shape = sample_core_shape(d, size);
+  r.knobs[0] = d.uniform_int(0, 4);
+  r.knobs[1] = d.uniform_int(0, 1);
+  // Block kinds need keys in more than one 64-token block; small weights need
+  // many keys. Few queries keep the exact reference quick.
+  if (r.knobs[0] == kBlockSpike || r.knobs[0] == kSubnormalBlock) r.shape.kv_len = d.uniform(65, 160);
+  if (r.knobs[0] == kSmallWeights) r.shape.kv_len = d.uniform(128, 256);
+  if (r.shape.kv_len > 64) r.shape.q_len = std::min<std::int64_t>(r.shape.q_len, 8);
+}
+
+void fp8_realize(const Recipe& r, Case& c) {
+  const CoreShape& s = r.shape;
+  const Noise n = r.noise();
+  c.core.scale = softmax_scale(s.key_dim);
+  c.core_inputs = gaussian_inputs(r, 1.0);
+  CoreInputs& in = c.core_inputs;
+  switch (r.knobs[0]) {
+    case kSaturation:  // V entries on the formats' overflow edges, both signs
+      for (std::int64_t b = 0; b < s.batch; ++b)
+        for (std::int64_t g = 0; g < s.kv_heads; ++g)
+          for (std::int64_t j = 0; j < s.kv_len; ++j) {
+            if (n.index(4, Stream::plan, b, g, j) != 0) continue;
+            const std::int64_t d = n.index(s.value_dim, Stream::plan, b, g, j, 1);
+            const double e = kEdges[n.index(7, Stream::plan, b, g, j, 2)];
+            in.v.at(b, g, j, d) = (n.bits(Stream::plan, b, g, j, 3) & 1) ? -e : e;
+          }
+      break;
+    case kOutlierTensor: {  // one entry 10^3 or 10^4 × typical per (batch, kv head) in K and V
+      const double big = r.knobs[1] == 0 ? 1e3 : 1e4;
+      for (std::int64_t b = 0; b < s.batch; ++b)
+        for (std::int64_t g = 0; g < s.kv_heads; ++g) {
+          const std::int64_t j = n.index(s.kv_len, Stream::plan, b, g, 4);
+          in.k.at(b, g, j, n.index(s.key_dim, Stream::plan, b, g, 5)) = to_float32(big * 0.5);
+          in.v.at(b, g, j, n.index(s.value_dim, Stream::plan, b, g, 6)) = to_float32(-big);
+        }
+      break;
+    }
+    case kBlockSpike: {  // one token of a later 64-token block holds a 10^3× value
+      for (std::int64_t b = 0; b < s.batch; ++b)
+        for (std::int64_t g = 0; g < s.kv_heads; ++g) {
+          const std::int64_t first = std::min<std::int64_t>(64, s.kv_len - 1);
+          const std::int64_t j = first + n.index(s.kv_len - first, Stream::plan, b, g, 7);
+          in.k.at(b, g, j, n.index(s.key_dim, Stream::plan, b, g, 8)) = 300.0;
+          in.v.at(b, g, j, n.index(s.value_dim, Stream::plan, b, g, 9)) = 1000.0;
+        }
+      break;
+    }
+    case kSubnormalBlock: {  // the first block of K and V 2^-10 × typical: E4M3 subnormals under one scale
+      const std::int64_t end = std::min<std::int64_t>(64, std::max<std::int64_t>(1, s.kv_len / 2));
+      for (std::int64_t b = 0; b < s.batch; ++b)
+        for (std::int64_t g = 0; g < s.kv_heads; ++g)
+          for (std::int64_t j = 0; j < end; ++j) {
+            for (std::int64_t d = 0; d < s.key_dim; ++d) in.k.at(b, g, j, d) = to_float32(in.k.at(b, g, j, d) * 0x1p-10);
+            for (std::int64_t d = 0; d < s.value_dim; ++d) in.v.at(b, g, j, d) = to_float32(in.v.at(b, g, j, d) * 0x1p-10);
+          }
+      break;
+    }
+    case kSmallWeights: {
+      // Key 0 leads by 7 to 7.5 through its own channel (weights e^-7 ≈ 9e-4
+      // each: below 2^-10, where unscaled E4M3 flushes to zero, yet normal once
+      // multiplied by 448), its value 10^-3 of typical, so the many small
+      // weights carry most of Σ p_j|v_j|.
+      const std::int64_t ch = n.index(s.key_dim, Stream::plan, -1);
+      const double margin = 7.0 + 0.5 * r.knobs[1];
+      const double c0 = margin / (static_cast<double>(c.core.scale) * 4.0);
+      for (std::int64_t b = 0; b < s.batch; ++b)
+        for (std::int64_t h = 0; h < s.q_heads; ++h)
+          for (std::int64_t i = 0; i < s.q_len; ++i) in.q.at(b, h, i, ch) = 4.0;
+      for (std::int64_t b = 0; b < s.batch; ++b)
+        for (std::int64_t g = 0; g < s.kv_heads; ++g)
+          for (std::int64_t j = 0; j < s.kv_len; ++j) {
+            in.k.at(b, g, j, ch) = j == 0 ? to_float32(c0) : 0.0;
+            // Other channels of K scaled down so the lead stays about `margin`.
+            for (std::int64_t d = 0; d < s.key_dim; ++d)
+              if (d != ch) in.k.at(b, g, j, d) = to_float32(in.k.at(b, g, j, d) * 0.05);
+            if (j == 0)
+              for (std::int64_t d = 0; d < s.value_dim; ++d) in.v.at(b, g, j, d) = to_float32(in.v.at(b, g, j, d) * 1e-3);
+          }
+      break;
+    }
+    default: break;
+  }
+}
+
+}  // namespace
+
+std::vector<FamilyImpl> fp8_families() {
+  return {{.name = "fp8_scales", .sample = fp8_sample, .realize = fp8_realize}};
+}
+
+}  // namespace headroom::generate_internal
