@@ -32,7 +32,7 @@ struct KernelDeclaration {
   Level level = Level::core;
   Format input_format = Format::float32;
   Format output_format = Format::float32;
-  QuantScheme q_quant, k_quant, v_quant;  ///< meaningful when input_format is int8
+  QuantScheme q_quant, k_quant, v_quant;  ///< meaningful when input_format is int8, e4m3 or e5m2
   std::uint32_t mask_kinds = 1;           ///< HR_MASK_* bits
   MaskedRowConvention masked_row = MaskedRowConvention::zeros;
   bool returns_lse = false;
