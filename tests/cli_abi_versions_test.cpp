@@ -157,8 +157,6 @@ TEST(AbiVersions, FieldsThisBuildDoesNotJudgeAreRefusedByName) {
   const Set sets[] = {
       {"features", [](hr_kernel& k) { k.features = HR_FEATURE_SOFTCAP; }},
       {"split_kv_len", [](hr_kernel& k) { k.split_kv_len = 512; }},
-      {"p_quant", [](hr_kernel& k) { k.p_quant = HR_PQUANT_E4M3; }},
-      {"input_format", [](hr_kernel& k) { k.input_format = HR_FORMAT_E4M3; }},
   };
   for (const Set& s : sets) {
     hr_kernel k = v2_kernel();
@@ -179,6 +177,10 @@ TEST(AbiVersions, BackwardFieldsAreJudgedAndCheckedByName) {
   k.backward_flags = 1u << 9;  // a bit outside HR_BACKWARD_*
   e = refusal(k);
   EXPECT_NE(e.find("bits outside HR_BACKWARD_"), std::string::npos) << e;
+  k.backward_flags = 0;
+  k.input_format = HR_FORMAT_E4M3;  // the backward reference takes float inputs only
+  e = refusal(k);
+  EXPECT_NE(e.find("e4m3 inputs is not judged"), std::string::npos) << e;
 }
 
 TEST(AbiVersions, ExternalProgramsDeclareTheSameFieldsUnderProtocolTwo) {

@@ -106,7 +106,7 @@ TEST(GenerateSuites, QuickStaysSmall) {
       EXPECT_LE(s.kv_len, 129) << c.name;
     }
   }
-  EXPECT_LE(long_ones, 8);
+  EXPECT_LE(long_ones, 10);  // 8, and the two fp8_scales cases whose block kinds need Tk > 64
   EXPECT_LE(work, 2'000'000);
   std::printf("quick suite: %zu cases, %lld multiply-adds of attention work, %lld with Tk > 32\n", reqs.size(),
               static_cast<long long>(work), static_cast<long long>(long_ones));

@@ -225,7 +225,7 @@ TEST(BundledTable, SoundKernelsHaveNoFaultAndSpecimensHaveOne) {
     EXPECT_TRUE(kFaultClasses.count(t[i].expected_fault)) << name << ": " << t[i].expected_fault;
     EXPECT_GT(std::strlen(t[i].defect), 10u) << name;
   }
-  EXPECT_EQ(specimens, 12);
+  EXPECT_EQ(specimens, 15);
 }
 
 TEST(BundledTable, HoldsEveryKernelWithItsExpectedFault) {
@@ -239,6 +239,8 @@ TEST(BundledTable, HoldsEveryKernelWithItsExpectedFault) {
       {"i8_tokenwise", nullptr},
       {"block_f32", nullptr},
       {"gqa_f32", nullptr},
+      {"e4m3_tensorwise", nullptr},
+      {"e4m3_blockwise", nullptr},
       {"no_max_shift", "non_finite"},
       {"mask_tail_off_by_one", "mask_leak"},
       {"nan_masked_rows", "convention"},
@@ -251,6 +253,9 @@ TEST(BundledTable, HoldsEveryKernelWithItsExpectedFault) {
       {"crash_one_token", "crash"},
       {"f16_late_scale", "non_finite"},
       {"window_off_by_one", "mask_leak"},
+      {"e4m3_overflow_nan", "non_finite"},
+      {"e4m3_block_scale_shifted", "error"},
+      {"e4m3_p_unscaled", "error"},
   };
   std::size_t n = 0;
   const hr_bundled_kernel* t = headroom_bundled_kernels(&n);

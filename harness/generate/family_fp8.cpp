@@ -24,8 +24,8 @@ void fp8_sample(Draw& d, int size, Recipe& r) {
   r.knobs[1] = d.uniform_int(0, 1);
   // Block kinds need keys in more than one 64-token block; small weights need
   // many keys. Few queries keep the exact reference quick.
-  if (r.knobs[0] == kBlockSpike || r.knobs[0] == kSubnormalBlock) r.shape.kv_len = d.uniform(65, 160);
-  if (r.knobs[0] == kSmallWeights) r.shape.kv_len = d.uniform(128, 256);
+  if (r.knobs[0] == kBlockSpike || r.knobs[0] == kSubnormalBlock) r.shape.kv_len = d.uniform(65, 129);
+  if (r.knobs[0] == kSmallWeights) r.shape.kv_len = d.uniform(100, 129);
   if (r.shape.kv_len > 64) r.shape.q_len = std::min<std::int64_t>(r.shape.q_len, 8);
 }
 

@@ -3,7 +3,8 @@
 // A family turns (seed, size) into a case (generate.h). Every family chooses a
 // shape from `size` unless the request fixes one, and its own mask kind unless
 // the request forces one; at the default size 100 tokens stay ≤ 64 (except
-// tile_edges, long_sequence and sliding_window) so the exact reference stays quick. Source
+// tile_edges, long_sequence, sliding_window and fp8_scales, whose block kinds need Tk > 64) so the
+// exact reference stays quick. Source
 // values are float32. Magnitudes named "typical" are the N(0, 1) base noise.
 // Values from a paper are cited with the section; "(from memory)" marks a
 // figure recalled rather than re-read.
@@ -141,10 +142,10 @@ inline constexpr FamilyInfo kFamilies[] = {
      "among ±448, 464, 465, 480, 57344, 61440, 61441 (the E4M3 and E5M2 maxima, the ties above them and "
      "a step past). outlier_tensor: one K and one V entry per kv head 10^3 or 10^4 times typical, which "
      "sets a per-tensor scale and pushes the other entries towards E4M3's subnormals. block_spike: "
-     "Tk 65-160, one token of a later 64-token block holds K 300 and V 1000 in one channel, so that "
+     "Tk 65-129, one token of a later 64-token block holds K 300 and V 1000 in one channel, so that "
      "block's scale is 100s of times its neighbours' (a kernel using the wrong block's scale is far off). "
-     "subnormal_block: Tk 65-160, the first block (up to 64 keys) of K and V is 2^-10 of typical, E4M3 "
-     "subnormals under one per-tensor scale, normal under per-block scales. small_weights: Tk 128-256, "
+     "subnormal_block: Tk 65-129, the first block (up to 64 keys) of K and V is 2^-10 of typical, E4M3 "
+     "subnormals under one per-tensor scale, normal under per-block scales. small_weights: Tk 100-129, "
      "key 0 leads every score by 7 to 7.5 with a value 10^-3 of typical, so the other keys' weights "
      "(≈ e^-7 each, below 2^-10 where E4M3 without a P scale flushes to zero) carry most of the output.",
      "OCP 8-bit Floating Point Specification (OFP8) rev 1.0, 2023 (the format limits); Shah et al. "
