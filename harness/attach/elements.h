@@ -27,7 +27,7 @@ double load_element(Format f, const unsigned char* src);
 void fill_unwritten(Format f, unsigned char* dst, std::size_t count);
 
 /// Returns: whether the element of format f at `src` still holds the pattern
-/// fill_unwritten writes (for int8, always false: its fill is a valid code).
+/// fill_unwritten writes (for int8, E4M3 and E5M2, always false: their fill cannot be told from a written code).
 bool is_unwritten(Format f, const unsigned char* src);
 
 }  // namespace headroom::attach_detail
