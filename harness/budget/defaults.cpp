@@ -129,8 +129,13 @@ double KernelBudget::score_conditioning(const CaseScore& s, double lambda) const
   return 2.0 * std::min(gamma_tilde_n(lambda, s.score_terms, us), gamma_n(s.score_terms, us)) / s.unit_roundoff;
 }
 
+double KernelBudget::p_floor(const CaseScore& s, std::size_t r) {
+  // A none limit stays +inf; a finite one may not be relaxed by an infinite floor.
+  return r < s.row_p_floor.size() && std::isfinite(s.row_p_floor[r]) ? s.row_p_floor[r] : 0.0;
+}
+
 double KernelBudget::row_scaled_error_limit(std::int64_t n, const CaseScore& s, std::size_t r) const {
-  const double base = scaled_error_limit(n, s.format);
+  const double base = scaled_error_limit(n, s.format) + p_floor(s, r);
   if (max_scaled_error.kind != Limit::Kind::probabilistic || r >= s.row_score_magnitude.size()) return base;
   return base + score_conditioning(s, max_scaled_error.lambda) * s.row_score_magnitude[r];
 }

@@ -94,11 +94,15 @@ Verdict judge(const CaseScore* score, const CaseFaults& faults, const KernelBudg
   // conditioning, not the arithmetic bound, set most of the limit.
   if (worst_row < s.row_max_scaled.size() && std::isfinite(worst_limit)) {
     const double base = budget.scaled_error_limit(n, s.format);
-    const double conditioning = worst_limit - base;
-    if (worst_excess > 0.5 || conditioning > base) {
+    const double p_floor = KernelBudget::p_floor(s, worst_row);
+    const double conditioning = worst_limit - base - p_floor;
+    if (worst_excess > 0.5 || conditioning > base || p_floor > base) {
       std::string why = "limit max_scaled_error " + number(worst_limit) + " at row " + std::to_string(worst_row) + ": " +
                         number(base) + " from " + budget.max_scaled_error.describe(n, s.unit_roundoff) + " (" +
                         budget.max_scaled_error.origin + ")";
+      if (p_floor > 0)
+        why += " + " + number(p_floor) + " for P rounded to 8 bits below its normal range (docs/budget-format.md, "
+               "\"P rounding\")";
       if (conditioning > 0 && worst_row < s.row_score_magnitude.size())
         why += " + " + number(conditioning) + " for score conditioning: scores in this row reach |z| = " +
                number(s.row_score_magnitude[worst_row]) + ", formed with u_s = 2^-" + std::to_string(budget.score_bits) +

@@ -241,6 +241,7 @@ Judgement judge_case(AttachedKernel& k, const Case& c, const JudgeOptions& opt, 
   const AnyReference ref = reference_of(rc.received, detect.reference);
   j.score = score_of(first, ref, d.output_format);
   condition_on_scores(*j.score, rc.received);
+  if (d.p_quant) condition_on_p_rounding(*j.score, rc.received, *d.p_quant, d.p_scale);
   fill_figures(rec.figures, *j.score);
   rec.ulp_histogram.assign(j.score->ulp_histogram.begin(), j.score->ulp_histogram.end());
   rec.reference_certified = j.score->reference_certified;  // explained once per report, not per case

@@ -83,9 +83,12 @@ struct KernelBudget {
   /// given; probabilistic: relative_at(n, u_F) / u_F).
   double scaled_error_limit(std::int64_t n, Format output_format) const;
   /// Returns: the scaled-error limit of output row r: scaled_error_limit(n, F)
-  /// plus, for a probabilistic max_scaled_error, score_conditioning(s, λ)·Z_r
-  /// (Z_r = s.row_score_magnitude[r], 0 when not filled).
+  /// plus p_floor(s, r), plus, for a probabilistic max_scaled_error,
+  /// score_conditioning(s, λ)·Z_r (Z_r = s.row_score_magnitude[r], 0 when not filled).
   double row_scaled_error_limit(std::int64_t n, const CaseScore& s, std::size_t r) const;
+  /// Returns: s.row_p_floor[r], what the underflow of P rounded to 8 bits may
+  /// cost in row r (scores.h, condition_on_p_rounding); 0 when not filled.
+  static double p_floor(const CaseScore& s, std::size_t r);
   /// Returns: 2·min(γ̃_m(λ, u_s), γ_m(u_s)) / u_F, m = s.score_terms: the scaled
   /// error per unit of score magnitude that forming the scores may cost.
   double score_conditioning(const CaseScore& s, double lambda) const;

@@ -112,6 +112,11 @@ struct CaseScore {
   /// escapes. Empty until condition_on_scores fills it.
   std::vector<double> row_score_magnitude;
   std::int64_t score_terms = 0;      ///< m: roundings in forming one score (Dk + 1; block + Dm)
+  /// Per output row, for a kernel that rounds P to 8 bits (p_quant): the
+  /// scaled error that weights below the format's normal range may cost beyond
+  /// the relative u_P every normal weight costs (condition_on_p_rounding).
+  /// Empty when P is not rounded.
+  std::vector<double> row_p_floor;
 
   WorstElement worst_scaled;        ///< the element of max_scaled_error
   WorstElement worst_ulp;           ///< the element of max_ulp
@@ -196,6 +201,22 @@ QuantSplit split_quantisation(const Tensor& out, const BlockReference& of_receiv
 /// weight that overflows gives the largest finite value; a non-saturating
 /// one gives NaN or infinity, as the format's conversion does.
 /// Preconditions: validate(p, in) is empty.
+/// Fills s.row_p_floor for a kernel rounding the probabilities to `p_format`
+/// (e4m3 or e5m2) after multiplying by `p_scale`. Rounding to nearest moves a
+/// weight w by at most max(u_P·w, η/p_scale), η half the format's smallest
+/// subnormal (2^-10 E4M3, 2^-17 E5M2; OFP8 rev 1.0): the relative part is in
+/// the default budget (2·u_P, defaults.cpp); the absolute part, summed over
+/// the visible keys, moves element d of row r by at most
+/// (η/p_scale)·(Σ_j |v_jd| + n_r·Σ_j p_j|v_jd|), the second term for a kernel
+/// normalising by the sum of the rounded weights (n_r visible keys, each off by
+/// η/p_scale relative to a normaliser ≥ 1). row_p_floor[r] is the largest over
+/// d of that bound in units of u_F·Σ_j p_j|v_jd| (scores.h), computed in double
+/// from the values the kernel received (a budget coordinate, relative error
+/// ≤ 2^-50; elements whose Σ_j p_j|v_jd| is 0 are left out: their exact value
+/// is 0 and every weight times 0 is 0).
+/// Preconditions: s scores the core output of `received`; p_scale > 0.
+void condition_on_p_rounding(CaseScore& s, const Case& received, Format p_format, float p_scale);
+
 Tensor p_rounded_attention(const CoreProblem& p, const CoreInputs& in, Format p_format, float p_scale, bool saturating);
 
 }  // namespace headroom
