@@ -112,5 +112,19 @@ TEST(GenerateSuites, QuickStaysSmall) {
               static_cast<long long>(work), static_cast<long long>(long_ones));
 }
 
+TEST(GenerateSuites, CoverageNamesEveryInputFormatAndTheEightBitFamily) {
+  // `headroom suites` prints this text: the 8-bit floats must be listed beside
+  // the older formats, and every suite must hold fp8_scales cases.
+  for (const char* name : {"quick", "standard", "deep"}) {
+    const SuiteCoverage c = suite_coverage(suite_requests(name));
+    std::string formats;
+    for (const std::string& line : coverage_text(c))
+      if (line.rfind("formats:", 0) == 0) formats = line;
+    for (const char* f : {"float64", "float32", "binary16", "bfloat16", "int8", "e4m3", "e5m2"})
+      EXPECT_NE(formats.find(f), std::string::npos) << name << ": " << formats;
+    EXPECT_NE(std::find(c.families.begin(), c.families.end(), "fp8_scales"), c.families.end()) << name;
+  }
+}
+
 }  // namespace
 }  // namespace headroom

@@ -4,6 +4,7 @@
 #include <set>
 
 #include "headroom/families.h"
+#include "headroom/format.h"
 #include "headroom/input_error.h"
 #include "headroom/suite.h"
 #include "suite_builder.h"
@@ -77,6 +78,19 @@ SuiteCoverage suite_coverage(const std::vector<CaseRequest>& requests) {
   return c;
 }
 
+namespace {
+
+// Every input format a kernel may declare (format.h), in its own order.
+std::string format_list() {
+  std::string out;
+  for (Format f : {Format::float64, Format::float32, Format::binary16, Format::bfloat16, Format::int8, Format::e4m3,
+                   Format::e5m2})
+    out += (out.empty() ? "" : ", ") + std::string(format_name(f));
+  return out;
+}
+
+}  // namespace
+
 std::vector<std::string> coverage_text(const SuiteCoverage& c) {
   auto join = [](const auto& v) {
     std::string out;
@@ -100,7 +114,8 @@ std::vector<std::string> coverage_text(const SuiteCoverage& c) {
       "group sizes (Hq/Hkv): " + join(c.group_sizes),
       "masks: " + join(c.masks),
       "families: " + std::to_string(c.families.size()) + " of " + std::to_string(std::size(kFamilies)),
-      "formats: the kernel's own (each case is rounded or quantised to the input format it declares)",
+      "formats: the kernel's own, each case rounded or quantised to the input format it declares: " + format_list() +
+          " (scales per tensor, head, token, channel or block as declared)",
   };
 }
 
