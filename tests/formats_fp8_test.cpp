@@ -12,10 +12,11 @@
 // even) takes part in the rounding, and a value rounding to it (or beyond it)
 // overflows.
 //
-// Outside check: none available here. No Debian package provides these formats
-// (apt-cache search ml-dtypes finds nothing; python3-torch is 1.13, which has no
-// float8 dtypes; GCC 12 and clang 16 have no 8-bit float type), so the check is
-// this specification-derived reference alone.
+// Outside check: no Debian package provides these formats (apt-cache search
+// ml-dtypes finds nothing; python3-torch is 1.13, which has no float8 dtypes;
+// GCC 12 and clang 16 have no 8-bit float type). What the compiler does provide
+// — _Float16, whose high byte is E5M2, and correctly rounded float32 addition —
+// is used in tests/external/formats_fp8_vs_compiler_test.cpp.
 #include <gtest/gtest.h>
 
 #include <cmath>
