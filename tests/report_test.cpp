@@ -729,5 +729,27 @@ TEST(Reports, WriteReportsWritesEachRequestedFileAndNamesAnUnwritableOne) {
   }
 }
 
+TEST(Reports, QuantisationSplitSaysWhatInputAndPRoundingCostBesideTheKernel) {
+  // An 8-bit float kernel's run: the terminal summary and the Markdown report
+  // give the largest input-rounding, P-rounding and kernel figures.
+  RunRecord r = testing::make_record({testing::make_case("a", "gaussian", 1.2e6, 3), testing::make_case("b", "masks", 5e5, 2)});
+  r.input_format = "e4m3";
+  r.cases[0].figures.input_error = 3.5e9;
+  r.cases[1].figures.input_error = 7e10;
+  r.cases[0].figures.p_rounding_error = 1.1e6;
+  r.cases[1].figures.p_rounding_error = 4e5;
+  const std::string want = "inputs rounded to e4m3 cost up to 7e+10, P rounded to 8 bits up to 1.1e+06 (modelled), "
+                           "the kernel's own error up to 1.2e+06 (max scaled error over 2 cases)";
+  EXPECT_EQ(quantisation_split_text(r), want);
+  EXPECT_NE(terminal_summary(r, false).find("quantisation split: " + want), std::string::npos);
+  EXPECT_NE(markdown_report(r).find(want), std::string::npos);
+  // Without P rounding the middle part is left out; a float32 run has no split.
+  for (auto& c : r.cases) c.figures.p_rounding_error = std::nan("");
+  EXPECT_EQ(quantisation_split_text(r).find("P rounded"), std::string::npos);
+  r.input_format = "float32";
+  EXPECT_EQ(quantisation_split_text(r), "");
+  EXPECT_EQ(terminal_summary(r, false).find("quantisation split"), std::string::npos);
+}
+
 }  // namespace
 }  // namespace headroom

@@ -120,6 +120,22 @@ std::string margin_text(double m) {
   return fmt::format("{:.3g}", m);
 }
 
+std::string quantisation_split_text(const RunRecord& r) {
+  static const std::set<std::string> rounded{"binary16", "bfloat16", "int8", "e4m3", "e5m2"};
+  if (!rounded.count(r.input_format) || r.cases.empty()) return "";
+  ValueRange input, p_rounding, kernel;
+  for (const auto& c : r.cases) {
+    input.add(c.figures.input_error);
+    p_rounding.add(c.figures.p_rounding_error);
+    kernel.add(c.figures.kernel_error);
+  }
+  if (input.empty()) return "";
+  std::string out = fmt::format("inputs rounded to {} cost up to {:.3g}", r.input_format, input.high);
+  if (!p_rounding.empty()) out += fmt::format(", P rounded to 8 bits up to {:.3g} (modelled)", p_rounding.high);
+  return out + fmt::format(", the kernel's own error up to {:.3g} (max scaled error over {} cases)", kernel.high,
+                           input.count);
+}
+
 std::size_t uncertified_cases(const RunRecord& r) {
   std::size_t n = 0;
   for (const auto& c : r.cases) n += c.reference_certified ? 0 : 1;

@@ -96,6 +96,8 @@ std::vector<Line> run_facts(const RunRecord& r) {
                         {"Cases", fmt::format("{} run, {} failing, {} skipped", r.cases.size(), failing, r.skipped.size())},
                         {"Verdict", r.verdict_line()},
                         {"Written by", r.tool + (r.command.empty() ? "" : " " + r.command)}};
+  if (const std::string split = quantisation_split_text(r); !split.empty())
+    out.insert(out.end() - 1, Line{"Quantisation split", split});
   return out;
 }
 

@@ -110,6 +110,7 @@ std::string terminal_summary(const RunRecord& r, bool colour) {
   if (!std::isnan(total.margin))
     out += fmt::format("  smallest margin {} ({} in case {}; margin = limit / worst figure, below 1 fails)\n",
                        margin_text(total.margin), total.margin_figure, total.margin_case);
+  if (const std::string split = quantisation_split_text(r); !split.empty()) out += "  quantisation split: " + split + "\n";
   for (const auto& w : r.warnings) out += "  warning: " + w + "\n";
 
   std::vector<std::size_t> width(header.size());

@@ -69,6 +69,17 @@ LimitedFigures limited_figures(const RunRecord& r);
 /// Returns: "1.56" for a margin, "inf" (nothing to lose), or "—" when none applies.
 std::string margin_text(double m);
 
+/// Returns: the quantisation split of a run whose kernel receives rounded or
+/// quantised inputs (binary16, bfloat16, int8, e4m3, e5m2), as one line: the
+/// largest scaled error that rounding the inputs cost (figures.input_error:
+/// the exact attention of the received inputs against that of the source
+/// values), that rounding P to 8 bits cost where the kernel declares it
+/// (figures.p_rounding_error, modelled), and the kernel's own (figures.kernel_error),
+/// e.g. "inputs rounded to e4m3 cost up to 1.7e+11, P rounded to 8 bits up to
+/// 1.5e+06 (modelled), the kernel's own error up to 1.6e+06 (max scaled error
+/// over 52 cases)"; "" for other input formats or a run of no case.
+std::string quantisation_split_text(const RunRecord& r);
+
 /// Returns: how many cases' reference missed its certification target, and
 /// the one plain-words paragraph every report gives for them ("" when none).
 std::size_t uncertified_cases(const RunRecord& r);
