@@ -669,11 +669,72 @@ TEST(Merge, ThreeShardsEqualTheUnshardedRecord) {
     write_run_record(s.record, files.back());
   }
   EXPECT_EQ(to_json(merge_files(files).record), to_json(expected));
-  // Missing a shard: merged, with a note.
+  // Missing a shard: refused, unless allowed; then the verdict says partial, and survives a write and read.
   files.pop_back();
-  const MergeResult part = merge_files(files);
+  try {
+    merge_files(files);
+    ADD_FAILURE() << "merged two shards of three without --allow-partial";
+  } catch (const InputError& e) {
+    EXPECT_NE(e.problem().find("shard 1/3 missing"), std::string::npos) << e.what();
+    EXPECT_NE(e.fix().find("--allow-partial"), std::string::npos) << e.what();
+  }
+  const MergeResult part = merge_files(files, true);
   ASSERT_EQ(part.notes.size(), 1u);
   EXPECT_NE(part.notes[0].find("missing"), std::string::npos);
+  EXPECT_EQ(part.record.missing_shards, std::vector<std::string>{"1/3"});
+  EXPECT_EQ(part.record.verdict().rfind("partial_", 0), 0u) << part.record.verdict();
+  write_run_record(part.record, dir / "partial.json");
+  EXPECT_EQ(read_run_record(dir / "partial.json").verdict(), part.record.verdict());
+  // A partial merged record merged again stays partial, unless the missing shard comes too.
+  const auto again = merge_files({dir / "partial.json"}, true);
+  EXPECT_EQ(again.record.missing_shards, std::vector<std::string>{"1/3"});
+  EXPECT_THROW(merge_files({dir / "partial.json"}), InputError);
+}
+
+// Records are validated on read like case folders: nonsense is refused, naming the field.
+TEST(Records, NonsenseIsRefusedNamingTheField) {
+  const auto dir = fresh_dir("nonsense");
+  const nlohmann::json good = to_json(seven_cases());
+  write_run_record(seven_cases(), dir / "good.json");
+  ASSERT_NO_THROW(read_run_record(dir / "good.json"));
+  auto refused = [&](nlohmann::json j, const std::string& part) {
+    std::ofstream(dir / "bad.json") << j.dump();
+    try {
+      read_run_record(dir / "bad.json");
+      ADD_FAILURE() << "accepted: " << part;
+    } catch (const InputError& e) {
+      EXPECT_NE(std::string(e.what()).find(part), std::string::npos) << e.what();
+    }
+  };
+  auto j = good;
+  j["cases"][0]["limits"]["max_scaled_error"] = -1;
+  refused(j, "field \"max_scaled_error\": -1 is out of range");
+  j = good;
+  j["verdict"] = "maybe";
+  refused(j, "field \"verdict\": \"maybe\"");
+  j = good;
+  j["cases"][0]["faults"] = {{"gremlins", 1}};
+  refused(j, "\"gremlins\" is not a fault class");
+  j = good;
+  j["cases"][0]["name"] = "../../etc/passwd";
+  refused(j, "is not a valid case name");
+  j = good;
+  j["cases"][1]["name"] = j["cases"][0]["name"];
+  refused(j, "is also cases[0]");
+  j = good;
+  j["shard"] = "3/2";
+  refused(j, "field \"shard\": \"3/2\"");
+  j = good;
+  j["cases"][0]["name"] = std::string("a\0b", 3) + std::string(300, 'x');
+  refused(j, "\"a\\x00bxxx");
+  refused(j, "(cut at byte 80 of 303)");
+  std::ofstream(dir / "big.json") << "{\"schema\": 1e400}";
+  try {
+    read_run_record(dir / "big.json");
+    ADD_FAILURE() << "accepted 1e400";
+  } catch (const InputError& e) {
+    EXPECT_EQ(e.place(), "line 1, column 12") << e.what();
+  }
 }
 
 TEST(Merge, RefusesDuplicatesAndMismatchesNamingTheFile) {

@@ -8,6 +8,7 @@
 
 #include "headroom/external_program.h"
 #include "headroom/input_error.h"
+#include "headroom/json_input.h"
 #include "headroom/kernel_abi.h"
 
 namespace headroom {
@@ -119,13 +120,8 @@ constexpr MaskKind kMaskKinds[] = {MaskKind::none,        MaskKind::causal_top_l
 }  // namespace
 
 KernelDeclaration declaration_from_json(const std::string& text, const std::string& origin, int* serve) {
-  json j;
-  try {
-    j = json::parse(text);
-  } catch (const json::exception& e) {  // parse_error, or out_of_range for a number like 1e400
-    throw InputError(origin, "describe output", std::string("not valid JSON: ") + e.what(),
-                     "print exactly one JSON object on stdout (logs go to stderr)");
-  }
+  // Errors say "describe output line L, column C".
+  const json j = parse_json_input(text, origin + ": describe output", "print exactly one JSON object on stdout (logs go to stderr)");
   if (!j.is_object()) {
     throw InputError(origin, "describe output", "expected a JSON object", "print the declaration as one JSON object");
   }

@@ -14,6 +14,7 @@
 
 #include "headroom/budget.h"
 #include "headroom/input_error.h"
+#include "headroom/input_file.h"
 #include "headroom/nearest_name.h"
 
 namespace headroom {
@@ -278,12 +279,10 @@ Budget parse_budget(std::string_view text, const std::string& path) {
 }
 
 Budget load_budget(const std::string& path) {
-  std::ifstream in(path, std::ios::binary);
-  if (!in) throw InputError(path, "file", "cannot be opened", "give the path of a readable budget file");
-  std::ostringstream text;
-  text << in.rdbuf();
-  if (in.bad()) throw InputError(path, "file", "cannot be read", "check the file and its permissions");
-  return parse_budget(text.str(), path);
+  // A budget is a page of TOML; the cap only guards against a wrong, huge file.
+  static constexpr InputKind kBudgetFile{"budget file", std::uint64_t{1} << 20,
+                                         "give the path of a budget file (TOML, docs/budget-format.md)"};
+  return parse_budget(read_input_file(path, kBudgetFile), path);
 }
 
 std::string Budget::Unmatched::text() const {

@@ -18,6 +18,7 @@
 
 #include "headroom/atomic_file.h"
 #include "headroom/input_error.h"
+#include "headroom/input_file.h"
 #include "headroom/npy.h"
 #include "manifest.h"
 
@@ -116,24 +117,38 @@ void check_case(Case& c, const fs::path& dir) {
   for (const Slot& s : slots_of(c)) check_finite(*s.tensor, dir / s.file);
 }
 
-std::string read_manifest_text(const fs::path& file) {
-  std::error_code ec;
-  if (!fs::is_regular_file(file, ec))
-    throw InputError(file.string(), "file", "no such file", "a case folder holds manifest.json; is this a case folder?");
-  const std::uintmax_t size = fs::file_size(file, ec);
-  if (ec) throw InputError(file.string(), "file", "cannot be read: " + ec.message(), "check the permissions");
-  if (size > kMaxManifestBytes)
-    throw InputError(file.string(), "file", "manifest of " + std::to_string(size) + " bytes is implausibly large",
-                     "is this the right file? a manifest is a small JSON object");
-  std::ifstream in(file, std::ios::binary);
-  std::string text(static_cast<std::size_t>(size), '\0');
-  in.read(text.data(), static_cast<std::streamsize>(size));
-  if (!in) throw InputError(file.string(), "file", "cannot be read", "check the permissions");
-  return text;
+// The case folder, open: its files are opened relative to it, never through a link.
+class OpenFolder {
+ public:
+  explicit OpenFolder(const fs::path& dir) : dir_(dir), fd_(::open(dir.c_str(), O_RDONLY | O_DIRECTORY | O_CLOEXEC)) {
+    if (fd_ < 0)
+      throw InputError(dir.string(), "folder", std::string("cannot be opened: ") + std::strerror(errno),
+                       "give the path of a case folder (it holds manifest.json)");
+  }
+  OpenFolder(const OpenFolder&) = delete;
+  OpenFolder& operator=(const OpenFolder&) = delete;
+  ~OpenFolder() { ::close(fd_); }
+  InputFile open(const std::string& name, const InputKind& kind) const { return open_input_file_in(fd_, dir_, name, kind); }
+  bool has(const std::string& name) const {
+    struct stat st {};
+    return ::fstatat(fd_, name.c_str(), &st, AT_SYMLINK_NOFOLLOW) == 0;
+  }
+  const fs::path& path() const { return dir_; }
+
+ private:
+  fs::path dir_;
+  int fd_;
+};
+
+std::string read_manifest_text(const OpenFolder& folder) {
+  const InputKind manifest{"case manifest", kMaxManifestBytes, "a case folder holds manifest.json; is this a case folder?"};
+  return read_all(folder.open(kManifest, manifest), folder.path() / kManifest);
 }
 
-Tensor read_tensor(const fs::path& file, const std::set<std::string>& dtypes, const std::string& why) {
-  const NpyArray a = read_npy(file);
+Tensor read_tensor(const OpenFolder& folder, const std::string& name, const std::set<std::string>& dtypes,
+                   const std::string& why) {
+  const fs::path file = folder.path() / name;
+  const NpyArray a = read_npy(folder.open(name, kNpyInput), file);
   if (dtypes.count(a.descr) == 0) {
     std::string list;
     for (const auto& d : dtypes) list += (list.empty() ? "'" : " or '") + d + "'";
@@ -195,12 +210,15 @@ void put_in_place(const fs::path& temp, const fs::path& dir, const fs::path& par
 
 }  // namespace
 
+bool valid_case_name(std::string_view name) { return case_detail::valid_case_name(name); }
+
 Case read_case(const fs::path& dir) {
   std::error_code ec;
   if (!fs::is_directory(dir, ec))
     throw InputError(dir.string(), "folder", fs::exists(dir, ec) ? "not a folder" : "no such folder",
                      "give the path of a case folder (it holds manifest.json)");
-  Case c = case_detail::parse_manifest(read_manifest_text(dir / kManifest), (dir / kManifest).string());
+  const OpenFolder folder(dir);
+  Case c = case_detail::parse_manifest(read_manifest_text(folder), (dir / kManifest).string());
   Mask& mask = mask_of(c);
 
   std::set<std::string> expected;
@@ -223,12 +241,11 @@ Case read_case(const fs::path& dir) {
   const std::set<std::string> source{std::string(npy_descr_of(c.source_format))};
   const std::string why = "source_format " + std::string(format_name(c.source_format));
   for (const Slot& s : slots_of(c)) {
-    const fs::path file = dir / s.file;
-    if (s.optional && !fs::exists(file, ec)) continue;
-    *s.tensor = read_tensor(file, source, why);
+    if (s.optional && !folder.has(s.file)) continue;
+    *s.tensor = read_tensor(folder, s.file, source, why);
   }
-  if (mask.kind == MaskKind::dense) mask.allowed = read_tensor(dir / "mask.npy", {"|b1", "|u1"}, "a dense mask");
-  if (mask.kind == MaskKind::bias) mask.bias = read_tensor(dir / "bias.npy", {"<f4", "<f8"}, "a bias mask");
+  if (mask.kind == MaskKind::dense) mask.allowed = read_tensor(folder, "mask.npy", {"|b1", "|u1"}, "a dense mask");
+  if (mask.kind == MaskKind::bias) mask.bias = read_tensor(folder, "bias.npy", {"<f4", "<f8"}, "a bias mask");
   check_case(c, dir);
   return c;
 }

@@ -12,6 +12,7 @@
 
 #include "headroom/case_folder.h"
 #include "headroom/input_error.h"
+#include "headroom/json_input.h"
 
 namespace headroom::case_detail {
 namespace {
@@ -96,62 +97,8 @@ class Reader {
   const std::string& file_;
 };
 
-// Parses the JSON, refusing syntax errors (with line and column) and repeated
-// keys: nlohmann::json keeps the last of repeated keys silently, so the parser
-// callback tracks each object's keys by path.
 json parse_json(std::string_view text, const std::string& file) {
-  struct Frame {
-    std::set<std::string> keys;
-    std::string current;
-  };
-  std::vector<Frame> stack;
-  std::string repeated;
-  auto callback = [&](int, json::parse_event_t ev, json& parsed) {
-    switch (ev) {
-      case json::parse_event_t::object_start:
-      case json::parse_event_t::array_start:
-        stack.push_back({});
-        break;
-      case json::parse_event_t::object_end:
-      case json::parse_event_t::array_end:
-        if (!stack.empty()) stack.pop_back();
-        break;
-      case json::parse_event_t::key:
-        if (!stack.empty()) {
-          Frame& f = stack.back();
-          f.current = parsed.get<std::string>();
-          if (!f.keys.insert(f.current).second && repeated.empty()) {
-            for (const auto& fr : stack) repeated += (repeated.empty() || fr.current.empty() ? "" : ".") + fr.current;
-          }
-        }
-        break;
-      default:
-        break;
-    }
-    return true;
-  };
-  json j;
-  try {
-    j = json::parse(text.begin(), text.end(), callback);
-  } catch (const json::parse_error& e) {
-    // what() reads "[json.exception.parse_error.101] parse error at line 1, column 5: <reason>".
-    std::string reason = e.what();
-    const auto at = reason.find(": ", reason.find("parse error"));
-    if (at != std::string::npos) reason = reason.substr(at + 2);
-    const std::size_t offset = e.byte == 0 ? 0 : e.byte - 1;
-    throw InputError(file, line_column(text, offset), "not valid JSON: " + reason, "correct the JSON syntax at that place");
-  } catch (const json::out_of_range& e) {
-    // A number beyond double's range (1e400): nlohmann throws out_of_range.406
-    // "number overflow parsing '<token>'" without a position; locate the token.
-    std::string token = e.what();
-    const auto open = token.find("parsing '");
-    token = open == std::string::npos ? std::string() : token.substr(open + 9, token.rfind('\'') - open - 9);
-    const std::size_t at = token.empty() ? std::string_view::npos : text.find(token);
-    throw InputError(file, at == std::string_view::npos ? "a number" : line_column(text, at),
-                     "number " + token + " is beyond the range of a double", "write a number of plausible size");
-  }
-  if (!repeated.empty())
-    throw InputError(file, "field \"" + repeated + "\"", "the key appears more than once", "keep one of them");
+  json j = parse_json_input(text, file, "correct the JSON syntax at that place");
   if (!j.is_object()) throw InputError(file, "line 1, column 1", "the manifest is not a JSON object", kSchemaFix);
   return j;
 }
@@ -195,17 +142,6 @@ bool valid_case_name(std::string_view name) {
   return std::all_of(name.begin(), name.end(), [](char c) {
     return (c >= 'a' && c <= 'z') || (c >= 'A' && c <= 'Z') || (c >= '0' && c <= '9') || c == '_' || c == '.' || c == '+' || c == '-';
   });
-}
-
-std::string line_column(std::string_view text, std::size_t offset) {
-  offset = std::min(offset, text.size());
-  std::size_t line = 1, line_start = 0;
-  for (std::size_t i = 0; i < offset; ++i)
-    if (text[i] == '\n') {
-      ++line;
-      line_start = i + 1;
-    }
-  return "line " + std::to_string(line) + ", column " + std::to_string(offset - line_start + 1);
 }
 
 Case parse_manifest(std::string_view text, const std::string& file) {

@@ -25,7 +25,5 @@ std::string format_manifest(const Case& c);
 /// [A-Za-z0-9_.+-], and not "." or "..".
 bool valid_case_name(std::string_view name);
 
-/// Returns: "line L, column C" (both from 1) of 0-based byte `offset` in `text`.
-std::string line_column(std::string_view text, std::size_t offset);
 
 }  // namespace headroom::case_detail

@@ -11,13 +11,13 @@
 #include <array>
 #include <cerrno>
 #include <cstring>
-#include <fstream>
 #include <new>
 #include <stdexcept>
 #include <system_error>
 
 #include "headroom/atomic_file.h"
 #include "headroom/input_error.h"
+#include "headroom/input_file.h"
 #include "npy_header.h"
 
 namespace headroom {
@@ -185,25 +185,38 @@ NpyArray parse_npy(const unsigned char* data, std::size_t size, const std::strin
   return a;
 }
 
-NpyArray read_npy(const std::filesystem::path& path) {
+namespace {
+
+// Reads exactly `n` bytes at `offset`; returns how many it got (fewer at end of file).
+std::size_t read_at(const InputFile& f, void* into, std::size_t n, std::uint64_t offset, const std::string& file) {
+  std::size_t got = 0;
+  while (got < n) {
+    const ssize_t r = pread(f.fd(), static_cast<char*>(into) + got, n - got, static_cast<off_t>(offset + got));
+    if (r < 0 && errno == EINTR) continue;
+    if (r < 0) throw InputError(file, "file", std::string("cannot be read: ") + std::strerror(errno), "check the permissions");
+    if (r == 0) break;
+    got += static_cast<std::size_t>(r);
+  }
+  return got;
+}
+
+}  // namespace
+
+NpyArray read_npy(const std::filesystem::path& path) { return read_npy(open_input_file(path, kNpyInput), path); }
+
+NpyArray read_npy(const InputFile& f, const std::filesystem::path& path) {
   const std::string file = path.string();
-  std::error_code ec;
-  if (!std::filesystem::is_regular_file(path, ec))
-    throw InputError(file, "file", std::filesystem::exists(path, ec) ? "not a regular file" : "no such file",
-                     "check the path; a case folder holds its tensors under fixed names");
-  const std::uint64_t file_size = std::filesystem::file_size(path, ec);
-  std::ifstream in(path, std::ios::binary);
-  if (ec || !in) throw InputError(file, "file", "cannot be read: " + (ec ? ec.message() : std::string(std::strerror(errno))), "check the permissions");
+  const std::uint64_t file_size = f.size();
 
   std::array<unsigned char, 12> first{};
   const std::size_t first_n = static_cast<std::size_t>(std::min<std::uint64_t>(file_size, first.size()));
-  in.read(reinterpret_cast<char*>(first.data()), static_cast<std::streamsize>(first_n));
+  if (read_at(f, first.data(), first_n, 0, file) != first_n)
+    throw InputError(file, "header", "read failed (the file changed while being read?)", "read it again");
   const Prelude p = read_prelude(first.data(), first_n, file_size, file);
 
   std::string text(p.header_len, '\0');
-  in.seekg(static_cast<std::streamoff>(p.size));
-  in.read(text.data(), static_cast<std::streamsize>(text.size()));
-  if (!in) throw InputError(file, "header", "read failed (the file changed while being read?)", "read it again");
+  if (read_at(f, text.data(), text.size(), p.size, file) != text.size())
+    throw InputError(file, "header", "read failed (the file changed while being read?)", "read it again");
   Layout l = check_layout(p, text, file_size, file);
 
   const std::size_t offset = l.data_offset, n = l.data_size;
@@ -214,9 +227,9 @@ NpyArray read_npy(const std::filesystem::path& path) {
     throw InputError(file, "data", "cannot allocate " + std::to_string(n) + " bytes for the data",
                      "free memory, or split the array");
   }
-  in.read(reinterpret_cast<char*>(a.bytes.data()), static_cast<std::streamsize>(n));
-  if (static_cast<std::size_t>(in.gcount()) != n)
-    throw InputError(file, "data", "read failed after " + std::to_string(in.gcount()) + " of " + std::to_string(n) + " bytes",
+  const std::size_t got = read_at(f, a.bytes.data(), n, offset, file);
+  if (got != n)
+    throw InputError(file, "data", "read failed after " + std::to_string(got) + " of " + std::to_string(n) + " bytes",
                      "the file changed while being read; read it again");
   check_bools(a, offset, file);
   return a;

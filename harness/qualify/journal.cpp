@@ -1,24 +1,47 @@
 // headroom — the journal of finished cases (journal.h).
 #include "headroom/journal.h"
 
+#include <sys/stat.h>
 #include <unistd.h>
 
+#include <algorithm>
 #include <cerrno>
 #include <cstring>
-#include <fstream>
 #include <vector>
 
 #include "headroom/atomic_file.h"
 #include "headroom/input_error.h"
+#include "headroom/input_file.h"
+#include "headroom/json_input.h"
 
 namespace headroom {
 namespace {
 
+// The journal's lines as std::getline would split them: on '\n', with no
+// empty last line for a file that ends in one.
 std::vector<std::string> read_lines(const std::filesystem::path& path) {
+  static constexpr InputKind kJournalFile{"journal", kRecordFile.max_bytes,
+                                          "give the journal of a headroom run, or remove it to start afresh"};
+  const std::string text = read_input_file(path, kJournalFile);
   std::vector<std::string> lines;
-  std::ifstream in(path);
-  for (std::string line; std::getline(in, line);) lines.push_back(line);
+  for (std::size_t start = 0; start < text.size();) {
+    const std::size_t end = std::min(text.find('\n', start), text.size());
+    lines.push_back(text.substr(start, end - start));
+    start = end + 1;
+  }
   return lines;
+}
+
+// A journal is appended to as a run goes: opening a FIFO for writing would
+// block the run until a reader came, and a directory or socket cannot be
+// written. (A device such as /dev/null or /dev/full is the user's choice.)
+void check_writable_target(const std::filesystem::path& path) {
+  struct stat st {};
+  if (::stat(path.c_str(), &st) == 0 && (S_ISFIFO(st.st_mode) || S_ISDIR(st.st_mode) || S_ISSOCK(st.st_mode)))
+    throw InputError(path.string(), "file",
+                     std::string("is ") + (S_ISFIFO(st.st_mode) ? "a FIFO (named pipe)" : S_ISDIR(st.st_mode) ? "a directory" : "a socket") +
+                         ", not a regular file: a journal is a file headroom appends to",
+                     "give a path for a new journal, or of a journal headroom wrote");
 }
 
 }  // namespace
@@ -31,25 +54,25 @@ Journal::Journal(std::filesystem::path path, const std::string& identity, bool r
     const auto lines = read_lines(path_);
     if (!lines.empty()) {
       fresh = false;
-      nlohmann::json head;
-      try {
-        head = nlohmann::json::parse(lines[0]);
-      } catch (const nlohmann::json::exception&) {  // parse_error, or out_of_range for a number like 1e400
-        throw InputError(file, "line 1", "is not a journal identity line", "remove the journal to start afresh");
-      }
+      const nlohmann::json head = parse_json_input(lines[0], file, "remove the journal to start afresh", 1);
       if (head != id_line)
-        throw InputError(file, "line 1", "belongs to another run (" + head.dump() + ")",
+        throw InputError(file, "line 1", "belongs to another run (" + quote_input(head.dump()) + ")",
                          "resume with the same command and options, or remove the journal to start afresh");
       for (std::size_t i = 1; i < lines.size(); ++i) {
         const std::string place = "line " + std::to_string(i + 1);
+        nlohmann::json line;
         try {
-          auto c = case_record_from_json(nlohmann::json::parse(lines[i]), file, place);
-          done_[c.name] = std::move(c);
-        } catch (const nlohmann::json::exception&) {  // parse_error, or out_of_range for a number like 1e400
+          line = parse_json_input(lines[i], file, "remove the journal to start afresh", i + 1);
+        } catch (const InputError&) {
           // Only the last line can be a write cut short by a kill; anything else is damage.
-          if (i + 1 != lines.size())
-            throw InputError(file, place, "is not a valid case record", "remove the journal to start afresh");
+          if (i + 1 == lines.size()) continue;
+          throw;
         }
+        auto c = case_record_from_json(line, file, place);
+        if (done_.count(c.name))
+          throw InputError(file, place + " field \"name\"", "case " + quote_input(c.name) + " is journalled twice",
+                           "remove the journal to start afresh");
+        done_[c.name] = std::move(c);
       }
       if (!lines.back().empty() && done_.size() + 1 < lines.size()) {
         // Rewrite without the torn last line so appends start on a clean line;
@@ -60,6 +83,7 @@ Journal::Journal(std::filesystem::path path, const std::string& identity, bool r
       }
     }
   }
+  check_writable_target(path_);
   file_ = std::fopen(file.c_str(), fresh ? "w" : "a");
   if (!file_)
     throw InputError(file, "file", std::string("cannot be opened for writing: ") + std::strerror(errno),

@@ -1,15 +1,22 @@
 // headroom — the run record and its JSON form (record.h, docs/result-schema.md).
 #include "headroom/record.h"
 
+#include <algorithm>
+#include <charconv>
 #include <cmath>
-#include <fstream>
+#include <cstdio>
 #include <limits>
-#include <sstream>
+#include <optional>
 
 #include "headroom/atomic_file.h"
 #include "headroom/error_growth.h"
 #include "headroom/families.h"
 #include "headroom/input_error.h"
+#include "headroom/input_file.h"
+#include "headroom/case_folder.h"
+#include "headroom/faults.h"
+#include "headroom/json_input.h"
+#include "headroom/qualify.h"
 
 namespace headroom {
 namespace {
@@ -17,6 +24,18 @@ namespace {
 using nlohmann::json;
 
 json number(double x) { return json_number(x); }
+
+std::string fmt_number(double x) {
+  if (std::isnan(x)) return "nan";
+  if (std::isinf(x)) return x > 0 ? "inf" : "-inf";
+  char buf[40];
+  std::snprintf(buf, sizeof buf, "%.17g", x);
+  return buf;
+}
+
+std::string range_text(double lo, double hi, bool nan_ok) {
+  return "expected " + fmt_number(lo) + " to " + fmt_number(hi) + (nan_ok ? ", or \"nan\"" : "");
+}
 
 class Reader {
  public:
@@ -81,6 +100,47 @@ class Reader {
     }
     return out;
   }
+  /// A number that must lie in [lo, hi]; NaN passes only when `nan_ok`.
+  double num_in(const std::string& key, double lo, double hi, bool nan_ok) const {
+    const double x = num(key);
+    if (std::isnan(x) ? !nan_ok : (x < lo || x > hi))
+      fail(key, fmt_number(x) + " is out of range: " + range_text(lo, hi, nan_ok), "give a record written by headroom");
+    return x;
+  }
+  /// An error figure or a limit: ≥ 0, possibly +inf, NaN where not applicable.
+  double size_like(const std::string& key) const {
+    return num_in(key, 0, std::numeric_limits<double>::infinity(), true);
+  }
+  template <class Int>
+  Int integer_in(const std::string& key, Int lo, Int hi) const {
+    const json& v = field(key);
+    if (!v.is_number_integer()) fail(key, "is not an integer", "write a JSON integer");
+    const bool below = v.is_number_unsigned() ? false : v.get<std::int64_t>() < static_cast<std::int64_t>(lo);
+    const bool above = v.is_number_unsigned() ? v.get<std::uint64_t>() > static_cast<std::uint64_t>(hi)
+                                              : v.get<std::int64_t>() > static_cast<std::int64_t>(hi);
+    if (below || above)
+      fail(key, v.dump() + " is out of range [" + std::to_string(lo) + ", " + std::to_string(hi) + "]",
+           "give a record written by headroom");
+    return v.is_number_unsigned() ? static_cast<Int>(v.get<std::uint64_t>()) : static_cast<Int>(v.get<std::int64_t>());
+  }
+  /// A string that must be one of `allowed`.
+  std::string one_of(const std::string& key, std::initializer_list<std::string_view> allowed) const {
+    std::string v = str(key);
+    std::string list;
+    for (auto a : allowed) {
+      if (v == a) return v;
+      list += (list.empty() ? "" : ", ") + std::string(a);
+    }
+    fail(key, quote_input(v) + " is not one of " + list, "give a record written by headroom");
+  }
+  /// A case name: the rules of case folders (valid_case_name, case_folder.h).
+  std::string case_name(const std::string& key) const {
+    std::string v = str(key);
+    if (!valid_case_name(v))
+      fail(key, quote_input(v) + " is not a valid case name (1 to 200 of A-Z a-z 0-9 _ . + -, not . or ..)",
+           "give a record written by headroom");
+    return v;
+  }
   bool has(const std::string& key) const { return j_.contains(key); }
   const json& raw() const { return j_; }
   const std::string& file() const { return file_; }
@@ -112,26 +172,28 @@ json figures_json(const CaseFigures& f) {
 }
 
 CaseFigures figures_from(const Reader& r) {
+  constexpr double kInf = std::numeric_limits<double>::infinity();
   CaseFigures f;
-  f.elements = r.integer<std::int64_t>("elements");
-  f.max_ulp = r.num("max_ulp");
-  f.max_scaled_error = r.num("max_scaled_error");
-  f.max_abs_error = r.num("max_abs_error");
-  f.rmse = r.num("rmse");
-  f.relative_rmse = r.num("relative_rmse");
-  f.relative_l1 = r.num("relative_l1");
-  f.cosine = r.num("cosine");
-  f.lse_error = r.num("lse_error");
-  f.ratio_to_plain = r.num("ratio_to_plain");
-  f.input_error = r.num("input_error");
-  // Absent from records written before P rounding was measured.
-  f.p_rounding_error = r.has("p_rounding_error") ? r.num("p_rounding_error") : std::numeric_limits<double>::quiet_NaN();
-  f.kernel_error = r.num("kernel_error");
+  f.elements = r.integer_in<std::int64_t>("elements", 0, std::numeric_limits<std::int64_t>::max());
+  f.max_ulp = r.size_like("max_ulp");
+  f.max_scaled_error = r.size_like("max_scaled_error");
+  f.max_abs_error = r.size_like("max_abs_error");
+  f.rmse = r.size_like("rmse");
+  f.relative_rmse = r.size_like("relative_rmse");
+  f.relative_l1 = r.size_like("relative_l1");
+  // A cosine is in [−1, 1]; the computed one may pass 1 by a rounding or two.
+  f.cosine = r.num_in("cosine", -1 - 1e-9, 1 + 1e-9, true);
+  f.lse_error = r.size_like("lse_error");
+  f.ratio_to_plain = r.size_like("ratio_to_plain");
+  f.input_error = r.size_like("input_error");
+  // Absent from records written before P rounding was measured (NaN: P not rounded).
+  if (r.has("p_rounding_error")) f.p_rounding_error = r.size_like("p_rounding_error");
+  f.kernel_error = r.size_like("kernel_error");
   f.worst_index = r.str("worst_index");
-  f.worst_expected = r.num("worst_expected");
-  f.worst_obtained = r.num("worst_obtained");
+  f.worst_expected = r.num_in("worst_expected", -kInf, kInf, true);
+  f.worst_obtained = r.num_in("worst_obtained", -kInf, kInf, true);
   // Added after schema 1 was first written: records without it still read (as NaN).
-  if (r.has("worst_ulp_at")) f.worst_ulp_at = r.num("worst_ulp_at");
+  if (r.has("worst_ulp_at")) f.worst_ulp_at = r.num_in("worst_ulp_at", -kInf, kInf, true);
   return f;
 }
 
@@ -144,25 +206,19 @@ json limits_json(const CaseLimits& l) {
 
 CaseLimits limits_from(const Reader& r) {
   CaseLimits l;
-  l.max_ulp = r.num("max_ulp");
-  l.max_scaled_error = r.num("max_scaled_error");
-  l.max_rel_rmse = r.num("max_rel_rmse");
-  l.max_ratio_to_plain = r.num("max_ratio_to_plain");
+  l.max_ulp = r.size_like("max_ulp");
+  l.max_scaled_error = r.size_like("max_scaled_error");
+  l.max_rel_rmse = r.size_like("max_rel_rmse");
+  l.max_ratio_to_plain = r.size_like("max_ratio_to_plain");
   return l;
 }
 
-// Returns: "line L, column C" of byte offset `byte` in `text` (1-based).
-std::string line_column(const std::string& text, std::size_t byte) {
-  std::size_t line = 1, column = 1;
-  for (std::size_t i = 0; i < byte && i < text.size(); ++i) {
-    if (text[i] == '\n') {
-      ++line;
-      column = 1;
-    } else {
-      ++column;
-    }
-  }
-  return "line " + std::to_string(line) + ", column " + std::to_string(column);
+// The "levels" field: level_takes() as JSON.
+json levels_json(const RunRecord& r) {
+  json levels = json::array();
+  for (const LevelTake& t : r.level_takes())
+    levels.push_back({{"level", t.level}, {"taken", t.taken}, {"of", t.of}, {"thin", t.thin()}});
+  return levels;
 }
 
 }  // namespace
@@ -174,9 +230,11 @@ nlohmann::json json_number(double x) {
 }
 
 std::string RunRecord::verdict() const {
+  std::string v = "pass";
   for (const auto& c : cases)
-    if (!c.within_budget) return "fail";
-  return growth_failures().empty() ? "pass" : "fail";
+    if (!c.within_budget) v = "fail";
+  if (!growth_failures().empty()) v = "fail";
+  return missing_shards.empty() ? v : "partial_" + v;
 }
 
 std::vector<std::string> RunRecord::growth_failures() const {
@@ -286,12 +344,9 @@ json growth_json(const std::vector<FormatGrowth>& g) {
 }  // namespace
 
 json to_json(const RunRecord& r) {
-  json levels = json::array();
-  for (const LevelTake& t : r.level_takes())
-    levels.push_back({{"level", t.level}, {"taken", t.taken}, {"of", t.of}, {"thin", t.thin()}});
   json cases = json::array();
   for (const auto& c : r.cases) cases.push_back(to_json(c));
-  return {{"schema", r.schema},
+  json j = {{"schema", r.schema},
           {"tool", r.tool},
           {"command", r.command},
           {"kernel", r.kernel},
@@ -303,7 +358,7 @@ json to_json(const RunRecord& r) {
           {"shard", r.shard},
           {"verdict", r.verdict()},
           {"verdict_line", r.verdict_line()},
-          {"levels", levels},
+          {"levels", levels_json(r)},
           {"faults", r.fault_totals()},
           {"tolerated_faults", r.tolerated_faults},
           {"cases", cases},
@@ -312,34 +367,98 @@ json to_json(const RunRecord& r) {
           {"growth_limit", json_number(r.growth_limit)},
           {"growth_limit_origin", r.growth_limit_origin},
           {"error_growth", growth_json(error_growth(r.cases))}};
+  if (!r.missing_shards.empty()) j["missing_shards"] = r.missing_shards;
+  return j;
 }
+
+namespace {
+
+// The extents of a shape field: 7 (core) or 8 (block) positive integers, comma-separated.
+std::vector<std::int64_t> shape_extents(const Reader& r, const std::string& shape, const std::string& level) {
+  const std::size_t want = level == "core" ? 7 : 8;
+  std::vector<std::int64_t> out;
+  for (std::size_t start = 0; start <= shape.size();) {
+    const std::size_t comma = std::min(shape.find(',', start), shape.size());
+    std::int64_t e = 0;
+    const char* b = shape.data() + start;
+    const char* end = shape.data() + comma;
+    const auto res = std::from_chars(b, end, e);
+    if (res.ec != std::errc{} || res.ptr != end || e < 1) break;
+    out.push_back(e);
+    start = comma + 1;
+  }
+  if (out.size() != want || std::count(shape.begin(), shape.end(), ',') + 1 != static_cast<std::ptrdiff_t>(want))
+    r.fail("shape", quote_input(shape) + " is not " + std::to_string(want) + " positive integers for level " + level,
+           level == "core" ? "write B,Hq,Hkv,Tq,Tk,Dk,Dv" : "write B,Tq,Tk,Dm,Hq,Hkv,Dk,Dv");
+  return out;
+}
+
+// A fault-class → count object; every class a known one (faults.h).
+std::map<std::string, int> fault_counts(const Reader& r, const std::string& key) {
+  const json& faults = r.field(key);
+  if (!faults.is_object()) r.fail(key, "is not an object", "write {\"class\": count, ...}");
+  std::map<std::string, int> out;
+  for (const auto& [name, n] : faults.items()) {
+    if (!parse_fault_class(name))
+      r.fail(key, quote_input(name) + " is not a fault class", "give a record written by headroom (classes: DESIGN.md)");
+    if (!n.is_number_integer() || (n.is_number_integer() && !n.is_number_unsigned() && n.get<std::int64_t>() < 0) ||
+        (n.is_number_unsigned() && n.get<std::uint64_t>() > static_cast<std::uint64_t>(std::numeric_limits<int>::max())))
+      r.fail(key, "count of " + quote_input(name) + " is not an integer from 0 to 2^31 - 1", "write a count");
+    out[name] = n.get<int>();
+  }
+  return out;
+}
+
+std::vector<std::string> fault_classes(const Reader& r, const std::string& key) {
+  std::vector<std::string> out = r.strings(key);
+  for (const auto& name : out)
+    if (!parse_fault_class(name)) r.fail(key, quote_input(name) + " is not a fault class", "give a record written by headroom");
+  return out;
+}
+
+// "i/n" with 1 ≤ i ≤ n ≤ 100000 (the range --shard takes), or nothing.
+std::optional<Shard> shard_of(const std::string& text) {
+  const auto slash = text.find('/');
+  if (slash == std::string::npos) return std::nullopt;
+  int i = 0, n = 0;
+  const char* b = text.data();
+  const char* e = b + text.size();
+  const auto r1 = std::from_chars(b, b + slash, i);
+  const auto r2 = std::from_chars(b + slash + 1, e, n);
+  if (r1.ec != std::errc{} || r1.ptr != b + slash || r2.ec != std::errc{} || r2.ptr != e) return std::nullopt;
+  if (n < 1 || n > 100000 || i < 1 || i > n) return std::nullopt;
+  return Shard{i - 1, n};
+}
+
+}  // namespace
 
 CaseRecord case_record_from_json(const json& j, const std::string& file, const std::string& place) {
   const Reader r(j, file, place);
   CaseRecord c;
-  c.name = r.str("name");
+  c.name = r.case_name("name");
   c.family = r.str("family");
   c.seed = r.integer<std::uint64_t>("seed");
-  c.size = r.integer<int>("size");
-  c.level = r.str("level");
+  c.size = r.integer_in<int>("size", 0, std::numeric_limits<int>::max());
+  c.level = r.one_of("level", {"core", "block"});
   c.shape = r.str("shape");
-  c.kv_len = r.integer<std::int64_t>("kv_len");
-  c.logit_scale = r.num("logit_scale");
+  const std::vector<std::int64_t> extents = shape_extents(r, c.shape, c.level);
+  (void)extents;
+  c.kv_len = r.integer_in<std::int64_t>("kv_len", 0, std::numeric_limits<std::int64_t>::max());
+  c.logit_scale = r.size_like("logit_scale");
   c.mask = r.str("mask");
+  if (!parse_mask_kind(c.mask)) r.fail("mask", quote_input(c.mask) + " is not a mask kind", "give a record written by headroom");
   c.format = r.str("format");
+  if (!parse_format(c.format)) r.fail("format", quote_input(c.format) + " is not a format", "give a record written by headroom");
   c.figures = figures_from(Reader(r.field("figures"), file, place + " figures"));
-  const json& faults = r.field("faults");
-  if (!faults.is_object()) r.fail("faults", "is not an object", "write {\"class\": count, ...}");
-  for (const auto& [name, n] : faults.items()) {
-    if (!n.is_number_integer() || n.get<std::int64_t>() < 0)
-      r.fail("faults", "count of \"" + name + "\" is not a non-negative integer", "write a count");
-    c.faults[name] = n.get<int>();
-  }
+  c.faults = fault_counts(r, "faults");
   c.fault_details = r.strings("fault_details");
   c.within_budget = r.boolean("within_budget");
   c.reasons = r.strings("reasons");
   c.replay = r.str("replay");
   c.ulp_histogram = r.numbers("ulp_histogram");
+  for (double n : c.ulp_histogram)
+    if (!(n >= 0) || !std::isfinite(n) || n != std::floor(n))
+      r.fail("ulp_histogram", "holds " + fmt_number(n) + ", not a count", "give a record written by headroom");
   // Added after schema 1 was first written: records without it still read.
   if (r.has("limits")) c.limits = limits_from(Reader(r.field("limits"), file, place + " limits"));
   if (r.has("reference_certified")) c.reference_certified = r.boolean("reference_certified");
@@ -354,7 +473,7 @@ RunRecord run_record_from_json(const json& j, const std::string& file) {
     r.fail("schema", "is " + std::to_string(rec.schema) + ", this headroom reads " + std::to_string(kRecordSchema),
            "re-run with the headroom that wrote it, or regenerate the record");
   rec.tool = r.str("tool");
-  rec.command = r.str("command");
+  rec.command = r.one_of("command", {"qualify", "hunt", "replay", "merge"});
   rec.kernel = r.str("kernel");
   rec.kernel_description = r.str("kernel_description");
   rec.input_format = r.str("input_format");
@@ -362,37 +481,68 @@ RunRecord run_record_from_json(const json& j, const std::string& file) {
   rec.suite = r.str("suite");
   rec.budget = r.str("budget");
   rec.shard = r.str("shard");
+  const std::optional<Shard> shard = shard_of(rec.shard);
+  if (!shard && (rec.shard != "merged" || rec.command != "merge"))
+    r.fail("shard", quote_input(rec.shard) + " is neither i/n with 1 ≤ i ≤ n ≤ 100000 nor \"merged\"",
+           "give a record written by headroom qualify --shard i/n or by headroom merge");
+  // Added with `merge --allow-partial`: records without it are complete.
+  if (r.has("missing_shards")) rec.missing_shards = r.strings("missing_shards");
+  for (const auto& m : rec.missing_shards)
+    if (rec.shard != "merged" || !shard_of(m))
+      r.fail("missing_shards", quote_input(m) + (rec.shard != "merged" ? " in a record that is not merged" : " is not i/n"),
+             "give a record written by headroom merge");
   const json& cases = r.field("cases");
   if (!cases.is_array()) r.fail("cases", "is not an array", "write an array of case records");
-  for (std::size_t i = 0; i < cases.size(); ++i)
-    rec.cases.push_back(case_record_from_json(cases[i], file, "cases[" + std::to_string(i) + "]"));
+  std::map<std::string, std::string> seen;  // case name → where
+  auto claim = [&](const std::string& name, const std::string& where) {
+    if (auto [it, fresh] = seen.emplace(name, where); !fresh)
+      throw InputError(file, where, "case " + quote_input(name) + " is also " + it->second,
+                       "give a record written by headroom: a case appears once");
+  };
+  for (std::size_t i = 0; i < cases.size(); ++i) {
+    const std::string where = "cases[" + std::to_string(i) + "]";
+    rec.cases.push_back(case_record_from_json(cases[i], file, where));
+    claim(rec.cases.back().name, where + " field \"name\"");
+  }
   rec.skipped = r.strings("skipped");
+  for (std::size_t i = 0; i < rec.skipped.size(); ++i) {
+    const std::string where = "skipped[" + std::to_string(i) + "]";
+    const std::string name = rec.skipped[i].substr(0, rec.skipped[i].find(": "));
+    if (!valid_case_name(name) || name.size() == rec.skipped[i].size())
+      throw InputError(file, where, quote_input(rec.skipped[i]) + " is not \"name: reason\" with a valid case name",
+                       "give a record written by headroom");
+    claim(name, where);
+  }
   // Added after schema 1 was first written: records without it still read (as none).
-  if (r.has("tolerated_faults")) rec.tolerated_faults = r.strings("tolerated_faults");
+  if (r.has("tolerated_faults")) rec.tolerated_faults = fault_classes(r, "tolerated_faults");
   if (r.has("warnings")) rec.warnings = r.strings("warnings");
-  if (r.has("growth_limit")) rec.growth_limit = r.num("growth_limit");
+  // Added with max_growth_exponent (budget-format.md): records without it have none.
+  if (r.has("growth_limit")) rec.growth_limit = r.size_like("growth_limit");
   if (r.has("growth_limit_origin")) rec.growth_limit_origin = r.str("growth_limit_origin");
+  // The summary fields are derived from the cases: a record that disagrees with itself is damaged.
+  const std::string verdict = r.str("verdict");
+  if (verdict != rec.verdict())
+    r.fail("verdict", quote_input(verdict) + " where the cases give \"" + rec.verdict() + "\"",
+           "give a record written by headroom (verdict: pass, fail, partial_pass or partial_fail)");
+  if (fault_counts(r, "faults") != rec.fault_totals())
+    r.fail("faults", "are not the sums of the cases' fault counts", "give a record written by headroom");
+  // Added with the level takes: records without them still read. Both are
+  // derived (verdict_line(), level_takes()); a record whose summary disagrees
+  // with its own cases is damaged or edited.
+  if (r.has("verdict_line") && r.str("verdict_line") != rec.verdict_line())
+    r.fail("verdict_line", quote_input(r.str("verdict_line")) + " where the cases give " + quote_input(rec.verdict_line()),
+           "give a record written by headroom");
+  if (r.has("levels")) {
+    if (r.field("levels") != levels_json(rec))
+      r.fail("levels", "are not the level takes the cases and skipped lines give", "give a record written by headroom");
+  }
   return rec;
 }
 
 RunRecord read_run_record(const std::filesystem::path& path) {
   const std::string file = path.string();
-  std::ifstream in(path, std::ios::binary);
-  if (!in) throw InputError(file, "file", "cannot be opened", "check the path of the JSON record");
-  std::stringstream buffer;
-  buffer << in.rdbuf();
-  const std::string text = buffer.str();
-  json j;
-  try {
-    j = json::parse(text);
-  } catch (const json::parse_error& e) {
-    throw InputError(file, line_column(text, e.byte == 0 ? 0 : e.byte - 1), "not valid JSON",
-                     "give a record written by headroom --json");
-  } catch (const json::out_of_range& e) {
-    // A number beyond double's range (1e400) has no byte position in nlohmann's error.
-    throw InputError(file, "a number", std::string("not valid JSON: ") + e.what(), "give a record written by headroom --json");
-  }
-  return run_record_from_json(j, file);
+  const std::string text = read_input_file(path, kRecordFile);
+  return run_record_from_json(parse_json_input(text, file, "give a record written by headroom --json"), file);
 }
 
 void write_run_record(const RunRecord& r, const std::filesystem::path& path) {

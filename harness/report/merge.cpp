@@ -52,7 +52,7 @@ void sort_canonically(RunRecord& r) {
   std::sort(r.skipped.begin(), r.skipped.end());
 }
 
-MergeResult merge_records(const std::vector<MergeInput>& inputs) {
+MergeResult merge_records(const std::vector<MergeInput>& inputs, bool allow_partial) {
   if (inputs.empty())
     throw InputError("command line", "inputs", "no record to merge", "give the JSON records of the shards");
   const MergeInput& first = inputs.front();
@@ -77,6 +77,7 @@ MergeResult merge_records(const std::vector<MergeInput>& inputs) {
   int shard_count = 0;
   bool merged_input = false;  // a merged input hides which shards it holds
   std::string count_file;
+  std::set<std::string> inherited_missing;  // shards a partial merged input lacks
   for (const auto& in : inputs) {
     const RunRecord& r = in.record;
     require_same(first, in, "tool", first.record.tool, r.tool);
@@ -99,6 +100,7 @@ MergeResult merge_records(const std::vector<MergeInput>& inputs) {
       throw InputError(in.file, "field \"shard\"", "is \"" + r.shard + "\", neither \"i/n\" (1 ≤ i ≤ n) nor \"merged\"",
                        "give a record written by headroom qualify --shard i/n or by headroom merge");
     if (id->count == 0) merged_input = true;
+    inherited_missing.insert(r.missing_shards.begin(), r.missing_shards.end());
     if (id->count > 0) {
       if (shard_count == 0) {
         shard_count = id->count;
@@ -127,25 +129,30 @@ MergeResult merge_records(const std::vector<MergeInput>& inputs) {
       m.skipped.push_back(r.skipped[i]);
     }
   }
-  if (shard_count > 0 && !merged_input) {
-    std::vector<std::string> missing;
+  std::set<std::string> missing;
+  for (const auto& s : inherited_missing)
+    if (auto id = parse_shard_field(s); !id || id->count != shard_count || !shard_owner.count(id->index)) missing.insert(s);
+  if (shard_count > 0 && !merged_input)
     for (int i = 1; i <= shard_count; ++i)
-      if (!shard_owner.count(i)) missing.push_back(fmt::format("{}/{}", i, shard_count));
-    if (!missing.empty()) {
-      std::string list;
-      for (const auto& s : missing) list += (list.empty() ? "" : ", ") + s;
-      out.notes.push_back(fmt::format("shard{} {} missing: the merged record covers only part of the suite",
-                                      missing.size() > 1 ? "s" : "", list));
-    }
+      if (!shard_owner.count(i)) missing.insert(fmt::format("{}/{}", i, shard_count));
+  if (!missing.empty()) {
+    std::string list;
+    for (const auto& s : missing) list += (list.empty() ? "" : ", ") + s;
+    const std::string what = fmt::format("shard{} {} missing", missing.size() > 1 ? "s" : "", list);
+    if (!allow_partial)
+      throw InputError("command line", "RECORDS", what + ": the merged record would cover only part of the suite",
+                       "give the records of every shard, or pass --allow-partial for a record whose verdict says partial");
+    m.missing_shards.assign(missing.begin(), missing.end());
+    out.notes.push_back(what + ": the merged record covers only part of the suite; its verdict is " + m.verdict());
   }
   sort_canonically(m);
   return out;
 }
 
-MergeResult merge_files(const std::vector<std::filesystem::path>& files) {
+MergeResult merge_files(const std::vector<std::filesystem::path>& files, bool allow_partial) {
   std::vector<MergeInput> inputs;
   for (const auto& f : files) inputs.push_back({f.string(), read_run_record(f)});
-  return merge_records(inputs);
+  return merge_records(inputs, allow_partial);
 }
 
 }  // namespace headroom

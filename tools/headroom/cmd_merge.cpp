@@ -14,6 +14,7 @@ namespace {
 struct MergeFlags {
   std::vector<std::string> inputs;
   std::string json, markdown, html, junit;
+  bool allow_partial = false;
 };
 
 // Exit 0 once the merged record is written: merging judges nothing. The
@@ -24,7 +25,7 @@ int merge_main(const MergeFlags& f) {
                                     {"--junit", f.junit}})
     check_output_path(option, path);
   std::vector<std::filesystem::path> files(f.inputs.begin(), f.inputs.end());
-  const MergeResult m = merge_files(files);
+  const MergeResult m = merge_files(files, f.allow_partial);
   for (const auto& note : m.notes) std::cerr << "headroom merge: note: " << note << '\n';
   write_run_record(m.record, f.json);
   write_reports(m.record, ReportOptions{f.markdown, f.html, f.junit});
@@ -42,6 +43,8 @@ const CommandRegistration reg{"merge", 61, [](CLI::App& app) {
   cmd->add_option("--markdown", flags->markdown, "also write a review report in Markdown here");
   cmd->add_option("--html", flags->html, "also write a self-contained HTML report here");
   cmd->add_option("--junit", flags->junit, "also write JUnit XML here");
+  cmd->add_flag("--allow-partial", flags->allow_partial,
+                "merge even when shards of the split are missing; the verdict then says partial_pass or partial_fail");
   cmd->callback([flags] { exit_with(merge_main(*flags)); });
 }};
 

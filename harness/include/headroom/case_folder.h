@@ -39,6 +39,7 @@
 #pragma once
 
 #include <filesystem>
+#include <string_view>
 
 #include "headroom/case.h"
 
@@ -49,6 +50,10 @@ inline constexpr int kCaseFormatVersion = 1;
 
 /// Returns: the case stored in folder `dir`. Throws InputError as described above.
 Case read_case(const std::filesystem::path& dir);
+
+/// Returns: whether `name` is a valid case name: 1 to 200 characters from
+/// [A-Za-z0-9_.+-], and not "." or "..". Records and journals hold the same names.
+bool valid_case_name(std::string_view name);
 
 /// Writes `c` as folder `dir`, atomically: the case is written into a
 /// temporary folder beside `dir` and renamed into place, so an interrupted

@@ -38,11 +38,14 @@ struct MergeResult {
 /// Returns: the merged record. Throws InputError(file, field, ...) naming the
 /// offending input: no input at all, a shard field that is neither "i/n" nor
 /// "merged", shards of different counts, the same shard twice, a mismatch in
-/// any field listed above, or a case name already in another input.
-MergeResult merge_records(const std::vector<MergeInput>& inputs);
+/// any field listed above, or a case name already in another input. A shard
+/// of the split missing (or missing from a partial merged input) is an
+/// InputError too, unless `allow_partial`: then the record lists them in
+/// missing_shards, its verdict is "partial_pass" or "partial_fail", and a note says so.
+MergeResult merge_records(const std::vector<MergeInput>& inputs, bool allow_partial = false);
 
 /// Returns: merge_records of the records read from `files` (read_run_record:
 /// InputError for a malformed or schema-mismatched file).
-MergeResult merge_files(const std::vector<std::filesystem::path>& files);
+MergeResult merge_files(const std::vector<std::filesystem::path>& files, bool allow_partial = false);
 
 }  // namespace headroom

@@ -28,12 +28,14 @@
 #include <cstddef>
 #include <cstdint>
 #include <filesystem>
+#include <limits>
 #include <optional>
 #include <string>
 #include <string_view>
 #include <vector>
 
 #include "headroom/format.h"
+#include "headroom/input_file.h"
 #include "headroom/tensor.h"
 
 namespace headroom {
@@ -60,6 +62,16 @@ std::optional<std::size_t> npy_item_size(std::string_view descr);
 /// longer than the shape says, data larger than physical memory, or a bool
 /// byte other than 0 and 1.
 NpyArray read_npy(const std::filesystem::path& file);
+/// Returns: the array stored in `f`, opened by open_input_file(file,
+/// kNpyInput) or open_input_file_in (for a file that must not leave its
+/// folder); checks as above.
+NpyArray read_npy(const InputFile& f, const std::filesystem::path& file);
+
+/// An .npy file as an input file (input_file.h): its data is bounded by the
+/// header's shape, which read_npy checks against the file's size and the
+/// machine's physical memory, so the cap is only that of the file system.
+inline constexpr InputKind kNpyInput{"tensor file (.npy)", std::numeric_limits<std::uint64_t>::max(),
+                                     "give a NumPy .npy file (numpy.save)"};
 
 /// Returns: the array held in `data`, as read_npy would read it from a file
 /// of that content; `file` names it in errors.

@@ -16,6 +16,8 @@
 
 #include <nlohmann/json.hpp>
 
+#include "headroom/input_file.h"
+
 namespace headroom {
 
 inline constexpr int kRecordSchema = 1;
@@ -105,9 +107,13 @@ struct RunRecord {
   /// (error_growth.h) a format may show; NaN: none. Optional on read (absent: none).
   double growth_limit = std::numeric_limits<double>::quiet_NaN();
   std::string growth_limit_origin;  ///< where it was set, e.g. "budget.toml line 4"
+  /// Shards ("i/n") a merge was allowed to go without (merge --allow-partial);
+  /// JSON "missing_shards", written only when not empty.
+  std::vector<std::string> missing_shards;
 
   /// Returns: "pass" when every case is within budget and no format's error
-  /// growth exponent is above growth_limit (growth_failures()), else "fail".
+  /// growth exponent is above growth_limit (growth_failures()), else "fail";
+  /// prefixed "partial_" when shards are missing.
   std::string verdict() const;
   /// Returns: per level with at least one case run (declined included), in
   /// the order core, block, how many of its cases the kernel took. A skipped
@@ -130,9 +136,22 @@ nlohmann::json json_number(double x);
 nlohmann::json to_json(const CaseRecord& c);
 nlohmann::json to_json(const RunRecord& r);
 /// Returns: the case record in `j`. Throws InputError(file, place, ...) on any
-/// missing field, wrong type or unknown schema.
+/// missing field, wrong type, value out of range (a negative error or limit, a
+/// count past int), unknown enum value (level, mask, format, fault class), an
+/// invalid case name (case_folder.h's rules), a shape that is not 7 (core) or
+/// 8 (block) positive extents, or a kv_len that is not its Tk.
+/// run_record_from_json also refuses: an unknown command, a shard that is not
+/// "i/n" (1 ≤ i ≤ n ≤ 100000) or "merged" (for command merge only), a case
+/// named twice (run or skipped), and a
+/// verdict or fault totals that are not what the cases give.
 CaseRecord case_record_from_json(const nlohmann::json& j, const std::string& file, const std::string& place);
 RunRecord run_record_from_json(const nlohmann::json& j, const std::string& file);
+
+/// A run record or journal as an input file (input_file.h). A case record is
+/// about 2 KB of JSON, so the cap allows some 100 000 cases; it only guards
+/// against a wrong, huge file.
+inline constexpr InputKind kRecordFile{"JSON record", std::uint64_t{256} << 20,
+                                       "give a record written by headroom --json"};
 
 /// Returns: the record in a JSON file. Throws InputError naming the file, the
 /// line and column of a syntax error, or the field of a schema error.
