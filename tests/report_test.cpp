@@ -725,6 +725,28 @@ TEST(Records, NonsenseIsRefusedNamingTheField) {
   j["shard"] = "3/2";
   refused(j, "field \"shard\": \"3/2\"");
   j = good;
+  j["command"] = "rm";
+  refused(j, "field \"command\": \"rm\" is not one of");
+  j = good;
+  j["shard"] = "merged";  // only merge writes a merged record
+  refused(j, "field \"shard\": \"merged\"");
+  j = good;
+  j["verdict_line"] = "pass on 21 of 21 block cases";
+  refused(j, "field \"verdict_line\"");
+  j = good;
+  j["levels"][0]["taken"] = 0;
+  refused(j, "field \"levels\"");
+  // replay names the second folder holding a case "<name>@<folder>" (cmd_replay.cpp): read back,
+  // but the part before "@" follows the case-name rules and the folder holds no control byte.
+  j = good;
+  j["cases"][0]["name"] = j["cases"][0]["name"].get<std::string>() + "@corpora/copy/x";
+  std::ofstream(dir / "replayed.json") << j.dump();
+  EXPECT_NO_THROW(read_run_record(dir / "replayed.json"));
+  j["cases"][0]["name"] = "../../etc/passwd@x";
+  refused(j, "is not a valid case name");
+  j["cases"][0]["name"] = "g-1@a\nb";
+  refused(j, "\"g-1@a\\x0Ab\" is not a valid case name");
+  j = good;
   j["cases"][0]["name"] = std::string("a\0b", 3) + std::string(300, 'x');
   refused(j, "\"a\\x00bxxx");
   refused(j, "(cut at byte 80 of 303)");

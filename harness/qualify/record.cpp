@@ -37,6 +37,22 @@ std::string range_text(double lo, double hi, bool nan_ok) {
   return "expected " + fmt_number(lo) + " to " + fmt_number(hi) + (nan_ok ? ", or \"nan\"" : "");
 }
 
+// A case name of a record: a case folder's name (valid_case_name), or, where
+// replay met the same case in a second folder (cmd_replay.cpp), that name
+// followed by "@" and the folder's path: printable, no control bytes, at most
+// PATH_MAX (4096) bytes. Such names are shown quoted and never used as a path.
+bool valid_record_case_name(const std::string& name) {
+  const std::size_t at = name.find('@');
+  if (at == std::string::npos) return valid_case_name(name);
+  if (!valid_case_name(name.substr(0, at))) return false;
+  const std::string_view folder = std::string_view(name).substr(at + 1);
+  if (folder.empty() || folder.size() > 4096) return false;
+  return std::none_of(folder.begin(), folder.end(), [](char ch) {
+    const auto u = static_cast<unsigned char>(ch);
+    return u < 0x20 || u == 0x7f;
+  });
+}
+
 class Reader {
  public:
   Reader(const json& j, std::string file, std::string place) : j_(j), file_(std::move(file)), place_(std::move(place)) {
@@ -133,11 +149,14 @@ class Reader {
     }
     fail(key, quote_input(v) + " is not one of " + list, "give a record written by headroom");
   }
-  /// A case name: the rules of case folders (valid_case_name, case_folder.h).
+  /// A case name: the rules of case folders (valid_case_name, case_folder.h),
+  /// or, as `replay` names a second folder holding the same case, such a name,
+  /// "@" and that folder's path (record_case_name).
   std::string case_name(const std::string& key) const {
     std::string v = str(key);
-    if (!valid_case_name(v))
-      fail(key, quote_input(v) + " is not a valid case name (1 to 200 of A-Z a-z 0-9 _ . + -, not . or ..)",
+    if (!valid_record_case_name(v))
+      fail(key, quote_input(v) + " is not a valid case name (1 to 200 of A-Z a-z 0-9 _ . + -, not . or ..; replay may " +
+                    "add @ and a folder path)",
            "give a record written by headroom");
     return v;
   }
@@ -508,7 +527,7 @@ RunRecord run_record_from_json(const json& j, const std::string& file) {
   for (std::size_t i = 0; i < rec.skipped.size(); ++i) {
     const std::string where = "skipped[" + std::to_string(i) + "]";
     const std::string name = rec.skipped[i].substr(0, rec.skipped[i].find(": "));
-    if (!valid_case_name(name) || name.size() == rec.skipped[i].size())
+    if (!valid_record_case_name(name) || name.size() == rec.skipped[i].size())
       throw InputError(file, where, quote_input(rec.skipped[i]) + " is not \"name: reason\" with a valid case name",
                        "give a record written by headroom");
     claim(name, where);
