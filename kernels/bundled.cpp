@@ -20,6 +20,8 @@ const hr_bundled_kernel kTable[] = {
     {&e4m3_tensorwise, 0, nullptr, nullptr},
     {&e4m3_blockwise, 0, nullptr, nullptr},
     {&block_f32, 0, nullptr, nullptr},
+    {&f32_backward_tiled, 0, nullptr, nullptr},
+    {&f16_backward_f32acc, 0, nullptr, nullptr},
     // Flawed specimens (kernels/flawed/): one deliberate defect each.
     {&no_max_shift, 1, "non_finite", "exp of the raw scores, no max shift: overflows past logit 88.7"},
     {&mask_tail_off_by_one, 1, "mask_leak",
@@ -42,6 +44,14 @@ const hr_bundled_kernel kTable[] = {
     {&e4m3_block_scale_shifted, 1, "error",
      "K scale looked up for token j+1: the last key of each 64-token block uses the next block's scale"},
     {&e4m3_p_unscaled, 1, "error", "P rounded to E4M3 without its x448 scale: weights below 2^-10 flush to zero"},
+    // Flawed backward specimens (kernels/f32_backward_tiled.cpp, docs/backward.md): the forward is sound.
+    {&backward_d_dropped, 1, "error", "backward dS = P*dP: the D_i term left out"},
+    {&backward_no_scale, 1, "error", "backward dQ = dS K without the scale s"},
+    {&backward_p_from_row_max, 1, "error", "backward recomputes P = exp(z - max z), not exp(z - lse)"},
+    {&backward_group_not_summed, 1, "wrong_group_sum",
+     "grouped-query dK, dV keep only the last query head's share, not the group's sum"},
+    {&backward_racy_dk, 1, "nondeterministic", "backward dK added by 4 threads with atomic float adds"},
+    {&backward_masked_keys, 1, "masked_key_gradient", "backward dK, dV loop forgets the mask"},
     {nullptr, 0, nullptr, nullptr},  // sentinel, not counted
 };
 

@@ -22,7 +22,8 @@ namespace {
 
 constexpr const char* kFormats = "float64, float32, binary16, bfloat16, int8";
 constexpr const char* kKeys =
-    "max_ulp, max_scaled_error, max_rel_rmse, max_ratio_to_plain, max_growth_exponent, tolerated_faults, score_bits";
+    "max_ulp, max_scaled_error, max_rel_rmse, max_ratio_to_plain, max_growth_exponent, max_gradient_scaled_error, "
+    "max_gradient_ratio_to_plain, tolerated_faults, score_bits";
 
 std::string place(const toml::source_region& r) {
   return "line " + std::to_string(r.begin.line) + ", column " + std::to_string(r.begin.column);
@@ -175,6 +176,10 @@ class Reader {
         s.max_ratio_to_plain = limit(key, v, false, false);
       } else if (key == "max_growth_exponent") {
         s.max_growth_exponent = limit(key, v, false, false);
+      } else if (key == "max_gradient_scaled_error") {
+        s.max_gradient_scaled_error = limit(key, v, false, true);
+      } else if (key == "max_gradient_ratio_to_plain") {
+        s.max_gradient_ratio_to_plain = limit(key, v, false, false);
       } else if (key == "tolerated_faults") {
         s.tolerated_faults = faults(v);
         s.tolerated_origin = origin(v);
@@ -255,6 +260,8 @@ void apply(KernelBudget& b, const BudgetSection& s) {
   over(b.max_rel_rmse, s.max_rel_rmse);
   over(b.max_ratio_to_plain, s.max_ratio_to_plain);
   over(b.max_growth_exponent, s.max_growth_exponent);
+  over(b.max_gradient_scaled_error, s.max_gradient_scaled_error);
+  over(b.max_gradient_ratio_to_plain, s.max_gradient_ratio_to_plain);
   if (s.tolerated_faults) {
     b.tolerated_faults = *s.tolerated_faults;
     b.tolerated_origin = s.tolerated_origin;

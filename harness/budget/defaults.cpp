@@ -64,6 +64,11 @@ std::int64_t accumulation_length(const CoreShape& s) {
   return 2 * s.kv_len + s.key_dim + 5;
 }
 
+std::int64_t gradient_accumulation_length(const CoreShape& s) {
+  const std::int64_t group = s.kv_heads > 0 ? s.q_heads / s.kv_heads : 1;
+  return std::max(group * s.q_len, s.kv_len) + s.key_dim + s.value_dim + 5;
+}
+
 std::int64_t accumulation_length(const BlockShape& s) {
   return accumulation_length(s.core()) + s.model_dim + s.q_heads * s.value_dim;
 }
@@ -149,6 +154,15 @@ double KernelBudget::rel_rmse_limit(std::int64_t n, const CaseScore& s) const {
   return (max_rel_rmse.relative_at(n, s.unit_roundoff) + conditioning) * kappa;
 }
 
+double KernelBudget::gradient_scaled_error_limit(std::int64_t n, const CaseScore& fwd, int paths) const {
+  const double u = unit_roundoff(fwd.format);
+  if (max_gradient_scaled_error.kind != Limit::Kind::probabilistic) return max_gradient_scaled_error.relative_at(n, u);
+  double z_max = 0;
+  for (double z : fwd.row_score_magnitude) z_max = std::max(z_max, z);
+  return max_gradient_scaled_error.relative_at(n, u) / u +
+         paths * score_conditioning(fwd, max_gradient_scaled_error.lambda) * z_max;
+}
+
 KernelBudget default_budget(Format input) {
   const std::string origin = "default for " + std::string(format_name(input));
   KernelBudget b;
@@ -158,6 +172,7 @@ KernelBudget default_budget(Format input) {
   // max_ulp in a file for suites without cancellation.
   b.max_ulp = none(origin);
   b.max_ratio_to_plain = fixed(kPlainRatio, origin);
+  b.max_gradient_ratio_to_plain = fixed(kPlainRatio, origin);
   b.tolerated_origin = origin;
   // Scores formed in float32 (float64 for float64 inputs): float32 kernels;
   // half-precision kernels accumulating QKᵀ in float32, as tensor-core kernels
@@ -178,6 +193,9 @@ KernelBudget default_budget(Format input) {
     case Format::bfloat16:
       b.max_scaled_error = probabilistic(kLambdaMax, 0, origin);
       b.max_rel_rmse = probabilistic(kLambdaRms, 0, origin);
+      // Gradients: the same bound at the backward's own accumulation length
+      // (gradient_accumulation_length), in units of each element's magnitude.
+      b.max_gradient_scaled_error = probabilistic(kLambdaMax, 0, origin);
       break;
     // int8: the output is float32, but an int8 kernel may also quantise the
     // probabilities to 8-bit codes for an integer P·V (as i8_tokenwise does):
@@ -187,6 +205,7 @@ KernelBudget default_budget(Format input) {
     case Format::int8:
       b.max_scaled_error = probabilistic(kLambdaMax, 9, origin);
       b.max_rel_rmse = probabilistic(kLambdaRms, 9, origin);
+      b.max_gradient_scaled_error = probabilistic(kLambdaMax, 9, origin);  // no int8 backward is judged yet
       break;
     // e4m3, e5m2: the output is float32 and the inputs are exact once decoded
     // (the reference judges the received values), but such kernels commonly

@@ -62,11 +62,20 @@ Tensor upstream_gradient(const CoreShape& s, UpstreamKind kind, std::uint64_t se
   return {};
 }
 
-Tensor upstream_gradient_for(const Case& c) {
-  if (!c.d_o.values.empty()) return c.d_o;
+namespace {
+std::uint64_t name_seed(const Case& c) {
   std::uint64_t seed = 0x6a09e667f3bcc908ULL;  // FNV-1a style fold of the name through mix64
   for (char ch : c.name) seed = generate_internal::mix64(seed ^ static_cast<unsigned char>(ch));
+  return seed;
+}
+}  // namespace
+
+Tensor upstream_gradient_for(const Case& c) {
+  if (!c.d_o.values.empty()) return c.d_o;
+  const std::uint64_t seed = name_seed(c);
   return upstream_gradient(c.core.shape, kUpstreamKinds[seed % 4], seed);
 }
+
+UpstreamKind upstream_kind_for(const Case& c) { return kUpstreamKinds[name_seed(c) % 4]; }
 
 }  // namespace headroom

@@ -6,6 +6,7 @@
 #include <limits>
 
 #include "headroom/bundled_registry.h"
+#include "headroom/judge_backward.h"
 #include "headroom/problem.h"
 
 namespace headroom {
@@ -30,6 +31,7 @@ std::string first_non_finite_input(const Case& r) {
     if (!all_finite(in.q)) return "Q";
     if (!all_finite(in.k)) return "K";
     if (!all_finite(in.v)) return "V";
+    if (!all_finite(r.d_o)) return "dO";
     return {};
   }
   const auto& in = r.block_inputs;
@@ -207,7 +209,8 @@ Judgement judge_case(AttachedKernel& k, const Case& c, const JudgeOptions& opt, 
     j.unfit = *why;
     return j;
   }
-  const ReceivedCase rc = receive(c, d);
+  // A backward kernel is given dO: the case's own, else the generated one.
+  const ReceivedCase rc = receive(with_upstream_gradient(c, d), d);
   if (const auto bad = first_non_finite_input(rc.received); !bad.empty()) {
     j.unfit = bad + " overflows " + std::string(format_name(d.input_format)) + " when rounded";
     return j;
@@ -253,6 +256,10 @@ Judgement judge_case(AttachedKernel& k, const Case& c, const JudgeOptions& opt, 
                                 " query rows (a deterministic sample); every row checked for faults");
   }
   j.faults = faults_of(k, rc, first, ref, detect);
+  // The backward needs the exact O of every row (it is fed them): not judged on a row-sampled case.
+  if (d.backward && ref.core && detect.reference.rows.empty()) judge_backward(k, rc, c, first, *ref.core, opt, j);
+  if (d.backward && ref.core && !detect.reference.rows.empty())
+    j.faults.notes.push_back("gradients not judged: a production-sized case whose forward reference samples rows");
   record_faults(rec, j.faults);
 
   // What rounding or quantising the inputs cost, apart from the kernel's arithmetic.

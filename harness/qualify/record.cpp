@@ -217,10 +217,16 @@ CaseFigures figures_from(const Reader& r) {
 }
 
 json limits_json(const CaseLimits& l) {
-  return {{"max_ulp", number(l.max_ulp)},
-          {"max_scaled_error", number(l.max_scaled_error)},
-          {"max_rel_rmse", number(l.max_rel_rmse)},
-          {"max_ratio_to_plain", number(l.max_ratio_to_plain)}};
+  json j = {{"max_ulp", number(l.max_ulp)},
+            {"max_scaled_error", number(l.max_scaled_error)},
+            {"max_rel_rmse", number(l.max_rel_rmse)},
+            {"max_ratio_to_plain", number(l.max_ratio_to_plain)}};
+  if (!std::isnan(l.max_gradient_scaled_error)) j["max_gradient_scaled_error"] = number(l.max_gradient_scaled_error);
+  if (!std::isnan(l.max_gradient_scaled_error_end_to_end))
+    j["max_gradient_scaled_error_end_to_end"] = number(l.max_gradient_scaled_error_end_to_end);
+  if (!std::isnan(l.max_gradient_ratio_to_plain))
+    j["max_gradient_ratio_to_plain"] = number(l.max_gradient_ratio_to_plain);
+  return j;
 }
 
 CaseLimits limits_from(const Reader& r) {
@@ -229,8 +235,57 @@ CaseLimits limits_from(const Reader& r) {
   l.max_scaled_error = r.size_like("max_scaled_error");
   l.max_rel_rmse = r.size_like("max_rel_rmse");
   l.max_ratio_to_plain = r.size_like("max_ratio_to_plain");
+  if (r.has("max_gradient_scaled_error")) l.max_gradient_scaled_error = r.size_like("max_gradient_scaled_error");
+  if (r.has("max_gradient_scaled_error_end_to_end"))
+    l.max_gradient_scaled_error_end_to_end = r.size_like("max_gradient_scaled_error_end_to_end");
+  if (r.has("max_gradient_ratio_to_plain"))
+    l.max_gradient_ratio_to_plain = r.size_like("max_gradient_ratio_to_plain");
   return l;
 }
+
+json gradients_json(const std::array<GradientFigures, 3>& g) {
+  json j = json::object();
+  for (std::size_t t = 0; t < g.size(); ++t)
+    j[kGradientNames[t]] = {{"max_ulp", number(g[t].max_ulp)},
+                            {"max_scaled_error", number(g[t].max_scaled_error)},
+                            {"rmse", number(g[t].rmse)},
+                            {"relative_rmse", number(g[t].relative_rmse)},
+                            {"cosine", number(g[t].cosine)},
+                            {"ratio_to_plain", number(g[t].ratio_to_plain)}};
+  return j;
+}
+
+std::array<GradientFigures, 3> gradients_from(const Reader& r) {
+  std::array<GradientFigures, 3> g{};
+  for (std::size_t t = 0; t < g.size(); ++t) {
+    const Reader e(r.field(kGradientNames[t]), r.file(), r.place() + " " + kGradientNames[t]);
+    g[t].max_ulp = e.size_like("max_ulp");
+    g[t].max_scaled_error = e.size_like("max_scaled_error");
+    g[t].rmse = e.size_like("rmse");
+    g[t].relative_rmse = e.size_like("relative_rmse");
+    g[t].cosine = e.num_in("cosine", -1 - 1e-9, 1 + 1e-9, true);
+    g[t].ratio_to_plain = e.size_like("ratio_to_plain");
+  }
+  return g;
+}
+
+json backward_json(const BackwardFigures& b) {
+  return {{"fed_exact", gradients_json(b.fed_exact)},
+          {"end_to_end", b.end_to_end_judged ? gradients_json(b.end_to_end) : json(nullptr)},
+          {"upstream", b.upstream},
+          {"spread", number(b.spread)}};
+}
+
+BackwardFigures backward_from(const Reader& r) {
+  BackwardFigures b;
+  b.fed_exact = gradients_from(Reader(r.field("fed_exact"), r.file(), r.place() + " fed_exact"));
+  b.end_to_end_judged = !r.field("end_to_end").is_null();
+  if (b.end_to_end_judged) b.end_to_end = gradients_from(Reader(r.field("end_to_end"), r.file(), r.place() + " end_to_end"));
+  b.upstream = r.str("upstream");
+  b.spread = r.size_like("spread");
+  return b;
+}
+
 
 // The "levels" field: level_takes() as JSON.
 json levels_json(const RunRecord& r) {
@@ -246,6 +301,26 @@ nlohmann::json json_number(double x) {
   if (std::isnan(x)) return "nan";
   if (std::isinf(x)) return x > 0 ? "inf" : "-inf";
   return x;
+}
+
+double BackwardFigures::worst_scaled_error() const {
+  double worst = 0;
+  for (const auto* way : {&fed_exact, &end_to_end}) {
+    if (way == &end_to_end && !end_to_end_judged) continue;
+    for (const GradientFigures& g : *way)
+      if (std::isnan(g.max_scaled_error) || g.max_scaled_error > worst) worst = g.max_scaled_error;
+  }
+  return worst;
+}
+
+double BackwardFigures::worst_ratio_to_plain() const {
+  double worst = std::numeric_limits<double>::quiet_NaN();
+  for (const auto* way : {&fed_exact, &end_to_end}) {
+    if (way == &end_to_end && !end_to_end_judged) continue;
+    for (const GradientFigures& g : *way)
+      if (!std::isnan(g.ratio_to_plain) && !(g.ratio_to_plain <= worst)) worst = g.ratio_to_plain;
+  }
+  return worst;
 }
 
 std::string RunRecord::verdict() const {
@@ -317,7 +392,7 @@ std::map<std::string, int> RunRecord::fault_totals() const {
 }
 
 json to_json(const CaseRecord& c) {
-  return {{"name", c.name},
+  json j = {{"name", c.name},
           {"family", c.family},
           {"seed", c.seed},
           {"size", c.size},
@@ -336,6 +411,8 @@ json to_json(const CaseRecord& c) {
           {"ulp_histogram", c.ulp_histogram},
           {"limits", limits_json(c.limits)},
           {"reference_certified", c.reference_certified}};
+  if (c.backward) j["backward"] = backward_json(*c.backward);
+  return j;
 }
 
 namespace {
@@ -481,6 +558,7 @@ CaseRecord case_record_from_json(const json& j, const std::string& file, const s
   // Added after schema 1 was first written: records without it still read.
   if (r.has("limits")) c.limits = limits_from(Reader(r.field("limits"), file, place + " limits"));
   if (r.has("reference_certified")) c.reference_certified = r.boolean("reference_certified");
+  if (r.has("backward")) c.backward = backward_from(Reader(r.field("backward"), file, place + " backward"));
   return c;
 }
 

@@ -5,6 +5,7 @@
 
 #include "headroom/case_folder.h"
 #include "headroom/input_error.h"
+#include "headroom/judge_backward.h"
 #include "headroom/qualify.h"
 
 namespace headroom {
@@ -72,8 +73,12 @@ bool in_shard(const std::string& name, const Shard& s) {
 
 std::function<void(CaseRecord&, const Judgement&, const Case&)> budget_applier(KernelBudget budget) {
   return [budget = std::move(budget)](CaseRecord& rec, const Judgement& j, const Case& c) {
-    const Verdict v = judge(j.score ? &*j.score : nullptr, j.faults, budget, accumulation_length(c),
-                            j.ratio ? &*j.ratio : nullptr);
+    Verdict v = judge(j.score ? &*j.score : nullptr, j.faults, budget, accumulation_length(c),
+                      j.ratio ? &*j.ratio : nullptr);
+    if (j.score && c.level == Level::core) {
+      for (VerdictReason& r : judge_gradients(rec, *j.score, budget, c.core.shape)) v.reasons.push_back(std::move(r));
+      v.pass = v.reasons.empty();
+    }
     rec.within_budget = v.pass;
     if (j.score) {
       // The limits at this case's shape; the scaled-error one at the row holding the worst error.

@@ -334,6 +334,10 @@ struct MpBackward::Impl {
   }
 };
 
+namespace {
+constexpr double kSmallestSubnormal = 0x1p-1074;  // IEEE 754 binary64
+}  // namespace
+
 MpBackward::MpBackward(const CoreProblem& p, const CoreInputs& in, const Tensor& d_o, int target_log2)
     : impl_(std::make_unique<Impl>(p, in, d_o, target_log2)) {}
 MpBackward::~MpBackward() = default;
@@ -357,7 +361,12 @@ MpBackward::Element MpBackward::element(GradKind kind, std::int64_t b, std::int6
     e.bound = mpfr_get_d(up.x, MPFR_RNDU);
     e.magnitude = mpfr_get_d(m.mag->x, MPFR_RNDD);
     if (mpfr_nan_p(m.acc->lo.x) || mpfr_nan_p(m.acc->hi.x)) e.bound = kInf;
-    e.certified = e.bound <= mul_down(allowed_rel, e.magnitude) || (e.bound == 0 && e.magnitude == 0);
+    // Where 2^target·magnitude is below the smallest subnormal (magnitude <
+    // 2^(-1074 - target)), no double bound can be smaller than that subnormal:
+    // the element is certified at it — the resolution its double `out` has
+    // there anyway — rather than raising the precision to the cap in vain.
+    const double allowed = std::max(mul_down(allowed_rel, e.magnitude), e.magnitude > 0 ? kSmallestSubnormal : 0.0);
+    e.certified = e.bound <= allowed || (e.bound == 0 && e.magnitude == 0);
     // A magnitude below the double range (0 here) cannot be met by any precision.
     if (e.certified || prec >= kMaxPrecision || e.magnitude == 0) return e;
   }

@@ -155,6 +155,11 @@ Coverage coverage(const RunRecord& r) {
     ++cov.formats[c.format];
     ++cov.levels[c.level];
     cov.logit_scale.add(c.logit_scale);
+    if (c.backward) {
+      ++cov.gradients_judged;
+      if (c.backward->end_to_end_judged) ++cov.gradients_end_to_end;
+      ++cov.upstream[c.backward->upstream];
+    }
     const auto s = parse_shape(c.level, c.shape);
     if (!s) {
       ++cov.unparsed_shapes;

@@ -268,6 +268,12 @@ std::string html_report(const RunRecord& r) {
   }
   o += failing.empty() ? "<p>None: every case tried is within budget.</p>\n" : "<ul>\n" + failing + "</ul>\n";
 
+  if (const auto lines = report_detail::gradient_lines(summarise_gradients(r)); !lines.empty()) {
+    o += "<h2>Gradients (the backward)</h2>\n<table>\n";
+    for (const auto& line : lines) o += table_row({"<b>" + h(line.label) + "</b>", h(line.text)});
+    o += "</table>\n";
+  }
+
   o += "<h2>Coverage</h2>\n<table>\n";
   for (const auto& line : report_detail::coverage_lines(cov)) o += table_row({"<b>" + h(line.label) + "</b>", h(line.text)});
   o += "</table>\n";

@@ -181,6 +181,11 @@ std::string markdown_report(const RunRecord& r) {
     }
   }
 
+  if (const auto lines = report_detail::gradient_lines(summarise_gradients(r)); !lines.empty()) {
+    md += "\n## Gradients (the backward)\n\n";
+    for (const auto& line : lines) md += fmt::format("- **{}**: {}\n", line.label, markdown_cell(line.text));
+  }
+
   md += "\n## Coverage\n\n";
   for (const auto& line : report_detail::coverage_lines(cov))
     md += fmt::format("- **{}**: {}\n", line.label, markdown_cell(line.text));

@@ -99,7 +99,52 @@ CaseMargin case_margin(const CaseRecord& c) {
   consider("max_rel_rmse", c.figures.relative_rmse, c.limits.max_rel_rmse);
   consider("max_ulp", c.figures.max_ulp, c.limits.max_ulp);
   consider("max_ratio_to_plain", c.figures.ratio_to_plain, c.limits.max_ratio_to_plain);
+  if (c.backward) {
+    for (const GradientFigures& g : c.backward->fed_exact) {
+      consider("max_gradient_scaled_error", g.max_scaled_error, c.limits.max_gradient_scaled_error);
+      consider("max_gradient_ratio_to_plain", g.ratio_to_plain, c.limits.max_gradient_ratio_to_plain);
+    }
+    if (c.backward->end_to_end_judged) {
+      for (const GradientFigures& g : c.backward->end_to_end) {
+        consider("max_gradient_scaled_error", g.max_scaled_error, c.limits.max_gradient_scaled_error_end_to_end);
+        consider("max_gradient_ratio_to_plain", g.ratio_to_plain, c.limits.max_gradient_ratio_to_plain);
+      }
+    }
+  }
   return out;
+}
+
+GradientSummary summarise_gradients(const RunRecord& r) {
+  GradientSummary g;
+  double worst = -1;
+  const auto bigger = [](double& into, double x) {
+    if (std::isnan(x) || x > into) into = x;  // NaN is the worst: it sticks
+  };
+  for (const CaseRecord& c : r.cases) {
+    if (!c.backward) continue;
+    const BackwardFigures& b = *c.backward;
+    ++g.cases;
+    ++g.upstream[b.upstream];
+    if (b.end_to_end_judged) ++g.end_to_end_cases;
+    for (std::size_t t = 0; t < 3; ++t) {
+      bigger(g.worst_fed_exact[t], b.fed_exact[t].max_scaled_error);
+      bigger(g.worst_rel_rmse[t], b.fed_exact[t].relative_rmse);
+      g.lowest_cosine[t] = std::min(g.lowest_cosine[t], b.fed_exact[t].cosine);
+      if (b.end_to_end_judged) {
+        bigger(g.worst_end_to_end[t], b.end_to_end[t].max_scaled_error);
+        bigger(g.worst_rel_rmse[t], b.end_to_end[t].relative_rmse);
+        g.lowest_cosine[t] = std::min(g.lowest_cosine[t], b.end_to_end[t].cosine);
+      }
+    }
+    const double ratio = b.worst_ratio_to_plain();
+    if (!std::isnan(ratio) && !(ratio <= g.worst_ratio_to_plain)) g.worst_ratio_to_plain = ratio;
+    const double w = b.worst_scaled_error();
+    if (std::isnan(w) || w > worst) {
+      worst = std::isnan(w) ? INFINITY : w;
+      g.worst_case = c.name;
+    }
+  }
+  return g;
 }
 
 LimitedFigures limited_figures(const RunRecord& r) {

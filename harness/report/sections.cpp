@@ -81,6 +81,29 @@ std::vector<Line> coverage_lines(const Coverage& cov) {
   for (std::size_t i = 0; i < cov.skipped_reasons.size(); ++i)
     skipped += fmt::format("{} {}: {}", i ? ";" : ":", cov.skipped_reasons[i].first, cases_text(cov.skipped_reasons[i].second));
   out.push_back({"Skipped (not run)", skipped});
+  out.push_back({"Gradients judged",
+                 cov.gradients_judged == 0
+                     ? std::string("none (the kernel has no backward entry, or no core case ran): dQ, dK, dV unjudged")
+                     : fmt::format("dQ, dK, dV on {}: fed the exact O and lse on {}, end to end on {}; dO {}",
+                                   cases_text(cov.gradients_judged), cov.gradients_judged, cov.gradients_end_to_end,
+                                   counted(cov.upstream))});
+  return out;
+}
+
+std::vector<Line> gradient_lines(const GradientSummary& g) {
+  std::vector<Line> out;
+  if (g.cases == 0) return out;
+  const char* labels[3] = {"dQ", "dK", "dV"};
+  for (std::size_t t = 0; t < 3; ++t)
+    out.push_back({labels[t], fmt::format("worst scaled error fed the exact O and lse {}, end to end {}; worst "
+                                          "relative RMSE {}; lowest cosine {}",
+                                          figure_text(g.worst_fed_exact[t]),
+                                          g.end_to_end_cases > 0 ? figure_text(g.worst_end_to_end[t]) : "—",
+                                          figure_text(g.worst_rel_rmse[t]), figure_text(g.lowest_cosine[t]))});
+  out.push_back({"Ratio to the plain backward", std::isnan(g.worst_ratio_to_plain)
+                                                    ? std::string("— (no plain backward of these formats)")
+                                                    : "worst " + figure_text(g.worst_ratio_to_plain)});
+  out.push_back({"Worst gradient case", g.worst_case});
   return out;
 }
 

@@ -32,6 +32,11 @@ std::string list_or(const std::vector<std::string>& items, const std::string& no
 /// shapes, head sharing, masks, formats, logit scale, skipped cases.
 std::vector<Line> coverage_lines(const Coverage& cov);
 
+/// Returns: the gradient rows of a report ("" labels none when no case had
+/// its backward judged): one line per tensor with its worst figures both ways,
+/// then the worst ratio to the plain backward and the case of the worst error.
+std::vector<Line> gradient_lines(const GradientSummary& g);
+
 /// Returns: the facts of the run for a report's heading table (kernel, method,
 /// formats, suite, shard, budget, tool, cases run/failing/skipped, verdict).
 std::vector<Line> run_facts(const RunRecord& r);

@@ -150,6 +150,19 @@ std::string terminal_summary(const RunRecord& r, bool colour) {
     if (shown.rel_rmse) worst += fmt::format("{}worst relative rmse {}", worst.empty() ? "  " : "; ",
                                              figure_text(total.worst_rel_rmse));
     out += worst + "\n";
+    // The backward's gradients, when judged: the worst of each tensor both ways (docs/backward.md).
+    const GradientSummary g = summarise_gradients(r);
+    if (g.cases > 0) {
+      out += fmt::format("  gradients judged on {} case(s), worst scaled error fed exact O/lse: dQ {}, dK {}, dV {}",
+                         g.cases, figure_text(g.worst_fed_exact[0]), figure_text(g.worst_fed_exact[1]),
+                         figure_text(g.worst_fed_exact[2]));
+      if (g.end_to_end_cases > 0)
+        out += fmt::format("; end to end: dQ {}, dK {}, dV {}", figure_text(g.worst_end_to_end[0]),
+                           figure_text(g.worst_end_to_end[1]), figure_text(g.worst_end_to_end[2]));
+      if (!std::isnan(g.worst_ratio_to_plain))
+        out += "; worst ratio to the plain backward " + figure_text(g.worst_ratio_to_plain);
+      out += " (case " + g.worst_case + ")\n";
+    }
   }
   for (const auto& g : growth_lines(error_growth(r.cases))) out += "  " + g + "\n";
   for (const auto& f : r.growth_failures()) out += "  " + paint("fails the budget: " + f, kRed, colour) + "\n";

@@ -160,6 +160,9 @@ std::string_view fault_class_name(FaultClass c) {
     case FaultClass::crash: return "crash";
     case FaultClass::timeout: return "timeout";
     case FaultClass::stray_process: return "stray_process";
+    case FaultClass::non_finite_gradient: return "non_finite_gradient";
+    case FaultClass::masked_key_gradient: return "masked_key_gradient";
+    case FaultClass::wrong_group_sum: return "wrong_group_sum";
   }
   return "unknown";
 }

@@ -13,6 +13,7 @@
 #include "usage_error.h"
 #include "headroom/bundled_registry.h"
 #include "headroom/input_error.h"
+#include "headroom/judge_backward.h"
 #include "headroom/progress_bar.h"
 #include "headroom/reports.h"
 #include "headroom/terminal_report.h"
@@ -104,6 +105,7 @@ RunSetup open_run(const RunFlags& f, const std::string& command, const std::stri
     s.spec = f.kernel;
   }
   s.plain = plain_kernel_for(s.kernel->declaration());
+  s.plain_backward = plain_backward_for(s.kernel->declaration());
   s.budget = f.budget.empty() ? Budget{} : load_budget(f.budget);
   {
     // A section for a misspelt kernel would leave the intended limits unused without a word.
@@ -129,6 +131,7 @@ RunSetup open_run(const RunFlags& f, const std::string& command, const std::stri
   r.judge.detect.determinism_runs = f.determinism_runs;
   r.judge.detect.reference.threads = f.threads ? f.threads : std::max(1u, std::thread::hardware_concurrency());
   r.judge.plain = s.plain.get();
+  r.judge.plain_backward = s.plain_backward.get();
   r.shard = parse_shard(f.shard);
   r.kernel_spec = s.spec;
   r.kernel_is_program = !f.kernel_cmd.empty();

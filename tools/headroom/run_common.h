@@ -52,6 +52,7 @@ std::string setup_identity(const RunFlags& f);
 struct RunSetup {
   std::unique_ptr<AttachedKernel> kernel;
   std::unique_ptr<AttachedKernel> plain;  ///< the bundled textbook kernel of the same formats, or null
+  std::unique_ptr<AttachedKernel> plain_backward;  ///< the plain same-precision backward, or null
   std::string spec;                       ///< how the user named the kernel, for replay commands
   Budget budget;
   std::unique_ptr<Journal> journal;

@@ -9,6 +9,10 @@
 //   tolerated_faults    fault classes that do not fail the case (normally none)
 //   max_growth_exponent the largest error growth exponent of the run (error_growth.h;
 //                       a fixed number or none, the default): fails the run, not a case
+// and, for a kernel whose backward is judged (docs/backward.md):
+//   max_gradient_scaled_error    dQ, dK, dV scaled error (each element against
+//                                u_F times its natural magnitude), both ways
+//   max_gradient_ratio_to_plain  against the plain same-precision backward
 // A limit is fixed (a number), absent ("none"), or probabilistic: it grows with
 // the case's accumulation length n like λ·√n·u_w — the probabilistic rounding
 // error bound of Higham & Mary (SIAM J. Sci. Comput. 41(5), 2019, Thm 3.1:
@@ -41,6 +45,14 @@ namespace headroom {
 std::int64_t accumulation_length(const CoreShape& s);
 std::int64_t accumulation_length(const BlockShape& s);
 std::int64_t accumulation_length(const Case& c);
+/// Returns: the accumulation length of the backward fed the exact O and lse:
+/// max(G·Tq, Tk) + Dk + Dv + 5 with G = Hq/Hkv — dK and dV sum G·Tq terms
+/// (every query row of the group), dQ sums Tk, the recomputed score Dk
+/// products, dP and D_i Dv each (one chain: the longer counted), and 5 single
+/// roundings (scale, lse subtraction, exp counted twice, the product P·(dP − D)).
+/// End to end the forward's chain is added: gradient_accumulation_length +
+/// accumulation_length (errors of a chain add, Higham 2002, Lemma 3.3).
+std::int64_t gradient_accumulation_length(const CoreShape& s);
 
 /// Returns: γ_n = n·u / (1 − n·u) (Higham 2002, §3.1), +inf when n·u ≥ 1.
 double gamma_n(std::int64_t n, double u);
@@ -69,6 +81,7 @@ struct Limit {
 struct KernelBudget {
   Limit max_ulp, max_scaled_error, max_rel_rmse, max_ratio_to_plain;
   Limit max_growth_exponent;  ///< fixed or none; checked over the run (RunRecord::growth_limit)
+  Limit max_gradient_scaled_error, max_gradient_ratio_to_plain;
   std::vector<FaultClass> tolerated_faults;
   std::string tolerated_origin;
   /// Precision p_s of the arithmetic the kernel forms scores in (u_s = 2^-p_s).
@@ -98,6 +111,14 @@ struct KernelBudget {
   /// default bounds RMSE against the row magnitudes, as max_scaled_error does;
   /// plus the score-conditioning term at the case's largest Z, times u_F·κ.
   double rel_rmse_limit(std::int64_t n, const CaseScore& s) const;
+  /// Returns: the max_gradient_scaled_error limit of a case whose forward
+  /// score is `fwd` (for its largest score magnitude Z), at gradient
+  /// accumulation length n: fixed as given; probabilistic relative_at(n, u_F)
+  /// / u_F plus `paths` × score_conditioning × Z — a relative error δ in P
+  /// moves a gradient element by at most 2δ of its natural magnitude (through
+  /// dS = P(dP − D) and through D), so paths = 2 fed the exact O and lse and 3
+  /// end to end (the forward's P as well).
+  double gradient_scaled_error_limit(std::int64_t n, const CaseScore& fwd, int paths) const;
 };
 
 /// Returns: the built-in defaults for a kernel of input format `input` (the
@@ -107,6 +128,7 @@ KernelBudget default_budget(Format input);
 /// Any subset of the keys, as one section of a budget file sets them.
 struct BudgetSection {
   std::optional<Limit> max_ulp, max_scaled_error, max_rel_rmse, max_ratio_to_plain, max_growth_exponent;
+  std::optional<Limit> max_gradient_scaled_error, max_gradient_ratio_to_plain;
   std::optional<std::vector<FaultClass>> tolerated_faults;
   std::string tolerated_origin;
   std::optional<int> score_bits;

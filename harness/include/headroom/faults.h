@@ -12,6 +12,12 @@
 //   nondeterministic  two identical runs differ in any bit
 //   crash, timeout    from RunStatus
 //   stray_process     the call returned but left a process it started running (RunStatus)
+// and, for a kernel with a backward entry (gradient_scores.h, docs/backward.md):
+//   non_finite_gradient   a NaN/Inf dQ, dK or dV element where the exact gradient is
+//                         finite and within the output format's range
+//   masked_key_gradient   a dK or dV element of a key no query sees that is not exactly 0
+//   wrong_group_sum       grouped-query dK, dV equal to one query head's share, not the group's sum
+// (a backward whose repeated calls differ is `nondeterministic`, its detail says "backward").
 // RunStatus unsupported and bad_output are not faults of the numerics: they are
 // counted separately (CaseFaults::unsupported_runs, bad_output_runs).
 #pragma once
@@ -37,13 +43,17 @@ enum class FaultClass : unsigned char {
   crash,
   timeout,
   stray_process,
+  non_finite_gradient,
+  masked_key_gradient,
+  wrong_group_sum,
 };
 
 /// Every fault class, in the order above.
 inline constexpr FaultClass kAllFaultClasses[] = {
     FaultClass::non_finite, FaultClass::mask_leak,        FaultClass::oob_read, FaultClass::oob_write,
     FaultClass::convention, FaultClass::nondeterministic, FaultClass::crash,    FaultClass::timeout,
-    FaultClass::stray_process,
+    FaultClass::stray_process, FaultClass::non_finite_gradient, FaultClass::masked_key_gradient,
+    FaultClass::wrong_group_sum,
 };
 
 /// Returns: the JSON name ("non_finite", "mask_leak", ...).

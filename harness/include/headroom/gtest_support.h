@@ -26,6 +26,7 @@
 #include "headroom/attach.h"
 #include "headroom/budget.h"
 #include "headroom/judge.h"
+#include "headroom/judge_backward.h"
 #include "headroom/case_folder.h"
 #include "headroom/input_error.h"
 #include "headroom/qualify.h"
@@ -43,6 +44,7 @@ inline ::testing::AssertionResult WithinBudget(const std::string& kernel_spec, c
   try {
     auto kernel = attach_kernel(kernel_spec);
     auto plain = plain_kernel_for(kernel->declaration());
+    auto plain_backward = plain_backward_for(kernel->declaration());
     const Budget budget = budget_file.empty() ? Budget{} : load_budget(budget_file);
 
     RunnerOptions opt;
@@ -50,6 +52,7 @@ inline ::testing::AssertionResult WithinBudget(const std::string& kernel_spec, c
     opt.judge.detect.determinism_runs = 3;
     opt.judge.detect.reference.threads = std::max(1u, std::thread::hardware_concurrency());
     opt.judge.plain = plain.get();
+    opt.judge.plain_backward = plain_backward.get();
     opt.kernel_spec = kernel_spec;
     opt.judging_options = (budget_file.empty() ? std::string() : " --budget " + shell_quote(budget_file)) +
                           " --determinism-runs 3";

@@ -6,7 +6,8 @@
 //   → scores (scores.h) → faults (faults.h: non_finite, convention, mask_leak,
 //     nondeterministic, isolation classes) → the reference of the ORIGINAL
 //   source values (the input-quantisation split) → the ratio to the bundled
-//   textbook kernel of the same format on the same case.
+//   textbook kernel of the same format on the same case; for a kernel with a
+//   backward entry, on core cases, its gradients (judge_backward.h).
 // The budget verdict is applied afterwards (qualify.h), so a record can be
 // re-judged against another budget without re-running anything.
 #pragma once
@@ -28,6 +29,7 @@ namespace headroom {
 struct JudgeOptions {
   DetectorOptions detect;          ///< run options, determinism runs, leak probing, reference options
   AttachedKernel* plain = nullptr; ///< the textbook kernel of the same formats, for ratio_to_plain; may be null
+  AttachedKernel* plain_backward = nullptr;  ///< the plain same-precision backward (judge_backward.h); may be null
   bool quantisation_split = true;  ///< also compute the reference on the source values when they differ
 };
 

@@ -7,10 +7,12 @@
 // resumed or sharded run yields a record equal to an uninterrupted one.
 #pragma once
 
+#include <array>
 #include <cstdint>
 #include <filesystem>
 #include <limits>
 #include <map>
+#include <optional>
 #include <string>
 #include <vector>
 
@@ -45,6 +47,37 @@ struct CaseFigures {
                                                                    ///< may be another element's); NaN when not recorded
 };
 
+/// One gradient tensor judged one way (docs/backward.md): the forward's
+/// figures, in the units of CaseFigures with each element's natural magnitude
+/// (reference_backward.h) in place of Σ p_j|v_j|.
+struct GradientFigures {
+  double max_ulp = 0;
+  double max_scaled_error = 0;
+  double rmse = 0;
+  double relative_rmse = 0;
+  double cosine = 1;
+  double ratio_to_plain = std::numeric_limits<double>::quiet_NaN();  ///< max scaled error / that of the plain
+                                                                     ///< same-precision backward; NaN if n/a
+};
+
+/// The gradient tensors, in the order of GradientFigures arrays.
+inline constexpr const char* kGradientNames[3] = {"d_q", "d_k", "d_v"};
+
+/// A backward kernel's gradients on one case, judged two ways: fed the exact
+/// O and log-sum-exp (the backward's own error) and fed the kernel's own
+/// forward outputs (end to end, as training sees it).
+struct BackwardFigures {
+  std::array<GradientFigures, 3> fed_exact{};   ///< d_q, d_k, d_v
+  std::array<GradientFigures, 3> end_to_end{};  ///< d_q, d_k, d_v
+  bool end_to_end_judged = true;  ///< false when the kernel's forward gave no lse to feed it
+  std::string upstream;           ///< where dO came from: "case" (d_o.npy) or the generated kind
+  double spread = 0;              ///< a kernel declaring nondeterminism: largest scaled spread of two calls
+  /// Returns: the largest max_scaled_error over the tensors of both ways.
+  double worst_scaled_error() const;
+  /// Returns: the largest ratio_to_plain over the tensors of both ways (NaN when none).
+  double worst_ratio_to_plain() const;
+};
+
 /// The limits a case was judged against (budget.h), resolved at the case's
 /// shape: +inf where the budget sets none, NaN where the record does not say
 /// (a record written before limits were recorded, or a case never judged).
@@ -53,6 +86,11 @@ struct CaseLimits {
   double max_scaled_error = std::numeric_limits<double>::quiet_NaN();  ///< in output rounding units
   double max_rel_rmse = std::numeric_limits<double>::quiet_NaN();      ///< RMSE / RMS(o*)
   double max_ratio_to_plain = std::numeric_limits<double>::quiet_NaN();
+  // Backward judged (optional on read, absent when not): the gradient limits,
+  // fed the exact O/lse and end to end (budget.h gradient_scaled_error_limit).
+  double max_gradient_scaled_error = std::numeric_limits<double>::quiet_NaN();
+  double max_gradient_scaled_error_end_to_end = std::numeric_limits<double>::quiet_NaN();
+  double max_gradient_ratio_to_plain = std::numeric_limits<double>::quiet_NaN();
 };
 
 struct CaseRecord {
@@ -75,6 +113,8 @@ struct CaseRecord {
   std::vector<double> ulp_histogram;      ///< elements per bucket of ulp_histogram_edges() (scores.h)
   CaseLimits limits;                      ///< JSON "limits"; optional on read (absent: all NaN)
   bool reference_certified = true;        ///< every reference bound met its target; optional on read (absent: true)
+  std::optional<BackwardFigures> backward; ///< JSON "backward": the gradients, when the kernel's backward
+                                           ///< was judged on this case; optional on read (absent: not judged)
 };
 
 /// How many of a level's cases a kernel took: `of` = the cases of that level

@@ -7,6 +7,7 @@
 // over no applicable figure is NaN. +inf counts (it is the worst figure).
 #pragma once
 
+#include <array>
 #include <cstddef>
 #include <cstdint>
 #include <limits>
@@ -65,6 +66,21 @@ struct LimitedFigures {
 /// the ratio to plain only where some case has one (the plain kernel differs
 /// from the kernel judged).
 LimitedFigures limited_figures(const RunRecord& r);
+
+/// The gradients of the cases whose backward was judged (docs/backward.md):
+/// per tensor (d_q, d_k, d_v, kGradientNames) the worst of each figure.
+struct GradientSummary {
+  std::size_t cases = 0;             ///< cases with gradients judged
+  std::size_t end_to_end_cases = 0;  ///< of them, judged end to end too
+  std::array<double, 3> worst_fed_exact{}, worst_end_to_end{};  ///< max scaled error
+  std::array<double, 3> worst_rel_rmse{};                       ///< both ways
+  std::array<double, 3> lowest_cosine{1, 1, 1};                 ///< both ways
+  double worst_ratio_to_plain = std::numeric_limits<double>::quiet_NaN();
+  std::string worst_case;            ///< the case of the largest max scaled error
+  std::map<std::string, std::size_t> upstream;  ///< dO kind ("case", "gaussian", ...) → cases
+};
+/// Returns: the gradients of `r` (cases = 0 when no case has any).
+GradientSummary summarise_gradients(const RunRecord& r);
 
 /// Returns: "1.56" for a margin, "inf" (nothing to lose), or "—" when none applies.
 std::string margin_text(double m);
@@ -145,6 +161,9 @@ struct Coverage {
   std::size_t skipped = 0;
   /// Skipped cases per reason (the text after "name: " in RunRecord::skipped), most frequent first.
   std::vector<std::pair<std::string, std::size_t>> skipped_reasons;
+  std::size_t gradients_judged = 0;  ///< cases whose backward was judged (CaseRecord::backward)
+  std::size_t gradients_end_to_end = 0;
+  std::map<std::string, std::size_t> upstream;  ///< dO kinds of those cases
   /// Plain statements of what a reader could wrongly conclude from the
   /// verdict (no masked case, no long sequence, no block level, ...), one each.
   std::vector<std::string> cautions;

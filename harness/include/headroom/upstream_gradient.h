@@ -43,5 +43,7 @@ Tensor upstream_gradient(const CoreShape& s, UpstreamKind kind, std::uint64_t se
 /// shape with seed = a hash of the case name and kind = kUpstreamKinds[seed % 4].
 /// Preconditions: c.level is core.
 Tensor upstream_gradient_for(const Case& c);
+/// Returns: the kind upstream_gradient_for gives case `c` when it carries no dO.
+UpstreamKind upstream_kind_for(const Case& c);
 
 }  // namespace headroom
