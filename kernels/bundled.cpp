@@ -52,6 +52,9 @@ const hr_bundled_kernel kTable[] = {
      "grouped-query dK, dV keep only the last query head's share, not the group's sum"},
     {&backward_racy_dk, 1, "nondeterministic", "backward dK added by 4 threads with atomic float adds"},
     {&backward_masked_keys, 1, "masked_key_gradient", "backward dK, dV loop forgets the mask"},
+    {&softcap_after_mask, 1, "mask_leak",
+     "soft cap applied after the mask: tanh(-inf) = -1 gives masked keys the score -c, so they are attended"},
+    {&sink_dropped, 1, "error", "sink logit left out of the softmax normaliser: rows too large by (S + e^sink) / S"},
     {nullptr, 0, nullptr, nullptr},  // sentinel, not counted
 };
 

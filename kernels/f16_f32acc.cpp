@@ -30,7 +30,8 @@ const hr_kernel f16_f32acc = {
     .max_kv_len = 0,
     .run_core = run,
     .run_block = nullptr,
-    .features = HR_FEATURE_WINDOW,  // MaskView(*p) applies the sliding window
+    // MaskView(*p) applies the sliding window, ScoreFeatures the soft cap and sinks
+    .features = HR_FEATURE_WINDOW | HR_FEATURE_SOFTCAP | HR_FEATURE_SINKS,
 };
 
 }  // namespace hr_kernels

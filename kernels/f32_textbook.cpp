@@ -11,6 +11,7 @@
 #include <vector>
 
 #include "common.h"
+#include "score_features.h"
 #include "kernel_list.h"
 
 namespace hr_kernels {
@@ -18,6 +19,7 @@ namespace {
 
 std::int32_t run(const hr_core_problem* p) {
   const MaskView mask(*p);
+  const ScoreFeatures score(*p);
   if (!formats_are(*p, HR_FORMAT_FLOAT32, HR_FORMAT_FLOAT32) || !mask.known()) return HR_UNSUPPORTED;
   std::vector<float> q(p->key_dim), k(p->key_dim), v(p->value_dim), z(p->kv_len), acc(p->value_dim);
   for (std::int64_t b = 0; b < p->batch; ++b) {
@@ -30,14 +32,15 @@ std::int32_t run(const hr_core_problem* p) {
           z[j] = kNegInf;
           if (!mask.visible(b, h, i, j)) continue;
           load_row(p->k, b, g, j, p->key_dim, k.data());
-          z[j] = p->scale * dot(q.data(), k.data(), p->key_dim) + mask.bias(b, h, i, j);
+          z[j] = score.cap(p->scale * dot(q.data(), k.data(), p->key_dim)) + mask.bias(b, h, i, j);
           m = std::max(m, z[j]);
         }
         if (!(m > kNegInf)) {
           write_masked_row(*p, b, h, i);
           continue;
         }
-        float l = 0.0f;
+        m = score.with_sink(h, m);
+        float l = score.sink_weight(h, m);  // the sink's term, no value row
         std::fill(acc.begin(), acc.end(), 0.0f);
         for (std::int64_t j = 0; j < p->kv_len; ++j) {
           const float e = std::exp(z[j] - m);
@@ -72,7 +75,8 @@ const hr_kernel f32_textbook = {
     .max_kv_len = 0,
     .run_core = run,
     .run_block = nullptr,
-    .features = HR_FEATURE_WINDOW,  // MaskView(*p) applies the sliding window
+    // MaskView(*p) applies the sliding window, ScoreFeatures the soft cap and sinks
+    .features = HR_FEATURE_WINDOW | HR_FEATURE_SOFTCAP | HR_FEATURE_SINKS,
 };
 
 }  // namespace hr_kernels

@@ -13,6 +13,7 @@
 #include <vector>
 
 #include "common.h"
+#include "score_features.h"
 #include "kernel_list.h"
 
 namespace hr_kernels {
@@ -20,6 +21,7 @@ namespace {
 
 std::int32_t run(const hr_core_problem* p) {
   const MaskView mask(*p);
+  const ScoreFeatures score(*p);
   if (!formats_are(*p, HR_FORMAT_FLOAT32, HR_FORMAT_FLOAT32) || !mask.known()) return HR_UNSUPPORTED;
   const std::int64_t group = p->q_heads / p->kv_heads, dk = p->key_dim, dv = p->value_dim;
   std::vector<float> q(group * dk), k(dk), v(dv), m(group), l(group), acc(group * dv);
@@ -40,7 +42,7 @@ std::int32_t run(const hr_core_problem* p) {
           load_row(p->v, b, g, j, dv, v.data());
           for (std::int64_t r = 0; r < group; ++r) {
             if (!sees[r]) continue;
-            const float z = p->scale * dot(&q[r * dk], k.data(), dk) + mask.bias(b, h0 + r, i, j);
+            const float z = score.cap(p->scale * dot(&q[r * dk], k.data(), dk)) + mask.bias(b, h0 + r, i, j);
             float* a = &acc[r * dv];
             if (z > m[r]) {
               const float alpha = std::exp(m[r] - z);  // 0 for the first visible key
@@ -59,6 +61,8 @@ std::int32_t run(const hr_core_problem* p) {
           if (!(m[r] > kNegInf)) {
             write_masked_row(*p, b, h0 + r, i);
           } else {
+            const float alpha = score.fold_sink(h0 + r, m[r], l[r]);
+            for (std::int64_t d = 0; d < dv; ++d) acc[r * dv + d] *= alpha;
             write_row(*p, b, h0 + r, i, &acc[r * dv], m[r], l[r]);
           }
         }
@@ -87,7 +91,8 @@ const hr_kernel gqa_f32 = {
     .max_kv_len = 0,
     .run_core = run,
     .run_block = nullptr,
-    .features = HR_FEATURE_WINDOW,  // MaskView(*p) applies the sliding window
+    // MaskView(*p) applies the sliding window, ScoreFeatures the soft cap and sinks
+    .features = HR_FEATURE_WINDOW | HR_FEATURE_SOFTCAP | HR_FEATURE_SINKS,
 };
 
 }  // namespace hr_kernels

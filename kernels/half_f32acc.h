@@ -20,6 +20,7 @@
 #include <vector>
 
 #include "common.h"
+#include "score_features.h"
 
 namespace hr_kernels {
 
@@ -29,6 +30,7 @@ namespace hr_kernels {
 template <float (*round_p)(float)>
 std::int32_t run_half_f32acc(const hr_core_problem* p, std::int32_t format) {
   const MaskView mask(*p);
+  const ScoreFeatures score(*p);
   if (!formats_are(*p, format, format) || !mask.known()) return HR_UNSUPPORTED;
   std::vector<float> q(p->key_dim), k(p->key_dim), v(p->value_dim), z(p->kv_len), acc(p->value_dim);
   for (std::int64_t b = 0; b < p->batch; ++b) {
@@ -41,7 +43,7 @@ std::int32_t run_half_f32acc(const hr_core_problem* p, std::int32_t format) {
           z[j] = kNegInf;
           if (!mask.visible(b, h, i, j)) continue;
           load_row(p->k, b, g, j, p->key_dim, k.data());
-          z[j] = p->scale * dot(q.data(), k.data(), p->key_dim) + mask.bias(b, h, i, j);
+          z[j] = score.cap(p->scale * dot(q.data(), k.data(), p->key_dim)) + mask.bias(b, h, i, j);
           m = std::max(m, z[j]);
         }
         if (!(m > kNegInf)) {
@@ -58,6 +60,11 @@ std::int32_t run_half_f32acc(const hr_core_problem* p, std::int32_t format) {
           load_row(p->v, b, g, j, p->value_dim, v.data());
           for (std::int64_t d = 0; d < p->value_dim; ++d) acc[d] += e_rounded * v[d];
         }
+        // The sink joins in float32 after P is rounded, so the rounded
+        // probabilities stay relative to the keys' own maximum: a dominant
+        // sink would push them all below binary16's subnormals otherwise.
+        const float alpha = score.fold_sink(h, m, l);
+        for (float& a : acc) a *= alpha;
         write_row(*p, b, h, i, acc.data(), m, l);
       }
     }

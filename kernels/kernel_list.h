@@ -47,5 +47,7 @@ extern const hr_kernel window_off_by_one;
 extern const hr_kernel e4m3_overflow_nan;
 extern const hr_kernel e4m3_block_scale_shifted;
 extern const hr_kernel e4m3_p_unscaled;
+extern const hr_kernel softcap_after_mask;
+extern const hr_kernel sink_dropped;
 
 }  // namespace hr_kernels

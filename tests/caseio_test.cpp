@@ -210,6 +210,25 @@ TEST(CaseFolder, RoundTripsASlidingWindow) {
   EXPECT_EQ(slurp(tmp.path() / "plain" / "manifest.json").find("window"), std::string::npos);
 }
 
+TEST(CaseFolder, RoundTripsASoftCapAndSinksExactly) {
+  TempDir tmp;
+  Case c = core_case(Format::float32, MaskKind::causal_bottom_right);
+  c.core.softcap = 0x1.99999ap+4f;  // 25.6, not a short decimal
+  c.core.sinks.assign(static_cast<std::size_t>(c.core.shape.q_heads), 0.0f);
+  for (std::size_t h = 0; h < c.core.sinks.size(); ++h) c.core.sinks[h] = -0x1.000002p-3f * static_cast<float>(h + 1);
+  write_case(c, tmp.path() / "f");
+  const Case back = read_case(tmp.path() / "f");
+  EXPECT_EQ(back.core.softcap, c.core.softcap);
+  EXPECT_EQ(back.core.sinks, c.core.sinks);
+  const std::string manifest = slurp(tmp.path() / "f" / "manifest.json");
+  EXPECT_NE(manifest.find("\"softcap_hex\": \"0x1.99999ap+4\""), std::string::npos) << manifest;
+  // A case without them writes neither key.
+  write_case(core_case(Format::float32, MaskKind::none), tmp.path() / "plain");
+  const std::string plain = slurp(tmp.path() / "plain" / "manifest.json");
+  EXPECT_EQ(plain.find("softcap"), std::string::npos);
+  EXPECT_EQ(plain.find("sinks"), std::string::npos);
+}
+
 TEST(CaseFolder, RoundTripsABlockCaseWithSomeBiases) {
   TempDir tmp;
   const Case c = block_case();
@@ -410,6 +429,11 @@ TEST(CaseFolder, RefusesBadManifests) {
       {[](json& j) { j["mask"]["window"] = {{"left", -2}, {"right", -1}}; }, "field \"mask.window\"", "sides must be"},
       {[](json& j) { j["mask"]["window"] = {{"left", 3}}; }, "field \"mask.window.right\"", "missing field"},
       {[](json& j) { j["mask"]["window"] = {{"left", 3}, {"right", 0}, {"up", 1}}; }, "field \"mask.window.up\"", "unknown key"},
+      {[](json& j) { j["softcap_hex"] = "30"; }, "field \"softcap_hex\"", "not a finite hex float"},
+      {[](json& j) { j["softcap_hex"] = "-0x1p+4"; }, "field \"softcap_hex\"", "must be > 0"},
+      {[](json& j) { j["softcap_hex"] = "0x1.0000001p+4"; }, "field \"softcap_hex\"", "not a float32 value"},
+      {[](json& j) { j["sinks_hex"] = json::array(); }, "field \"sinks_hex\"", "non-empty array"},
+      {[](json& j) { j["sinks_hex"] = {"0x1p+0", 2}; }, "field \"sinks_hex[1]\"", "hex float string"},
       {[](json& j) { j["source_format"] = "int8"; }, "field \"source_format\"", "unknown source format"},
       {[](json& j) { j["level"] = "layer"; }, "field \"level\"", "unknown level"},
       {[](json& j) { j["headroom_case"] = 2; }, "field \"headroom_case\"", "version 2"},

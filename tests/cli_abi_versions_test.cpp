@@ -155,7 +155,7 @@ TEST(AbiVersions, FieldsThisBuildDoesNotJudgeAreRefusedByName) {
     void (*apply)(hr_kernel&);
   };
   const Set sets[] = {
-      {"features", [](hr_kernel& k) { k.features = HR_FEATURE_SOFTCAP; }},
+      {"features", [](hr_kernel& k) { k.features = HR_FEATURE_PAGED_KV; }},
       {"split_kv_len", [](hr_kernel& k) { k.split_kv_len = 512; }},
   };
   for (const Set& s : sets) {

@@ -27,7 +27,7 @@ TEST(GenerateFamilies, ListedOnceWithDocsAndFound) {
     ASSERT_NE(found, nullptr) << f.name;
     EXPECT_EQ(found->name, f.name);
   }
-  EXPECT_EQ(names.size(), 19u);
+  EXPECT_EQ(names.size(), 21u);
   EXPECT_EQ(find_family("no_such_family"), nullptr);
   EXPECT_EQ(find_family("block_gaussian")->level, Level::block);
   EXPECT_EQ(find_family("gaussian")->level, Level::core);
@@ -104,6 +104,33 @@ TEST(GenerateFamilies, SlidingWindowCasesCarryAWindowThatHidesKeys) {
     hiding += hides;
   }
   EXPECT_GE(hiding, 10);
+}
+
+// capped_logits carries a soft cap its scores exceed; dominant_sinks one sink
+// logit per query head, some far above every score.
+TEST(GenerateFamilies, ScoreFeatureFamiliesCarryTheirFeature) {
+  int saturated = 0, dominant = 0;
+  for (std::uint64_t seed = 0; seed < 20; ++seed) {
+    const Case capped = make_case(request("capped_logits", seed, 100));
+    SCOPED_TRACE(capped.name);
+    ASSERT_TRUE(capped.core.has_softcap());
+    EXPECT_FALSE(capped.core.has_sinks());
+    const CoreInputs& in = capped.core_inputs;
+    const CoreShape& s = capped.core.shape;
+    double top = 0;
+    for (std::int64_t j = 0; j < s.kv_len; ++j) {
+      double z = 0;
+      for (std::int64_t d = 0; d < s.key_dim; ++d) z += in.q.at(0, 0, 0, d) * in.k.at(0, 0, j, d);
+      top = std::max(top, std::fabs(capped.core.scale * z));
+    }
+    saturated += top > 2.0 * capped.core.softcap;
+    const Case sunk = make_case(request("dominant_sinks", seed, 100));
+    ASSERT_EQ(sunk.core.sinks.size(), static_cast<std::size_t>(sunk.core.shape.q_heads));
+    EXPECT_FALSE(sunk.core.has_softcap());
+    for (float x : sunk.core.sinks) dominant += x > 5.0f;
+  }
+  EXPECT_GE(saturated, 4);
+  EXPECT_GE(dominant, 4);
 }
 
 TEST(GenerateValidity, RequestedShapeAndMaskAreObeyed) {

@@ -132,6 +132,28 @@ TEST(SlidingWindow, SidesBelowMinusOneAreFindings) {
   EXPECT_NE(find_field(validate(p), "mask.window_left"), nullptr);
 }
 
+// Soft cap and sink logits (kernel_abi.h version 2): a cap is 0 or finite > 0,
+// sinks are none or one finite logit per query head.
+TEST(ScoreFeatures, CapAndSinksAreCheckedAgainstTheShape) {
+  CoreProblem p;
+  p.shape = shape_of(2, 4);
+  p.shape.q_heads = 2;
+  EXPECT_TRUE(validate(p).empty());
+  p.softcap = 30.0f;
+  p.sinks = {0.5f, -3.0f};
+  EXPECT_TRUE(validate(p).empty());
+  EXPECT_TRUE(p.has_softcap() && p.has_sinks());
+  for (float bad : {-1.0f, INFINITY, NAN}) {
+    p.softcap = bad;
+    EXPECT_NE(find_field(validate(p), "softcap"), nullptr) << bad;
+  }
+  p.softcap = 0.0f;
+  p.sinks = {0.5f};
+  EXPECT_NE(find_field(validate(p), "sinks"), nullptr);
+  p.sinks = {0.5f, NAN};
+  EXPECT_NE(find_field(validate(p), "sinks[1]"), nullptr);
+}
+
 TEST(KeyPaddingMask, LengthPerBatch) {
   const CoreShape s = shape_of(2, 6);
   Mask m;

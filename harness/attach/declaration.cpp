@@ -19,7 +19,7 @@ constexpr std::uint32_t kAllMasks = HR_MASK_NONE | HR_MASK_CAUSAL_TOP_LEFT | HR_
                                     HR_MASK_KEY_PADDING | HR_MASK_DENSE | HR_MASK_BIAS;
 constexpr std::uint32_t kAllLayouts = HR_LAYOUT_BHTD | HR_LAYOUT_BTHD;
 // The HR_FEATURE_* bits this build judges; the others are refused (refuse_unjudged).
-constexpr std::uint32_t kJudgedFeatures = HR_FEATURE_WINDOW;
+constexpr std::uint32_t kJudgedFeatures = HR_FEATURE_WINDOW | HR_FEATURE_SOFTCAP | HR_FEATURE_SINKS;
 constexpr MaskKind kMaskKinds[] = {MaskKind::none,        MaskKind::causal_top_left, MaskKind::causal_bottom_right,
                                    MaskKind::key_padding, MaskKind::dense,           MaskKind::bias};
 
@@ -135,7 +135,7 @@ void refuse_unjudged(const hr_kernel* k, const std::string& kernel, const std::s
     const char* what;
   };
   const Field fields[] = {
-      {"features", (k->features & ~kJudgedFeatures) != 0, "paged, packed, split, soft-capped and sink attention"},
+      {"features", (k->features & ~kJudgedFeatures) != 0, "paged, packed and split attention"},
       {"split_kv_len", k->split_kv_len != 0, "split-KV partial results"},
   };
   for (const Field& f : fields) {
@@ -296,7 +296,7 @@ void check_declaration(const KernelDeclaration& d, const std::string& origin) {
   }
   if ((d.features & ~kJudgedFeatures) != 0) {
     refuse(origin, "field \"features\"", who(d) + " declares features this headroom does not judge yet",
-           "declare only HR_FEATURE_WINDOW (\"window\") for now");
+           "declare only HR_FEATURE_WINDOW, HR_FEATURE_SOFTCAP and HR_FEATURE_SINKS (\"window\", \"softcap\", \"sinks\") for now");
   }
   const std::pair<const char*, std::int64_t> counts[] = {{"head_dim_multiple", d.head_dim_multiple},
                                                          {"kv_len_multiple", d.kv_len_multiple},
@@ -474,6 +474,8 @@ std::string declaration_summary(const KernelDeclaration& d) {
   if (d.max_q_len > 0) s += " max_q_len=" + std::to_string(d.max_q_len);
   if (d.max_batch > 0) s += " max_batch=" + std::to_string(d.max_batch);
   if (d.features & HR_FEATURE_WINDOW) s += " window=yes";
+  if (d.features & HR_FEATURE_SOFTCAP) s += " softcap=yes";
+  if (d.features & HR_FEATURE_SINKS) s += " sinks=yes";
   if (d.backward) {
     s += " backward=yes";
     if (d.backward_flags & HR_BACKWARD_RECOMPUTES) s += ",recomputes";

@@ -25,7 +25,8 @@ const std::set<std::string> kFieldsV2 = {"key_dims",  "value_dims", "head_dim_mu
                                          "max_q_len", "max_batch",  "serve",             "features",
                                          "fp8_saturating", "p_quant", "p_scale"};
 // The protocol-2 names of kernel_abi.h's HR_FEATURE_* bits this build judges.
-const std::pair<const char*, std::uint32_t> kFeatureNames[] = {{"window", HR_FEATURE_WINDOW}};
+const std::pair<const char*, std::uint32_t> kFeatureNames[] = {
+    {"window", HR_FEATURE_WINDOW}, {"softcap", HR_FEATURE_SOFTCAP}, {"sinks", HR_FEATURE_SINKS}};
 
 std::string place(const std::string& field) { return "describe output, field \"" + field + "\""; }
 
@@ -231,7 +232,8 @@ KernelDeclaration declaration_from_json(const std::string& text, const std::stri
       for (const auto& [n, bit] : kFeatureNames) {
         if (name == n) d.features |= bit, known = true;
       }
-      if (!known) refuse(origin, "features", "unknown or not yet judged feature \"" + name + "\"", "use \"window\"");
+      if (!known) refuse(origin, "features", "unknown or not yet judged feature \"" + name + "\"",
+                          "use \"window\", \"softcap\" or \"sinks\"");
     }
   }
   if (auto it = j.find("fp8_saturating"); it != j.end()) {

@@ -176,6 +176,16 @@ void write_exchange(const fs::path& dir, const ReceivedCase& c, const KernelDecl
     problem["scale"] = float_decimal(k.core.scale);
     problem["scale_hex"] = float_hex(k.core.scale);
     problem["mask"] = put_mask(dir, k.core.mask);
+    // Protocol 2: only a program that declared "softcap" / "sinks" gets them.
+    if (k.core.has_softcap()) {
+      problem["softcap"] = float_decimal(k.core.softcap);
+      problem["softcap_hex"] = float_hex(k.core.softcap);
+    }
+    if (k.core.has_sinks()) {
+      put(dir, "sinks.npy", raw_array({static_cast<std::int64_t>(k.core.sinks.size())}, "<f4", k.core.sinks.data(),
+                                      k.core.sinks.size() * sizeof(float)));
+      problem["sinks"] = "sinks.npy";
+    }
     if (is_quantised(d.input_format)) {
       json quant = json::object();
       put_quantised(dir, "q", *c.q8, quant);

@@ -214,6 +214,9 @@ void pack_core(const ReceivedCase& c, const KernelDeclaration& d, PackedCall& p)
   MaskPlan mask = plan_mask(p.arena, c.received.core.mask, s);
   plan_output(p, oe, bthd);
   p.out_shape = {s.batch, s.q_heads, s.q_len, s.value_dim};
+  const std::vector<float>& sinks = c.received.core.sinks;
+  std::optional<std::size_t> sinks_slot;
+  if (!sinks.empty()) sinks_slot = p.arena.add("sinks", Role::input, sinks.size() * sizeof(float));
   if (d.returns_lse) {
     p.lse_slot = p.arena.add("lse", Role::output, static_cast<std::size_t>(s.batch * s.q_heads * s.q_len) * sizeof(float));
   }
@@ -231,6 +234,16 @@ void pack_core(const ReceivedCase& c, const KernelDeclaration& d, PackedCall& p)
     cp.features |= HR_FEATURE_WINDOW;
     cp.window_left = c.received.core.mask.window_left;
     cp.window_right = c.received.core.mask.window_right;
+  }
+  if (c.received.core.has_softcap()) {
+    cp.features |= HR_FEATURE_SOFTCAP;
+    cp.softcap = c.received.core.softcap;
+  }
+  if (sinks_slot) {
+    cp.features |= HR_FEATURE_SINKS;
+    auto* dst = reinterpret_cast<float*>(p.arena.data(*sinks_slot));
+    std::copy(sinks.begin(), sinks.end(), dst);
+    cp.sinks = dst;
   }
   if (p.lse_slot) {
     fill_unwritten(Format::float32, p.arena.data(*p.lse_slot), p.arena.bytes(*p.lse_slot) / sizeof(float));

@@ -7,6 +7,7 @@
 #include "headroom/attach.h"
 #include "headroom/binary16.h"
 #include "headroom/input_error.h"
+#include "headroom/kernel_abi.h"
 
 namespace headroom {
 namespace {
@@ -87,6 +88,10 @@ std::optional<std::string> why_unfit(const Case& c, const KernelDeclaration& d) 
     return "kernel \"" + d.name + "\" does not declare mask kind " + std::string(mask_kind_name(mask.kind));
   }
   if (!d.accepts(mask)) return std::string("sliding window not declared");
+  if (c.level == Level::core && c.core.has_softcap() && (d.features & HR_FEATURE_SOFTCAP) == 0)
+    return std::string("soft cap not declared");
+  if (c.level == Level::core && c.core.has_sinks() && (d.features & HR_FEATURE_SINKS) == 0)
+    return std::string("sink logits not declared");
   if (auto reason = d.shape_unfit(shape)) return reason;
   if (c.level == Level::block && is_quantised(d.input_format)) {
     return std::string(format_name(d.input_format)) + " input at block level is not supported (only Q, K, V are quantised)";

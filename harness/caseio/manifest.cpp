@@ -103,6 +103,22 @@ json parse_json(std::string_view text, const std::string& file) {
   return j;
 }
 
+// A float32 written exactly as a hex float string ("0x1.9p+5"), as C's printf("%a") writes it.
+float read_hex_float32(const json& v, const std::string& field, const Reader& r) {
+  if (!v.is_string()) r.fail(field, Reader::type_problem("a hex float string such as \"0x1.9p+5\"", v));
+  const std::string hex = v.get<std::string>();
+  char* end = nullptr;
+  const double h = std::strtod(hex.c_str(), &end);
+  const bool is_hex = hex.find("0x") != std::string::npos || hex.find("0X") != std::string::npos;
+  if (hex.empty() || end != hex.c_str() + hex.size() || !is_hex || !std::isfinite(h))
+    r.fail(field, "\"" + hex + "\" is not a finite hex float", "write it as C's printf(\"%a\") does, e.g. \"0x1.9p+5\"");
+  const auto f = static_cast<float>(h);
+  if (static_cast<double>(f) != h)
+    r.fail(field, hex + " is not a float32 value (it has more than 24 significant bits or is out of range)",
+           "round it to float32: " + float_text(f, "%a"));
+  return f;
+}
+
 float read_scale(const json& root, const Reader& r) {
   const json& v = r.member(root, "scale", "");
   if (!v.is_number()) r.fail("scale", Reader::type_problem("a number", v));
@@ -117,22 +133,26 @@ float read_scale(const json& root, const Reader& r) {
            "write the float32 value with 9 significant digits, or give \"scale_hex\"");
   auto it = root.find("scale_hex");
   if (it == root.end()) return f;
-  if (!it->is_string()) r.fail("scale_hex", Reader::type_problem("a hex float string such as \"0x1p-3\"", *it));
-  const std::string hex = it->get<std::string>();
-  char* end = nullptr;
-  const double h = std::strtod(hex.c_str(), &end);
-  const bool is_hex = hex.find("0x") != std::string::npos || hex.find("0X") != std::string::npos;
-  if (hex.empty() || end != hex.c_str() + hex.size() || !is_hex)
-    r.fail("scale_hex", "\"" + hex + "\" is not a hex float", "write it as C's printf(\"%a\") does, e.g. \"0x1.6a09e6p-4\"");
-  const auto hf = static_cast<float>(h);
-  if (static_cast<double>(hf) != h)
-    r.fail("scale_hex", hex + " is not a float32 value (it has more than 24 significant bits or is out of range)",
-           "round it to float32: " + float_text(hf, "%a"));
+  const std::string hex = it->is_string() ? it->get<std::string>() : std::string();
+  const float hf = read_hex_float32(*it, "scale_hex", r);
   if (hf != f)
     r.fail("scale", "scale " + float_text(d, "%.9g") + " and scale_hex " + hex + " (" + float_text(hf, "%.9g") +
                         ") are different float32 values",
            "make them agree; scale_hex is the exact one");
   return hf;
+}
+
+// The score features of a core case (kernel_abi.h version 2): "softcap_hex" and "sinks_hex".
+void read_score_features(const json& root, const Reader& r, CoreProblem& p) {
+  if (auto it = root.find("softcap_hex"); it != root.end()) {
+    p.softcap = read_hex_float32(*it, "softcap_hex", r);
+    if (!(p.softcap > 0.0f)) r.fail("softcap_hex", "the soft cap must be > 0", "give a cap such as \"0x1.9p+5\" (50), or remove the field");
+  }
+  if (auto it = root.find("sinks_hex"); it != root.end()) {
+    if (!it->is_array() || it->empty()) r.fail("sinks_hex", Reader::type_problem("a non-empty array of hex floats, one per query head", *it));
+    for (std::size_t h = 0; h < it->size(); ++h)
+      p.sinks.push_back(read_hex_float32((*it)[h], "sinks_hex[" + std::to_string(h) + "]", r));
+  }
 }
 
 }  // namespace
@@ -147,7 +167,9 @@ bool valid_case_name(std::string_view name) {
 Case parse_manifest(std::string_view text, const std::string& file) {
   const json root = parse_json(text, file);
   const Reader r(file);
-  r.only_keys(root, {"headroom_case", "name", "level", "shape", "scale", "scale_hex", "source_format", "mask", "provenance"}, "");
+  r.only_keys(root, {"headroom_case", "name", "level", "shape", "scale", "scale_hex", "softcap_hex", "sinks_hex",
+                     "source_format", "mask", "provenance"},
+              "");
 
   const std::int64_t version = r.int_at(root, "headroom_case", "");
   if (version != kCaseFormatVersion)
@@ -222,7 +244,10 @@ Case parse_manifest(std::string_view text, const std::string& file) {
     c.core.shape = cs;
     c.core.scale = scale;
     c.core.mask = std::move(mask);
+    read_score_features(root, r, c.core);
   } else {
+    for (const char* key : {"softcap_hex", "sinks_hex"})
+      if (root.contains(key)) r.fail(key, std::string(key) + " given for a block case", "remove it: only core cases soft-cap or sink");
     c.block.shape = BlockShape{cs.batch, cs.q_len, cs.kv_len, extent("model_dim"), cs.q_heads, cs.kv_heads, cs.key_dim, cs.value_dim};
     c.block.scale = scale;
     c.block.mask = std::move(mask);
@@ -255,6 +280,12 @@ std::string format_manifest(const Case& c) {
   // reader maps back to this float32; the hex float carries it exactly.
   j["scale"] = std::strtod(float_text(scale, "%.9g").c_str(), nullptr);
   j["scale_hex"] = float_text(scale, "%a");
+  if (core && c.core.has_softcap()) j["softcap_hex"] = float_text(c.core.softcap, "%a");
+  if (core && c.core.has_sinks()) {
+    ordered sinks = ordered::array();
+    for (float x : c.core.sinks) sinks.push_back(float_text(x, "%a"));
+    j["sinks_hex"] = sinks;
+  }
   j["source_format"] = std::string(format_name(c.source_format));
   ordered m;
   m["kind"] = std::string(mask_kind_name(mask.kind));

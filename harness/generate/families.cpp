@@ -24,7 +24,8 @@ std::span<const FamilyImpl> family_impls() {
   static const std::vector<FamilyImpl> table = [] {
     std::vector<FamilyImpl> all;
     for (auto group : {baseline_families, score_families, activation_families, edge_families, window_families,
-                        fp8_families})
+                        fp8_families,
+                        score_feature_families})
       for (FamilyImpl& f : group()) all.push_back(f);
     std::vector<FamilyImpl> ordered;
     for (const FamilyInfo& info : kFamilies) {

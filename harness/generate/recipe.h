@@ -85,6 +85,7 @@ std::vector<FamilyImpl> activation_families();  // outlier_channels, sparse_outl
 std::vector<FamilyImpl> edge_families();        // format_edges, masks, cancelling_values
 std::vector<FamilyImpl> window_families();      // sliding_window
 std::vector<FamilyImpl> fp8_families();         // fp8_scales
+std::vector<FamilyImpl> score_feature_families();  // capped_logits, dominant_sinks
 
 // ---- shared helpers (shapes.cpp) ----
 

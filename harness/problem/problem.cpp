@@ -263,6 +263,20 @@ double Mask::bias_at(std::int64_t b, std::int64_t h, std::int64_t i, std::int64_
   return bias.at(b, mask_head(bias, h), i, j);
 }
 
+namespace {
+
+void check_score_features(const CoreProblem& p, Findings& f) {
+  if (!(p.softcap >= 0.0f) || std::isinf(p.softcap))
+    f.add("softcap", "0 (none) or a finite cap > 0", std::to_string(p.softcap));
+  if (p.has_sinks() && p.sinks.size() != static_cast<std::size_t>(p.shape.q_heads))
+    f.add("sinks", std::to_string(p.shape.q_heads) + " entries (one per query head) or none",
+          std::to_string(p.sinks.size()) + " entries");
+  for (std::size_t h = 0; h < p.sinks.size(); ++h)
+    if (!std::isfinite(p.sinks[h])) f.add("sinks[" + std::to_string(h) + "]", "a finite logit", std::to_string(p.sinks[h]));
+}
+
+}  // namespace
+
 std::string ProblemError::message() const { return field + ": expected " + expected + ", found " + found; }
 
 std::vector<ProblemError> validate(const CoreProblem& p) {
@@ -270,6 +284,7 @@ std::vector<ProblemError> validate(const CoreProblem& p) {
   const bool shape_ok = check_core_shape(p.shape, f);
   check_scale(p.scale, f);
   if (shape_ok) check_mask(p.mask, p.shape, f);
+  check_score_features(p, f);
   return f.take();
 }
 

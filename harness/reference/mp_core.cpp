@@ -144,6 +144,10 @@ bool MpCoreRows::run(std::int64_t row, CoreReference& ref, const std::uint8_t* w
     z_max = std::max(z_max, z);
     z_min = std::min(z_min, z);
   }
+  if (m.p.has_sinks()) {  // the sink joins the range of exponents
+    z_max = std::max<double>(z_max, m.p.sinks[static_cast<std::size_t>(h)]);
+    z_min = std::min<double>(z_min, m.p.sinks[static_cast<std::size_t>(h)]);
+  }
   const double r = 2.0 * static_cast<double>(dk + 3) * a_max + 2.0 * (z_max - z_min) + 2.0 * static_cast<double>(n) + 8;
   long prec = a_priori_precision(m.opt.target_log2, r, kMaxPrecision);
 
@@ -153,6 +157,9 @@ bool MpCoreRows::run(std::int64_t row, CoreReference& ref, const std::uint8_t* w
   spec.bias = m.bias.empty() ? nullptr : m.bias.data();
   spec.n = n;
   spec.scale = scale;
+  spec.softcap = m.p.softcap;
+  spec.has_sink = m.p.has_sinks();
+  if (spec.has_sink) spec.sink = m.p.sinks[static_cast<std::size_t>(h)];
   spec.target_log2 = m.opt.target_log2;
 
   if (m.opt.backend == ReferenceBackend::mpfr) {

@@ -1,8 +1,9 @@
 // headroom — one attention row in multiprecision, with its certified error bound.
 //
-// The row: visible keys j ∈ J (n = |J|), scores z_j = s·(q·k_j) + β_j, weights
-// w_j = exp(z_j − m) for a fixed number m, S = Σ w_j, N_d = Σ w_j v_jd,
-// O_d = N_d / S, lse = m + log S. The algorithm runs at working precision p
+// The row: visible keys j ∈ J (n = |J|), scores z_j = cap(s·(q·k_j)) + β_j
+// (cap(x) = c·tanh(x/c) under a soft cap c > 0, else x), weights
+// w_j = exp(z_j − m) for a fixed number m, S = Σ w_j (+ w_σ = exp(σ − m) when
+// the row has a sink logit σ), N_d = Σ w_j v_jd, O_d = N_d / S, lse = m + log S. The algorithm runs at working precision p
 // (unit u: relative error of + − × ÷; u_f: of exp and log; see mp_arith.h) and
 // every number below is the value actually computed, hatted.
 //
@@ -16,6 +17,18 @@
 //      (γ' = 0 and a = |·| at core level). Then ẑ_j = RN(RN(s·â) + β_j), and
 //      with (1+u)(1+γ_n) ≤ 1+γ_{n+1}:
 //        |ẑ_j − z_j| ≤ E_j = |s|·Ā_j·[γ_{Dk+1}(1+γ')² + γ'(2+γ')] + u|ẑ_j|.
+//  (1') Soft cap c > 0 (applied before the bias): x̂ = RN(ŷ/c) with ŷ = RN(s·â),
+//      τ̂ = RN_f(tanh x̂), ĉ = RN(c·τ̂). The map y ↦ c·tanh(y/c) is 1-Lipschitz
+//      (its derivative sech²(y/c) lies in (0, 1]), so the error of ŷ carries
+//      over unchanged; the division adds c·u|ŷ/c| = u|ŷ|, tanh adds
+//      c·|τ̂ − tanh x̂| ≤ c·u_f|tanh x̂| ≤ c·u_f|τ̂|/(1 − u_f), the product u|ĉ|:
+//        E_j = |s|·Ā_j·[...] + u|ŷ| + c·u_f|τ̂|/(1 − u_f) + u|ĉ| + u|ẑ_j|.
+//      (tanh: correctly rounded by MPFR, mpfr_tanh; Boost's charged u_f as
+//      exp and log are, and measured against MPFR in reference_test.cpp.)
+//  (1'') A sink logit σ (exact float32) is one more weight with exponent
+//      σ − m and no value row: it joins m, Ŝ (n + 1 terms) and lse below and
+//      none of the N_d, G_d; (2)–(8) hold with n + 1 in the sums of (4) and
+//      O_d = N_d/S, |O_d| ≤ Σ_j w_j|v_jd|/S unchanged.
 //  (2) m = max_j ẑ_j (any fixed number would do: the softmax and lse below are
 //      exact in m, so m carries no error). t̂_j = RN(ẑ_j − m), |t̂_j − (ẑ_j − m)|
 //      ≤ u|t̂_j|, so the exact exponent z_j − m lies within r_j = E_j + u|t̂_j|
@@ -62,6 +75,9 @@ struct RowSpec {
   const double* bias = nullptr;        ///< β per visible key (n values), or null for 0
   std::int64_t n = 0;
   double scale = 1.0;                  ///< s, exactly the float32 passed
+  double softcap = 0.0;                ///< c > 0: scores capped as c·tanh(x/c) before β; 0: none
+  bool has_sink = false;               ///< a sink logit joins the normaliser
+  double sink = 0.0;                   ///< σ, exactly the float32 passed
   int target_log2 = -80;
 };
 
@@ -129,7 +145,8 @@ RowVerdict mp_row(const Arith& ar, MpWorkspace<Arith>& ws, const Source& src, co
   const std::int64_t n = spec.n, dv = src.value_dim();
   const double u = ar.unit(), uf = ar.unit_fn();
   const double gin = src.gamma_in();
-  ws.prepare(ar, n, dv, src.key_dim());
+  const std::int64_t nw = n + (spec.has_sink ? 1 : 0);  // weights: the keys', then the sink's
+  ws.prepare(ar, nw, dv, src.key_dim());
   src.begin_row(ar, ws);
 
   // (1) scores and their absolute error bounds E_j.
@@ -137,22 +154,38 @@ RowVerdict mp_row(const Arith& ar, MpWorkspace<Arith>& ws, const Source& src, co
   const double gdot = mul_up(std::fabs(spec.scale),
                              add_up(mul_up(gamma_up(src.key_dim() + 1, u), mul_up(one_gin, one_gin)),
                                     mul_up(gin, add_up(2.0, gin))));
+  const double c = spec.softcap, c_fn = c > 0 ? div_up(mul_up(c, uf), sub_down(1.0, uf)) : 0.0;
   std::int64_t arg_max = 0;
   for (std::int64_t idx = 0; idx < n; ++idx) {
     Num& z = ws.w[static_cast<std::size_t>(idx)];
     const std::int64_t j = spec.keys[idx];
     src.dot(ar, ws, z, j);
     ar.mul_d(z, spec.scale);
+    double e = mul_up(gdot, src.abs_dot_up(j));
+    if (c > 0) {  // (1')
+      e = add_up(e, mul_up(u, ar.abs_up(z)));
+      ar.div_d(z, c);
+      ar.tanh(z);
+      e = add_up(e, mul_up(c_fn, ar.abs_up(z)));
+      ar.mul_d(z, c);
+      e = add_up(e, mul_up(u, ar.abs_up(z)));
+    }
     if (spec.bias != nullptr) ar.add_d(z, spec.bias[idx]);
-    ws.err[static_cast<std::size_t>(idx)] = add_up(mul_up(gdot, src.abs_dot_up(j)), mul_up(u, ar.abs_up(z)));
+    ws.err[static_cast<std::size_t>(idx)] = add_up(e, mul_up(u, ar.abs_up(z)));
     if (idx > 0 && ar.less(ws.w[static_cast<std::size_t>(arg_max)], z)) arg_max = idx;
+  }
+  if (spec.has_sink) {  // (1''): exact, so no score error
+    Num& z = ws.w[static_cast<std::size_t>(n)];
+    ar.set_d(z, spec.sink);
+    ws.err[static_cast<std::size_t>(n)] = 0.0;
+    if (ar.less(ws.w[static_cast<std::size_t>(arg_max)], z)) arg_max = n;
   }
 
   // (2), (3) shift by m, exponentiate, track the largest exponent uncertainty.
   ar.set(ws.m, ws.w[static_cast<std::size_t>(arg_max)]);
   double r_max = 0;
   bool tiny = false, broken = false;
-  for (std::int64_t idx = 0; idx < n; ++idx) {
+  for (std::int64_t idx = 0; idx < nw; ++idx) {
     Num& w = ws.w[static_cast<std::size_t>(idx)];
     ar.sub(w, ws.m);
     const double t_abs = ar.abs_up(w);
@@ -167,8 +200,8 @@ RowVerdict mp_row(const Arith& ar, MpWorkspace<Arith>& ws, const Source& src, co
 
   // (4) the sum of weights.
   ar.zero(ws.s);
-  for (std::int64_t idx = 0; idx < n; ++idx) ar.add(ws.s, ws.w[static_cast<std::size_t>(idx)]);
-  const double g_n = gamma_up(n, u), g_n1 = gamma_up(n - 1, u);
+  for (std::int64_t idx = 0; idx < nw; ++idx) ar.add(ws.s, ws.w[static_cast<std::size_t>(idx)]);
+  const double g_n = gamma_up(n, u), g_n1 = gamma_up(nw - 1, u);
   const double eps_s = div_up(add_up(phi, g_n1), sub_down(1.0, g_n1));
 
   // (5) weighted sums of v and of its magnitude bound, for the wanted elements.
@@ -190,9 +223,9 @@ RowVerdict mp_row(const Arith& ar, MpWorkspace<Arith>& ws, const Source& src, co
 
   // (6), (7) quotient, bound, magnitude, certification.
   const double one_phi = add_up(1.0, phi);
-  const double c = add_up(add_up(mul_up(g_n, one_gin), add_up(gin, phi)),
-                          div_up(mul_up(eps_s, one_phi), sub_down(1.0, eps_s)));
-  const double c_g = div_up(c, sub_down(1.0, g_n));
+  const double coef = add_up(add_up(mul_up(g_n, one_gin), add_up(gin, phi)),
+                             div_up(mul_up(eps_s, one_phi), sub_down(1.0, eps_s)));
+  const double c_g = div_up(coef, sub_down(1.0, g_n));
   const double low = div_down(sub_down(1.0, phi), mul_up(add_up(1.0, g_n), add_up(1.0, eps_s)));
   const double allowed_rel = std::ldexp(1.0, spec.target_log2);
   RowVerdict verdict;

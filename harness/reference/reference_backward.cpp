@@ -72,6 +72,10 @@ void all_elements(const CoreShape& s, std::int64_t block, bool with_ds, std::vec
 BackwardReference reference_backward(const CoreProblem& p, const CoreInputs& in, const Tensor& d_o,
                                      const BackwardOptions& opt) {
   detail::require_valid(p, in);
+  if (p.has_softcap() || p.has_sinks())
+    throw InputError("reference input", p.has_softcap() ? "field softcap" : "field sinks",
+                     "the backward reference does not differentiate soft caps or sink logits yet",
+                     "judge the backward on a problem without them");
   const CoreShape& s = p.shape;
   require_d_o(s, d_o);
   BackwardReference ref;

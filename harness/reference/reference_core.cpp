@@ -2,7 +2,8 @@
 //
 // Method fast: each row on the double-double fast path (fast_core.h), the
 // elements that miss the target recomputed in multiprecision; method
-// multiprecision: each row in multiprecision (mp_core.h). Rows are
+// multiprecision, and every problem with a soft cap or sink logits: each row
+// in multiprecision (mp_core.h). Rows are
 // independent and each is computed the same way whichever worker takes it,
 // so the result does not depend on the thread count.
 #include <algorithm>
@@ -39,7 +40,9 @@ CoreReference reference_core(const CoreProblem& p, const CoreInputs& in, const R
 
   const unsigned workers = detail::worker_count(rows, opt.threads);
   std::optional<detail::FastCore> fast;
-  if (opt.method == ReferenceMethod::fast) fast.emplace(p, in, opt, workers);
+  // The fast path knows neither soft caps nor sinks: such problems take the
+  // multiprecision path row by row (same certificate, slower).
+  if (opt.method == ReferenceMethod::fast && !p.has_softcap() && !p.has_sinks()) fast.emplace(p, in, opt, workers);
   // Work items: groups of query rows on the fast path, single rows otherwise.
   const std::int64_t items = fast ? fast->groups() : rows;
 

@@ -28,6 +28,9 @@ double row_magnitude(const CoreProblem& p, std::int64_t b, std::int64_t h, std::
     const double bias = p.mask.kind == MaskKind::bias ? std::fabs(p.mask.bias_at(b, h, i, j)) : 0.0;
     z = std::max(z, std::fabs(static_cast<double>(p.scale)) * dot + bias);
   }
+  // A sink logit enters exp(σ − m) like a score (a soft cap only shrinks the
+  // scores, and c·tanh(x/c) is 1-Lipschitz, so |x| still bounds its error).
+  if (p.has_sinks()) z = std::max(z, std::fabs(static_cast<double>(p.sinks[static_cast<std::size_t>(h)])));
   return z;
 }
 

@@ -28,6 +28,7 @@ const hr_kernel window_off_by_one = [] {
   k.name = "window_off_by_one";
   k.description = "float32 textbook attention whose sliding window admits one key too many on the left";
   k.run_core = run;
+  k.features = HR_FEATURE_WINDOW;  // its one defect is the window's
   return k;
 }();
 

@@ -10,6 +10,10 @@
 //   |out − mpmath| ≤ bound + 2^-53|out| + 10^-40·magnitude,
 // i.e. the contract of reference.h. The comparison itself is done in MPFR at
 // 400 bits on mpmath's decimal string, so it adds no error of its own.
+// Soft caps and sink logits (kernel_abi.h version 2) reach mpmath too: the
+// script caps with mpmath's own tanh (c·tanh(x/c), before the bias) and adds
+// exp(σ) to the normaliser, so the certified tanh enclosure of mp_row.h (1')
+// and the sink term (1'') are checked against an independent implementation.
 // Without /usr/bin/python3 or mpmath the test fails and says so.
 #include <gtest/gtest.h>
 #include <mpfr.h>
@@ -38,7 +42,7 @@ constexpr const char* kPython = "/usr/bin/python3";
 // outputs and the lse, each with 45 significant digits.
 constexpr const char* kScript = R"PY(
 import sys
-from mpmath import mp, mpf, exp, log
+from mpmath import mp, mpf, exp, log, tanh
 mp.dps = 50
 def floats(line):
     return [mpf(float.fromhex(t)) for t in line.split()[1:]]
@@ -48,6 +52,7 @@ i = 0
 while i < len(lines):
     head = lines[i].split()
     tq, tk, dk, dv = map(int, head[1:5]); s = mpf(float.fromhex(head[5]))
+    cap = mpf(float.fromhex(head[6])); sink = None if head[7] == "none" else mpf(float.fromhex(head[7]))
     q = floats(lines[i+1]); k = floats(lines[i+2]); v = floats(lines[i+3])
     mask = [int(t) for t in lines[i+4].split()[1:]]
     bias = floats(lines[i+5])
@@ -56,10 +61,13 @@ while i < len(lines):
         keys = [j for j in range(tk) if mask[r*tk + j]]
         if not keys:
             out.append("masked"); continue
-        z = [s * sum(q[r*dk + c] * k[j*dk + c] for c in range(dk)) + bias[r*tk + j] for j in keys]
-        m = max(z)
-        w = [exp(x - m) for x in z]
-        S = sum(w)
+        x = [s * sum(q[r*dk + c] * k[j*dk + c] for c in range(dk)) for j in keys]
+        if cap > 0:
+            x = [cap * tanh(t / cap) for t in x]
+        z = [x[a] + bias[r*tk + keys[a]] for a in range(len(keys))]
+        m = max(z + ([sink] if sink is not None else []))
+        w = [exp(t - m) for t in z]
+        S = sum(w) + (exp(sink - m) if sink is not None else 0)
         o = [sum(w[a] * v[keys[a]*dv + d] for a in range(len(keys))) / S for d in range(dv)]
         out.append(" ".join(mp.nstr(x, 45, min_fixed=1, max_fixed=0) for x in o) + " " + mp.nstr(m + log(S), 45, min_fixed=1, max_fixed=0))
 open(sys.argv[2], "w").write("\n".join(out) + "\n")
@@ -79,7 +87,8 @@ struct TextCase {
 void write_case(std::ostream& os, const TextCase& t) {
   const CoreShape& s = t.c.problem.shape;
   os << "case " << s.q_len << ' ' << s.kv_len << ' ' << s.key_dim << ' ' << s.value_dim << ' '
-     << hex(t.c.problem.scale) << '\n';
+     << hex(t.c.problem.scale) << ' ' << hex(t.c.problem.softcap) << ' '
+     << (t.c.problem.has_sinks() ? hex(t.c.problem.sinks[0]) : std::string("none")) << '\n';
   for (const auto* tensor : {&t.c.inputs.q, &t.c.inputs.k, &t.c.inputs.v}) {
     os << 't';
     for (double x : tensor->values) os << ' ' << hex(x);
@@ -124,6 +133,10 @@ TextCase make_case(int index) {
     for (std::size_t e = 0; e < n; ++e)
       t.c.problem.mask.bias.values[e] = t.mask[e] != 0 ? t.bias[e] : -INFINITY;
   }
+  // Soft caps on a third of the cases (c from 0.75, below the scores, to 20),
+  // sinks on every fourth, from far below the scores to far above them.
+  if (index % 3 == 2) t.c.problem.softcap = index % 9 == 2 ? 0.75f : (index % 9 == 5 ? 4.0f : 20.0f);
+  if (index % 4 == 1) t.c.problem.sinks = {static_cast<float>((index % 8 == 1 ? 6.5 : -3.25) * sigma)};
   return t;
 }
 
@@ -196,6 +209,10 @@ TEST(ReferenceVsMpmath, EveryElementWithinItsBound) {
   mpfr_clears(want, got, diff, allow, static_cast<mpfr_ptr>(nullptr));
   std::printf("reference vs mpmath: %d values, worst |ref - mpmath| / allowance = %.3g\n", checked, worst);
   EXPECT_GT(checked, 50);
+  int capped = 0, sunk = 0;
+  for (const TextCase& t : cases) capped += t.c.problem.has_softcap(), sunk += t.c.problem.has_sinks();
+  EXPECT_GE(capped, 6);
+  EXPECT_GE(sunk, 5);
   fs::remove_all(dir);
 }
 

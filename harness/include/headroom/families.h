@@ -168,6 +168,25 @@ inline constexpr FamilyInfo kFamilies[] = {
      "counted one key too wide or too narrow at a tile edge is the typical defect; key padding shorter "
      "than a window start leaves rows fully masked. Only kernels declaring the feature get these cases.",
      "Beltagy et al. 2020, Longformer, §3.1 (sliding window attention; from memory)", Level::core},
+    {"capped_logits", "logit soft-capping c·tanh(z/c) on large logits, from barely capped to saturated",
+     "Gaussian Q, K scaled so the scaled scores spread 0.5, 1, 2, 4 or 16 times the cap, under a soft cap "
+     "(kernel_abi.h version 2, HR_FEATURE_SOFTCAP) c in {50, 30, 20, 10, 5}: each score x becomes "
+     "c·tanh(x/c) before the bias and the mask. Deep in saturation many keys tie at about c and differ "
+     "only in tanh's last bits; the masks (causal, key padding, bias with fully masked rows) hide keys, so "
+     "a cap applied after the mask, which turns a masked −inf into −c and revives the key, shows as a "
+     "leak. Only kernels declaring the feature get these cases.",
+     "Gemma 2 (Gemma Team 2024, §2: attention logits capped at 50; from memory)", Level::core},
+    {"dominant_sinks", "one sink logit per head in the normaliser, up to e^8 times a key's weight",
+     "Gaussian Q, K, V and one sink logit σ_h per query head (kernel_abi.h version 2, HR_FEATURE_SINKS) "
+     "that adds exp(σ_h) to every row's normaliser with no value row. σ_h = level + 0.5·N(0,1), level "
+     "0, 1, 2, 4, 6 or 8 above the typical score: from an equal share to sinks that take over 97% of the "
+     "weight, leaving outputs ~e^-8 of typical (still normal in binary16); odd heads' sinks far below in a "
+     "third of the "
+     "cases, scores widened 4× in another third. A sink left out of the normaliser, or out of the max "
+     "shift, is the typical defect. Only kernels declaring the feature get these cases.",
+     "Xiao et al. 2024, Efficient Streaming Language Models with Attention Sinks, §3 (a learnable sink "
+     "logit in the softmax denominator; from memory)",
+     Level::core},
 };
 
 /// Returns: every family, in the order above.

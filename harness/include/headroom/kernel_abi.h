@@ -177,8 +177,9 @@ typedef struct hr_core_problem {
                                         i + Tk - Tq; -1 leaves that side open */
   float softcap;                     /* HR_FEATURE_SOFTCAP: c > 0 replaces each scaled score
                                         z by c * tanh(z / c) before bias and mask; 0: none */
-  const float* sinks;                /* HR_FEATURE_SINKS: [Hq] logits added to each row's
-                                        normaliser with no value row; NULL: none */
+  const float* sinks;                /* HR_FEATURE_SINKS: [Hq] logits; exp(sinks[h]) joins each
+                                        row's normaliser (and lse) with no value row; a row with
+                                        no visible key stays fully masked; NULL: none */
   const int64_t* cu_q_lens;          /* HR_FEATURE_VARLEN: [B + 1] offsets of each sequence's
                                         rows in the packed q and o (extents [1, H, total, D]);
                                         q_len is then the largest length; NULL: dense */

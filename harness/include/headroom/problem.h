@@ -1,9 +1,11 @@
 // headroom — the problems being judged: core attention and the multi-head block.
 //
 // Core: for batch b and query head h, with key/value head g = h / (Hq / Hkv),
-//   O[b,h,i,:] = Σ_j p_ij V[b,g,j,:],  p_ij = exp(z_ij) / Σ_k exp(z_ik),
-//   z_ij = s · (Q[b,h,i,:] · K[b,g,j,:]) + bias_ij   over visible j only,
-// with s the float32 scale exactly as passed (Vaswani et al. 2017, eq. 1).
+//   O[b,h,i,:] = Σ_j p_ij V[b,g,j,:],  p_ij = exp(z_ij) / (Σ_k exp(z_ik) + exp(σ_h)),
+//   z_ij = cap(s · (Q[b,h,i,:] · K[b,g,j,:])) + bias_ij   over visible j only,
+// with s the float32 scale exactly as passed (Vaswani et al. 2017, eq. 1),
+// cap(x) = c·tanh(x/c) with a soft cap c > 0 and cap(x) = x without one, and
+// the sink term exp(σ_h) only when the problem has sink logits σ.
 // Block: Q = X_q W_q + b_q, K = X_kv W_k + b_k, V = X_kv W_v + b_v, head h owning
 // columns [h·Dk, (h+1)·Dk) of Q (likewise K, V); Y = concat_h(O_h) W_o + b_o.
 // Grouped-query attention is Hkv < Hq with Hq a multiple of Hkv.
@@ -60,6 +62,19 @@ struct CoreProblem {
   CoreShape shape;
   float scale = 1.0f;  ///< used exactly as this float32 value
   Mask mask;
+  /// Logit soft-capping (kernel_abi.h version 2, HR_FEATURE_SOFTCAP): c > 0
+  /// replaces each scaled score x = s·(q·k) by c·tanh(x/c) before the bias
+  /// and the mask; 0 = none. Used exactly as this float32 value.
+  float softcap = 0.0f;
+  /// Sink logits (HR_FEATURE_SINKS): [Hq] float32 values σ_h, each adding
+  /// exp(σ_h) to every row's normaliser of head h with no value row; empty =
+  /// none. In the units of the capped, biased scores z.
+  std::vector<float> sinks{};
+
+  /// Returns: whether the problem soft-caps its scores.
+  bool has_softcap() const { return softcap != 0.0f; }
+  /// Returns: whether the problem has sink logits.
+  bool has_sinks() const { return !sinks.empty(); }
 };
 
 /// Q [B, Hq, Tq, Dk], K [B, Hkv, Tk, Dk], V [B, Hkv, Tk, Dv].
@@ -99,7 +114,8 @@ struct ProblemError {
 
 /// Returns: every inconsistency of the shape, scale and mask (empty when valid):
 /// extents ≥ 1, Hq a multiple of Hkv, finite nonzero scale, mask tensors shaped
-/// as documented, key lengths in [0, Tk], window sides ≥ −1.
+/// as documented, key lengths in [0, Tk], window sides ≥ −1, a soft cap that is
+/// 0 or finite and > 0, sinks empty or Hq finite values.
 std::vector<ProblemError> validate(const CoreProblem& p);
 /// Returns: validate(p) plus the shapes of Q, K, V against p.shape.
 std::vector<ProblemError> validate(const CoreProblem& p, const CoreInputs& in);
