@@ -6,6 +6,7 @@
 #include <limits>
 #include <set>
 #include <string>
+#include <vector>
 
 #include "generate_support.h"
 #include "headroom/suite.h"
@@ -89,6 +90,25 @@ TEST(GenerateSuites, EverySuiteHasBlocksAModuleWithOneHeadDimCanTake) {
     EXPECT_GE(full_head, 3);
     EXPECT_GE(masked, 2);
     EXPECT_TRUE(base_model);
+  }
+}
+
+// Each kernel_abi.h version-2 feature judged so far is in every suite, counted
+// in its coverage (`headroom suites`), and the ones not judged are named.
+TEST(GenerateSuites, CoverageCountsTheInferenceFeatures) {
+  for (const char* suite : {"quick", "standard"}) {
+    const SuiteCoverage c = suite_coverage(suite_requests(suite));
+    std::vector<std::string> names;
+    for (const auto& [name, n] : c.features) {
+      names.push_back(name);
+      EXPECT_GE(n, 2u) << suite << ' ' << name;
+    }
+    EXPECT_EQ(names, (std::vector<std::string>{"window", "softcap", "sinks"})) << suite;
+    bool line = false;
+    for (const std::string& l : coverage_text(c))
+      line = line || (l.find("inference features") != std::string::npos && l.find("softcap ") != std::string::npos &&
+                      l.find("not yet: paged K/V") != std::string::npos);
+    EXPECT_TRUE(line) << suite;
   }
 }
 

@@ -298,6 +298,10 @@ void check_declaration(const KernelDeclaration& d, const std::string& origin) {
     refuse(origin, "field \"features\"", who(d) + " declares features this headroom does not judge yet",
            "declare only HR_FEATURE_WINDOW, HR_FEATURE_SOFTCAP and HR_FEATURE_SINKS (\"window\", \"softcap\", \"sinks\") for now");
   }
+  if (d.backward && (d.features & (HR_FEATURE_SOFTCAP | HR_FEATURE_SINKS)) != 0) {
+    refuse(origin, "field \"features\"", who(d) + " declares a backward entry with soft caps or sinks",
+           "headroom does not judge their gradients yet: declare them on a forward-only kernel");
+  }
   const std::pair<const char*, std::int64_t> counts[] = {{"head_dim_multiple", d.head_dim_multiple},
                                                          {"kv_len_multiple", d.kv_len_multiple},
                                                          {"max_q_len", d.max_q_len},

@@ -48,7 +48,9 @@ SuiteCoverage suite_coverage(const std::vector<CaseRequest>& requests) {
   std::set<std::int64_t> groups;
   std::set<MaskKind> masks;
   std::set<std::string> fams;
+  std::map<std::string, std::size_t> per_feature;
   for (const CaseRequest& r : requests) {
+    if (const FamilyInfo* f = find_family(r.family); f && !f->feature.empty()) ++per_feature[std::string(f->feature)];
     const CaseOutline o = case_outline(r);
     const CoreShape& s = o.shape;
     ++c.cases;
@@ -73,8 +75,13 @@ SuiteCoverage suite_coverage(const std::vector<CaseRequest>& requests) {
   }
   c.group_sizes.assign(groups.begin(), groups.end());
   for (MaskKind m : masks) c.masks.emplace_back(mask_kind_name(m));
-  for (const FamilyInfo& f : kFamilies)
+  for (const FamilyInfo& f : kFamilies) {
     if (fams.count(std::string(f.name))) c.families.emplace_back(f.name);
+    if (auto it = per_feature.find(std::string(f.feature)); it != per_feature.end()) {
+      c.features.emplace_back(it->first, it->second);
+      per_feature.erase(it);
+    }
+  }
   return c;
 }
 
@@ -103,6 +110,9 @@ std::vector<std::string> coverage_text(const SuiteCoverage& c) {
     }
     return out;
   };
+  std::string features;
+  for (const auto& [name, n] : c.features) features += (features.empty() ? "" : ", ") + name + " " + std::to_string(n);
+  if (features.empty()) features = "none";
   return {
       "cases: " + std::to_string(c.cases) + " (" + std::to_string(c.block_cases) + " block level, " +
           std::to_string(c.long_cases) + " with Tk >= 4096)",
@@ -114,6 +124,8 @@ std::vector<std::string> coverage_text(const SuiteCoverage& c) {
       "group sizes (Hq/Hkv): " + join(c.group_sizes),
       "masks: " + join(c.masks),
       "families: " + std::to_string(c.families.size()) + " of " + std::to_string(std::size(kFamilies)),
+      "inference features (kernel_abi.h v2, only for kernels declaring them): " + features +
+          "; not yet: paged K/V, packed variable lengths, split-KV partials",
       "formats: the kernel's own, each case rounded or quantised to the input format it declares: " + format_list() +
           " (scales per tensor, head, token, channel or block as declared)",
   };

@@ -23,6 +23,10 @@ struct FamilyInfo {
   std::string_view doc;      ///< what it stresses, its parameters, why it is hard
   std::string_view source;   ///< the published source, or empty for our own construction
   Level level;
+  /// The kernel_abi.h version-2 feature every case of the family uses
+  /// ("window", "softcap", "sinks", as a program's describe names them), or
+  /// empty; only kernels declaring it get the family's cases.
+  std::string_view feature = {};
 };
 
 inline constexpr FamilyInfo kFamilies[] = {
@@ -167,7 +171,7 @@ inline constexpr FamilyInfo kFamilies[] = {
      "Tq = 1 decoding rows), key-padding and open masks, Tk up to 200 at the default size. A window "
      "counted one key too wide or too narrow at a tile edge is the typical defect; key padding shorter "
      "than a window start leaves rows fully masked. Only kernels declaring the feature get these cases.",
-     "Beltagy et al. 2020, Longformer, §3.1 (sliding window attention; from memory)", Level::core},
+     "Beltagy et al. 2020, Longformer, §3.1 (sliding window attention; from memory)", Level::core, "window"},
     {"capped_logits", "logit soft-capping c·tanh(z/c) on large logits, from barely capped to saturated",
      "Gaussian Q, K scaled so the scaled scores spread 0.5, 1, 2, 4 or 16 times the cap, under a soft cap "
      "(kernel_abi.h version 2, HR_FEATURE_SOFTCAP) c in {50, 30, 20, 10, 5}: each score x becomes "
@@ -175,7 +179,7 @@ inline constexpr FamilyInfo kFamilies[] = {
      "only in tanh's last bits; the masks (causal, key padding, bias with fully masked rows) hide keys, so "
      "a cap applied after the mask, which turns a masked −inf into −c and revives the key, shows as a "
      "leak. Only kernels declaring the feature get these cases.",
-     "Gemma 2 (Gemma Team 2024, §2: attention logits capped at 50; from memory)", Level::core},
+     "Gemma 2 (Gemma Team 2024, §2: attention logits capped at 50; from memory)", Level::core, "softcap"},
     {"dominant_sinks", "one sink logit per head in the normaliser, up to e^8 times a key's weight",
      "Gaussian Q, K, V and one sink logit σ_h per query head (kernel_abi.h version 2, HR_FEATURE_SINKS) "
      "that adds exp(σ_h) to every row's normaliser with no value row. σ_h = level + 0.5·N(0,1), level "
@@ -186,7 +190,7 @@ inline constexpr FamilyInfo kFamilies[] = {
      "shift, is the typical defect. Only kernels declaring the feature get these cases.",
      "Xiao et al. 2024, Efficient Streaming Language Models with Attention Sinks, §3 (a learnable sink "
      "logit in the softmax denominator; from memory)",
-     Level::core},
+     Level::core, "sinks"},
 };
 
 /// Returns: every family, in the order above.

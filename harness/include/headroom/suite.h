@@ -80,6 +80,8 @@ struct SuiteCoverage {
   std::vector<std::int64_t> group_sizes; ///< Hq / Hkv, ascending
   std::vector<std::string> masks;        ///< mask kinds, in problem.h's order
   std::vector<std::string> families;     ///< in families.h's order
+  /// Cases per kernel_abi.h version-2 feature ("window", "softcap", "sinks"), in families.h's order.
+  std::vector<std::pair<std::string, std::size_t>> features;
 };
 
 /// Returns: the coverage of `requests`. Throws: InputError as make_case.
