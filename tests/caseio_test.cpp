@@ -429,7 +429,7 @@ TEST(CaseFolder, RefusesBadManifests) {
       {[](json& j) { j["mask"]["window"] = {{"left", -2}, {"right", -1}}; }, "field \"mask.window\"", "sides must be"},
       {[](json& j) { j["mask"]["window"] = {{"left", 3}}; }, "field \"mask.window.right\"", "missing field"},
       {[](json& j) { j["mask"]["window"] = {{"left", 3}, {"right", 0}, {"up", 1}}; }, "field \"mask.window.up\"", "unknown key"},
-      {[](json& j) { j["softcap_hex"] = "30"; }, "field \"softcap_hex\"", "not a finite hex float"},
+      {[](json& j) { j["softcap_hex"] = "30"; }, "field \"softcap_hex\"", "is not a hex float"},
       {[](json& j) { j["softcap_hex"] = "-0x1p+4"; }, "field \"softcap_hex\"", "must be > 0"},
       {[](json& j) { j["softcap_hex"] = "0x1.0000001p+4"; }, "field \"softcap_hex\"", "not a float32 value"},
       {[](json& j) { j["sinks_hex"] = json::array(); }, "field \"sinks_hex\"", "non-empty array"},

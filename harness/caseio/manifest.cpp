@@ -110,8 +110,9 @@ float read_hex_float32(const json& v, const std::string& field, const Reader& r)
   char* end = nullptr;
   const double h = std::strtod(hex.c_str(), &end);
   const bool is_hex = hex.find("0x") != std::string::npos || hex.find("0X") != std::string::npos;
-  if (hex.empty() || end != hex.c_str() + hex.size() || !is_hex || !std::isfinite(h))
-    r.fail(field, "\"" + hex + "\" is not a finite hex float", "write it as C's printf(\"%a\") does, e.g. \"0x1.9p+5\"");
+  if (hex.empty() || end != hex.c_str() + hex.size() || !is_hex)
+    r.fail(field, "\"" + hex + "\" is not a hex float", "write it as C's printf(\"%a\") does, e.g. \"0x1.9p+5\"");
+  if (!std::isfinite(h)) r.fail(field, hex + " is not finite", "give a finite float32 value");
   const auto f = static_cast<float>(h);
   if (static_cast<double>(f) != h)
     r.fail(field, hex + " is not a float32 value (it has more than 24 significant bits or is out of range)",
