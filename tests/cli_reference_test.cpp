@@ -65,6 +65,13 @@ TEST(CliReference, WritesTheLibraryResultBitForBit) {
   EXPECT_EQ(run("reference --case " + (dir / "missing").string() + " --out " + (dir / "x").string()), 2);
   EXPECT_EQ(run("reference --case " + (dir / "case").string() + " --out " + (dir / "x").string() + " --method exact"), 2);
   EXPECT_EQ(run("reference --out " + (dir / "x").string()), 2);
+  // Targets the reference cannot certify, or that claim nothing, are usage errors.
+  for (const char* target : {"5000", "0", "-52", "-1001"})
+    EXPECT_EQ(run("reference --case " + (dir / "case").string() + " --out " + (dir / "x").string() + " --target-log2 " +
+                  target),
+              2)
+        << target;
+  EXPECT_EQ(run("reference --case " + (dir / "case").string() + " --out " + (dir / "t").string() + " --target-log2 -1000"), 0);
   fs::remove_all(dir);
 }
 
