@@ -7,6 +7,11 @@
 // m + log Σ_j p_j. Everything in float32, sums in key order. Masked keys are
 // never read, so whatever lies in masked K/V rows cannot reach the output.
 // A row with no visible key gets zeros and log-sum-exp −inf.
+//
+// Kept weight by weight on purpose, as users first write it: on a long row
+// dominated by one key the running sum stagnates (weights below half an ulp of
+// l ≈ 1 round away) and the default budget fails it from Tk ≈ 4096 on the
+// attention_sink family (docs/reports.md, "Error growth"; tests/cli_growth_test.cpp).
 #include <cmath>
 #include <vector>
 

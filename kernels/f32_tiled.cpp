@@ -10,6 +10,14 @@
 // every row of the query tile (causal, key padding) are skipped, as
 // FlashAttention does. Masked keys are never used; fully masked rows get zeros
 // and log-sum-exp −inf. Registered with t = 16 and t = 64.
+//
+// Each tile's row sum and P̃·V are formed on their own and then added to the
+// running l and acc, as the algorithm states. Adding every weight straight to
+// l instead stagnates where one key dominates a long row: once l ≈ 1, weights
+// below half its ulp (2^-24) round away, every one in the same direction.
+// Measured with `headroom qualify --family attention_sink --shape
+// 1,4,1,4,4096,64,64`: per-key sums gave relative RMSE 4.1e-5 (limit 3.0e-5,
+// fail; 4.2× over at Tk 16384), tile sums pass.
 #include <cmath>
 #include <vector>
 
@@ -25,7 +33,7 @@ std::int32_t run(const hr_core_problem* p) {
   if (!formats_are(*p, HR_FORMAT_FLOAT32, HR_FORMAT_FLOAT32) || !mask.known()) return HR_UNSUPPORTED;
   const std::int64_t dk = p->key_dim, dv = p->value_dim;
   std::vector<float> q(kTile * dk), k(kTile * dk), v(kTile * dv), s(kTile * kTile);
-  std::vector<float> m(kTile), l(kTile), acc(kTile * dv);
+  std::vector<float> m(kTile), l(kTile), acc(kTile * dv), tile_acc(dv);
   for (std::int64_t b = 0; b < p->batch; ++b) {
     for (std::int64_t h = 0; h < p->q_heads; ++h) {
       const std::int64_t g = kv_head(h, p->q_heads, p->kv_heads);
@@ -58,15 +66,20 @@ std::int32_t run(const hr_core_problem* p) {
             const float m_new = std::max(m[r], tile_max);
             if (!(m_new > kNegInf)) continue;            // nothing visible to this row yet
             const float alpha = std::exp(m[r] - m_new);  // 0 on the first visible tile
-            float* a = &acc[r * dv];
-            l[r] *= alpha;
-            for (std::int64_t d = 0; d < dv; ++d) a[d] *= alpha;
+            // The tile's own row sum and P̃·V first, then folded in (Dao et al. 2022,
+            // alg. 1, lines 10-12): the running l never takes the tile's small terms one
+            // by one, so a row dominated by one key keeps them (see the file comment).
+            float tile_l = 0.0f;
+            std::fill(tile_acc.begin(), tile_acc.end(), 0.0f);
             for (std::int64_t c = 0; c < cols; ++c) {
               const float e = std::exp(s[r * kTile + c] - m_new);
               if (e == 0.0f) continue;  // masked: its V row, possibly garbage, is not used
-              l[r] += e;
-              for (std::int64_t d = 0; d < dv; ++d) a[d] += e * v[c * dv + d];
+              tile_l += e;
+              for (std::int64_t d = 0; d < dv; ++d) tile_acc[d] += e * v[c * dv + d];
             }
+            float* a = &acc[r * dv];
+            l[r] = l[r] * alpha + tile_l;
+            for (std::int64_t d = 0; d < dv; ++d) a[d] = a[d] * alpha + tile_acc[d];
             m[r] = m_new;
           }
         }

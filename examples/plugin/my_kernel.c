@@ -3,7 +3,9 @@
  * For each query row: scores z_j = scale * (q . k_j) + bias_j over the visible
  * keys, m = max_j z_j, p_j = exp(z_j - m), o = (sum_j p_j v_j) / (sum_j p_j),
  * lse = m + log(sum_j p_j) (Vaswani et al. 2017, eq. 1, with the usual max
- * shift so exp cannot overflow). Everything in float32, in key order.
+ * shift so exp cannot overflow). Everything in float32, in key order, which
+ * headroom fails on long rows dominated by one key (the sums stagnate; see
+ * docs/reports.md, "Error growth": sum a tile of keys at a time to avoid it).
  * Strides are honoured, so both layouts are accepted. A row with no visible
  * key gets zeros and lse = -inf, as declared.
  *
