@@ -72,7 +72,7 @@ TEST(Usage, UnknownOptionSuggestsTheNearestOfItsCommand) {
 
 TEST(Usage, BadValuesAndMissingArgumentsNameTheOptionAndTheFix) {
   const auto dir = fresh_dir("values");
-  expect_usage_error(run("qualify --kernel f32_textbook --time-limit 0", dir), {"--time-limit", "seconds > 0"});
+  expect_usage_error(run("qualify --kernel f32_textbook --time-limit 0", dir), {"--time-limit", "\"0\" is not a number above 0"});
   expect_usage_error(run("replay --kernel f32_textbook", dir), {"headroom replay", "CASE_DIR", "case folders"});
   expect_usage_error(run("case make --family gaussian --seed 1", dir), {"--out is required", "case folder"});
 }

@@ -21,8 +21,6 @@ using generate_internal::FamilyImpl;
 using generate_internal::Recipe;
 
 constexpr const char* kCli = "command line";
-// Per-tensor element limit for requests: 2^26 doubles is 512 MiB.
-constexpr std::int64_t kMaxTensorElements = std::int64_t{1} << 26;
 
 const FamilyImpl& impl_of(std::size_t family) { return generate_internal::family_impls()[family]; }
 

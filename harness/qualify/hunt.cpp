@@ -51,7 +51,7 @@ std::vector<CaseRequest> hunt_requests(const HuntOptions& opt, Level level) {
       throw InputError("command line", "--family " + n, "makes cases of the other level than the kernel computes",
                        "choose families of the kernel's level (see `headroom case families`)");
   }
-  if (opt.max_kv_len != 0 && (opt.max_kv_len < 16 || opt.max_kv_len > (std::int64_t{1} << 17)))
+  if (opt.max_kv_len != 0 && (opt.max_kv_len < kMinHuntKvLen || opt.max_kv_len > kMaxHuntKvLen))
     throw InputError("command line", "--max-kv-len " + std::to_string(opt.max_kv_len), "is outside 16 to 131072",
                      "give a largest Tk from 16 to 131072 (e.g. 16384), or leave it out for small shapes only");
   std::vector<CaseRequest> reqs;

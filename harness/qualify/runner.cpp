@@ -55,7 +55,7 @@ std::string Shard::text() const { return std::to_string(index + 1) + "/" + std::
 Shard parse_shard(const std::string& text) {
   const auto slash = text.find('/');
   auto bad = [&] {
-    return InputError("command line", "--shard " + text, "is not i/n with 1 ≤ i ≤ n",
+    return InputError("command line", "--shard " + quote_input(text, 40), "is not i/n with 1 ≤ i ≤ n ≤ 100000",
                       "write e.g. --shard 2/3 for the second of three shards");
   };
   if (slash == std::string::npos) throw bad();
@@ -63,7 +63,7 @@ Shard parse_shard(const std::string& text) {
   const long i = std::strtol(text.c_str(), &end, 10);
   if (end != text.c_str() + slash) throw bad();
   const long n = std::strtol(text.c_str() + slash + 1, &end, 10);
-  if (*end != '\0' || n < 1 || i < 1 || i > n || n > 100000) throw bad();
+  if (*end != '\0' || n < 1 || i < 1 || i > n || n > kMaxShards) throw bad();
   return {static_cast<int>(i - 1), static_cast<int>(n)};
 }
 

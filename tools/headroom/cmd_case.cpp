@@ -6,6 +6,7 @@
 #include <string>
 
 #include "command.h"
+#include "usage_error.h"
 #include "headroom/case_folder.h"
 #include "headroom/families.h"
 #include "headroom/generate.h"
@@ -90,14 +91,16 @@ const CommandRegistration reg{
       auto flags = std::make_shared<MakeFlags>();
       auto* make = cmd->add_subcommand("make", "Write the case of (family, seed, size) as a case folder");
       make->add_option("--family", flags->family, "generator family (see `headroom case families`)")->required();
-      make->add_option("--seed", flags->seed, "RapidCheck seed")->required();
-      make->add_option("--size", flags->size, "generation size, 0..1000 (default 100, RapidCheck's nominal size)");
+      make->add_option("--seed", flags->seed, "RapidCheck seed")->required()->check(seed_value("--seed"));
+      make->add_option("--size", flags->size, "generation size, 0..1000 (default 100, RapidCheck's nominal size)")
+          ->check(integer_in("--size", 0, kMaxSize, "100", "100 is RapidCheck's nominal size"));
       make->add_option("--shape", flags->shape, "fix the shape: B,Hq,Hkv,Tq,Tk,Dk,Dv");
       make->add_option("--mask", flags->mask,
                        "force the mask kind: none, causal_top_left, causal_bottom_right, key_padding, dense, bias");
       make->add_option("--level", flags->level, "core or block (must match the family)");
       auto* model_dim = make->add_option("--model-dim", flags->model_dim,
-                                         "block level: the model dim Dm (default Hq·Dk with --shape)");
+                                         "block level: the model dim Dm (default Hq·Dk with --shape)")
+                            ->check(integer_in("--model-dim", 1, kMaxTensorElements, "512"));
       make->add_option("--shrink-path", flags->shrink_path,
                        "follow these shrink indices, e.g. 3,0,2 (as recorded in provenance)");
       make->add_option("--out", flags->out, "the case folder to write")->required();

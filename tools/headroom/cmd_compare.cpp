@@ -5,6 +5,7 @@
 #include "command.h"
 #include "headroom/compare.h"
 #include "run_common.h"
+#include "usage_error.h"
 
 namespace headroom::cli {
 namespace {
@@ -23,7 +24,8 @@ const CommandRegistration reg{"compare", 60, [](CLI::App& app) {
   cmd->add_option("NEW", flags->next, "the new record")->required();
   cmd->add_option("--tolerance", flags->tolerance,
                   "relative growth of an error figure still accepted (default 0.10 = 10 %); faults never")
-      ->capture_default_str();
+      ->capture_default_str()
+      ->check(number_in("--tolerance", 0, false, 1000, "0.1", "0 accepts no growth at all"));
   cmd->add_option("--json", flags->json, "write the comparison as JSON here");
   cmd->add_option("--markdown", flags->markdown, "write the comparison as Markdown here (for a pull request)");
   cmd->callback([flags] {

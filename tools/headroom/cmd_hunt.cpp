@@ -4,6 +4,7 @@
 #include "command.h"
 #include "headroom/hunt.h"
 #include "run_common.h"
+#include "usage_error.h"
 
 namespace headroom::cli {
 namespace {
@@ -44,14 +45,19 @@ const CommandRegistration reg{"hunt", 30, [](CLI::App& app) {
   auto flags = std::make_shared<HuntFlags>();
   auto* cmd = app.add_subcommand("hunt", "Search for failing cases with random generation; shrink and save each failure");
   add_run_flags(cmd, flags->run);
-  cmd->add_option("--cases", flags->cases, "cases to generate")->check(CLI::Range(1, 1000000));
-  cmd->add_option("--seed", flags->seed, "first seed (case i uses seed + i)");
+  cmd->add_option("--cases", flags->cases, "cases to generate")->check(integer_in("--cases", 1, 1000000, "100"));
+  cmd->add_option("--seed", flags->seed, "first seed (case i uses seed + i)")
+      ->check(seed_value("--seed"));
   cmd->add_option("--save", flags->save, "save each shrunk failing case as a case folder here");
   cmd->add_option("--family", flags->families, "only these families (repeatable); default all of the kernel's level");
-  cmd->add_option("--max-shrink-steps", flags->max_shrink_steps, "shrinks judged per failure")->check(CLI::Range(0, 100000));
+  cmd->add_option("--max-shrink-steps", flags->max_shrink_steps, "shrinks judged per failure")->check(integer_in("--max-shrink-steps", 0, 100000, "200", "0 saves failures unshrunk"));
   cmd->add_option("--max-kv-len", flags->max_kv_len,
                   "also draw production shapes (head dims 64-256, groups to 16, batches to 8, lengths tile multiples "
-                  "as often as not) with Tk up to this, for half the cases (16 to 131072; default: small shapes only)");
+                  "as often as not) with Tk up to this, for half the cases (16 to 131072; default: small shapes only)")
+      ->check(CLI::Validator(
+          [range = integer_in("--max-kv-len", kMinHuntKvLen, kMaxHuntKvLen, "16384", "or 0 for small shapes only")](
+              std::string& text) { return text == "0" ? std::string() : range(text); },
+          "INT"));
   cmd->callback([flags] { exit_with(hunt_main(*flags)); });
 }};
 

@@ -22,6 +22,7 @@
 #include <system_error>
 
 #include "command.h"
+#include "usage_error.h"
 #include "headroom/case_folder.h"
 #include "headroom/input_error.h"
 #include "headroom/npy.h"
@@ -109,14 +110,15 @@ const CommandRegistration reg{"reference", 40, [](CLI::App& app) {
   auto args = std::make_shared<ReferenceArgs>();
   cmd->add_option("--case", args->case_dir, "case folder (manifest.json and .npy tensors)")->required();
   cmd->add_option("--out", args->out_dir, "output folder for out.npy, bound.npy, magnitude.npy, lse*.npy")->required();
-  cmd->add_option("--threads", args->threads, "worker threads (0: one per hardware thread); results do not depend on it");
+  cmd->add_option("--threads", args->threads, "worker threads (0: one per hardware thread; at most 1024); results do not depend on it")
+      ->check(integer_in("--threads", 0, kMaxThreads, "2", "0 uses one thread per core"));
   // -53: a weaker target claims less than the float64 values written already
   // carry. -1000: bounds bottom out near 2^-1068 relative (the subnormal floor
   // of the doubles they are written in); measured 2026-12-03 on a small
   // gaussian case: -1000 certified, -1070 and -1100 not.
   cmd->add_option("--target-log2", args->target_log2,
                   "certified bound target, relative to the magnitude (default -80; -1000 to -53)")
-      ->check(CLI::Range(-1000, -53));
+      ->check(integer_in("--target-log2", -1000, -53, "-80"));
   cmd->add_option("--method", args->method, "fast (default: double-double, escalating to multiprecision) or multiprecision");
   cmd->add_option("--backend", args->backend, "multiprecision arithmetic: mpfr (default) or cpp_bin_float (independent cross-check)");
   cmd->callback([args] { exit_with(reference_main(*args)); });

@@ -12,6 +12,7 @@
 #include "command.h"
 #include "usage_error.h"
 #include "headroom/bundled_registry.h"
+#include "headroom/faults.h"
 #include "headroom/input_error.h"
 #include "headroom/judge_backward.h"
 #include "headroom/progress_bar.h"
@@ -19,6 +20,28 @@
 #include "headroom/terminal_report.h"
 
 namespace headroom::cli {
+
+namespace {
+
+// --shard as parse_shard reads it, refused by the parser with its range and fix.
+CLI::Validator shard_text() {
+  return CLI::Validator(
+      [](std::string& text) -> std::string {
+        const bool digits_only = text.find_first_not_of("0123456789/") == std::string::npos;  // no sign, no space
+        try {
+          if (digits_only) {
+            parse_shard(text);
+            return {};
+          }
+        } catch (const InputError&) {
+        }
+        return quote_input(text, 40) + " is not i/n with 1 ≤ i ≤ n ≤ " + std::to_string(kMaxShards) +
+               " (fix: write e.g. --shard 2/3 for the second of three shards)";
+      },
+      "i/n");
+}
+
+}  // namespace
 
 void add_run_flags(CLI::App* cmd, RunFlags& f) {
   cmd->add_option("--kernel", f.kernel, "bundled kernel name (see `headroom kernels`) or path to a plug-in .so");
@@ -28,15 +51,17 @@ void add_run_flags(CLI::App* cmd, RunFlags& f) {
   cmd->add_option("--markdown", f.markdown, "write a review report in Markdown here");
   cmd->add_option("--html", f.html, "write a self-contained HTML report here");
   cmd->add_option("--junit", f.junit, "write JUnit XML here (one test per family x format)");
-  cmd->add_option("--shard", f.shard, "run only slice i of n (1-based), e.g. 2/4; join with `headroom merge`");
+  cmd->add_option("--shard", f.shard, "run only slice i of n (1-based), e.g. 2/4; join with `headroom merge`")
+      ->check(shard_text());
   cmd->add_flag("--resume", f.resume, "continue an interrupted run from its journal");
   cmd->add_option("--journal", f.journal, "journal of finished cases (default: <json>.journal)");
   cmd->add_option("--time-limit", f.time_limit, "seconds one kernel call may take before it is a timeout")
-      ->check(positive_seconds());
+      ->check(seconds_in("--time-limit"));
   cmd->add_flag("--no-isolation", f.no_isolation, "run the kernel in-process (faster; a crash ends headroom)");
-  cmd->add_option("--threads", f.threads, "reference threads (default: all cores)");
+  cmd->add_option("--threads", f.threads, "reference threads (default 0: one per core; at most 1024)")
+      ->check(integer_in("--threads", 0, kMaxThreads, "2", "0 uses one thread per core"));
   cmd->add_option("--determinism-runs", f.determinism_runs, "identical runs compared for non-determinism (>= 2 checks)")
-      ->check(CLI::Range(1, 100));
+      ->check(integer_in("--determinism-runs", 1, 100, "3", "1 runs the kernel once, checking nothing"));
   cmd->add_flag("--quiet", f.quiet, "print only the verdict line");
   cmd->add_flag("--strict-budget", f.strict_budget,
                 "a budget section naming no kernel of this run is an error, not a warning");

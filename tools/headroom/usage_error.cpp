@@ -1,9 +1,13 @@
 // headroom — usage errors as one line naming the option and the fix (usage_error.h).
 #include "usage_error.h"
 
+#include <cctype>
+#include <charconv>
 #include <cmath>
+#include <cstdio>
 #include <cstdlib>
 
+#include "headroom/input_error.h"
 #include "headroom/nearest_name.h"
 
 namespace headroom::cli {
@@ -115,19 +119,93 @@ std::string usage_error(CLI::App& app, const std::vector<std::string>& args, con
       return where + ": no command given (fix: use one of " + list + "; `" + where + " --help` says what each does)";
     }
   }
-  return where + ": " + std::string(e.what()) + " (fix: " + help_hint(chain) + ")";
+  const std::string what = e.what();
+  // A value validator (integer_in, number_in) has named its own fix.
+  if (dynamic_cast<const CLI::ValidationError*>(&e) != nullptr && what.find(" (fix: ") != std::string::npos)
+    return where + ": " + what;
+  return where + ": " + what + " (fix: " + help_hint(chain) + ")";
 }
 
-CLI::Validator positive_seconds() {
+namespace {
+
+// "from 0 to 1024": the range as the messages say it.
+std::string range_text(double lo, bool lo_open, double hi) {
+  auto num = [](double v) {
+    char buf[32];
+    std::snprintf(buf, sizeof buf, "%.15g", v);
+    return std::string(buf);
+  };
+  return lo_open ? "above " + num(lo) + " and at most " + num(hi) : "from " + num(lo) + " to " + num(hi);
+}
+
+std::string value_fix(const std::string& name, const std::string& example, const std::string& note) {
+  return " (fix: write e.g. " + name + " " + example + (note.empty() ? "" : "; " + note) + ")";
+}
+
+}  // namespace
+
+namespace {
+
+// The integer `text` as written, strictly: decimal, no spaces, no '+', no
+// exponent, within [lo, hi] (hi read as unsigned when `hi_unsigned`).
+bool integer_within(const std::string& text, std::int64_t lo, std::uint64_t hi, bool hi_unsigned) {
+  const char* first = text.data();
+  const char* last = first + text.size();
+  if (text.empty()) return false;
+  if (text[0] == '-') {
+    std::int64_t v = 0;
+    const auto [end, ec] = std::from_chars(first, last, v);
+    return ec == std::errc{} && end == last && v >= lo &&
+           (hi_unsigned || v <= static_cast<std::int64_t>(hi));
+  }
+  std::uint64_t v = 0;
+  const auto [end, ec] = std::from_chars(first, last, v);
+  if (ec != std::errc{} || end != last) return false;
+  if (lo > 0 && v < static_cast<std::uint64_t>(lo)) return false;
+  return hi_unsigned ? v <= hi : static_cast<std::int64_t>(hi) >= 0 && v <= hi;
+}
+
+CLI::Validator integer_validator(const std::string& name, std::int64_t lo, std::uint64_t hi, bool hi_unsigned,
+                                 const std::string& range, const std::string& example, const std::string& note) {
   return CLI::Validator(
-      [](std::string& text) -> std::string {
+      [=](std::string& text) -> std::string {
+        // A value CLI11 would wrap (-1 as unsigned) or round never reaches the option.
+        if (integer_within(text, lo, hi, hi_unsigned)) return {};
+        return quote_input(text, 40) + " is not " + range + value_fix(name, example, note);
+      },
+      "INT");
+}
+
+}  // namespace
+
+CLI::Validator integer_in(const std::string& name, std::int64_t lo, std::int64_t hi, const std::string& example,
+                          const std::string& note) {
+  return integer_validator(name, lo, static_cast<std::uint64_t>(hi), false,
+                           "an integer " + range_text(static_cast<double>(lo), false, static_cast<double>(hi)), example,
+                           note);
+}
+
+CLI::Validator seed_value(const std::string& name) {
+  return integer_validator(name, 0, UINT64_MAX, true, "an integer from 0 to 18446744073709551615 (2^64 - 1)", "1", "");
+}
+
+CLI::Validator number_in(const std::string& name, double lo, bool lo_open, double hi, const std::string& example,
+                         const std::string& note) {
+  const std::string range = "a number " + range_text(lo, lo_open, hi);
+  return CLI::Validator(
+      [=](std::string& text) -> std::string {
         char* end = nullptr;
         const double v = std::strtod(text.c_str(), &end);
-        if (end == text.c_str() || *end != '\0' || !(v > 0) || !std::isfinite(v))
-          return "\"" + text + "\" is not a number of seconds > 0; write e.g. 20";
-        return {};
+        const bool ok = !text.empty() && end == text.c_str() + text.size() && std::isfinite(v) &&
+                        (lo_open ? v > lo : v >= lo) && v <= hi && !std::isspace(static_cast<unsigned char>(text[0]));
+        if (ok) return {};
+        return quote_input(text, 40) + " is not " + range + value_fix(name, example, note);
       },
-      "SECONDS > 0");
+      "NUMBER");
+}
+
+CLI::Validator seconds_in(const std::string& name) {
+  return number_in(name, 0, true, kMaxSeconds, "20", "a number of seconds");
 }
 
 }  // namespace headroom::cli

@@ -6,6 +6,7 @@
 // parse failure into "headroom <command>: <what> (fix: <what to do>)".
 #pragma once
 
+#include <cstdint>
 #include <optional>
 #include <string>
 #include <vector>
@@ -25,8 +26,32 @@ std::optional<std::string> unknown_command(CLI::App& app, const std::vector<std:
 /// with the help command that lists the options.
 std::string usage_error(CLI::App& app, const std::vector<std::string>& args, const CLI::ParseError& e);
 
-/// Returns: a validator for a number of seconds > 0 (and finite), whose
-/// message names the fix.
-CLI::Validator positive_seconds();
+/// Returns: a validator for option `name` whose value must be a decimal
+/// integer in [lo, hi]. Its message names the value, the range and the fix
+/// ("write e.g. <name> <example>", then `note` when given), so a value the
+/// program cannot honour is refused by the parser, before any work.
+CLI::Validator integer_in(const std::string& name, std::int64_t lo, std::int64_t hi, const std::string& example,
+                          const std::string& note = "");
+
+/// Returns: the validator of a seed: a decimal integer from 0 to 2^64 − 1.
+CLI::Validator seed_value(const std::string& name);
+
+/// The most reference threads an option may ask for: worker threads are
+/// started up to this many at once (one per row block), and thousands would
+/// meet the per-user process limit rather than run faster.
+inline constexpr std::int64_t kMaxThreads = 1024;
+
+/// Returns: a validator for option `name` whose value must be a finite number
+/// x with lo < x ≤ hi (lo_open) or lo ≤ x ≤ hi; message as integer_in's.
+CLI::Validator number_in(const std::string& name, double lo, bool lo_open, double hi, const std::string& example,
+                         const std::string& note = "");
+
+/// Returns: the validator of a number of seconds: 0 < S ≤ kMaxSeconds.
+CLI::Validator seconds_in(const std::string& name);
+
+/// The longest time limit the run can honour: past 10^7 s the clocks' deadlines
+/// are treated as "no limit" (process.cpp, program_session.cpp), so 10^6 s
+/// (11.6 days) is the ceiling an option may ask for.
+inline constexpr double kMaxSeconds = 1e6;
 
 }  // namespace headroom::cli

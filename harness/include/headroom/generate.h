@@ -28,6 +28,8 @@ namespace headroom {
 /// RapidCheck's nominal size (rc::kNominalSize): at this size tokens stay ≤ 64.
 inline constexpr int kDefaultSize = 100;
 inline constexpr int kMaxSize = 1000;
+/// Per-tensor element limit for requests: 2^26 doubles is 512 MiB.
+inline constexpr std::int64_t kMaxTensorElements = std::int64_t{1} << 26;
 
 struct CaseRequest {
   std::string family;  ///< a name from families.h

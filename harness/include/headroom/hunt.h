@@ -22,6 +22,11 @@
 
 namespace headroom {
 
+/// The range of HuntOptions::max_kv_len when not 0, the lengths the
+/// production-shape draw spans (draw_production_shape: Tk from 16 up).
+inline constexpr std::int64_t kMinHuntKvLen = 16;
+inline constexpr std::int64_t kMaxHuntKvLen = std::int64_t{1} << 17;
+
 struct HuntOptions {
   RunnerOptions runner;                ///< judging, budget, shard, journal; its save_failures is unused
   int cases = 100;

@@ -32,7 +32,11 @@ struct Shard {
   std::string text() const;
 };
 
-/// Returns: the shard written "i/n" (1 ≤ i ≤ n). Throws InputError(place "--shard") otherwise.
+/// The most shards a run may be split into.
+inline constexpr int kMaxShards = 100000;
+
+/// Returns: the shard written "i/n" (1 ≤ i ≤ n ≤ kMaxShards, decimal). Throws
+/// InputError(place "--shard") otherwise.
 Shard parse_shard(const std::string& text);
 
 /// Returns: whether case `name` belongs to shard `s`: a stable hash of the name
