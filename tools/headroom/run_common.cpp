@@ -181,7 +181,11 @@ RunSetup open_run(const RunFlags& f, const std::string& command, const std::stri
 int finish_run(RunRecord& record, const RunFlags& f, const RunSetup& setup) {
   record.budget = setup.budget.source;
   record.warnings = setup.warnings;
-  const Limit& growth = setup.budget.for_kernel(setup.kernel->declaration()).max_growth_exponent;
+  const KernelBudget applied = setup.budget.for_kernel(setup.kernel->declaration());
+  // The classes the verdict tolerated, from whichever section set them ([format.*] or [kernel.*]).
+  record.tolerated_faults.clear();
+  for (FaultClass c : applied.tolerated_faults) record.tolerated_faults.emplace_back(fault_class_name(c));
+  const Limit& growth = applied.max_growth_exponent;
   if (growth.kind == Limit::Kind::fixed) {
     record.growth_limit = growth.value;
     record.growth_limit_origin = growth.origin;
