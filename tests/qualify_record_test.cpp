@@ -4,6 +4,7 @@
 #include <cmath>
 #include <filesystem>
 #include <fstream>
+#include <iterator>
 
 #include "headroom/input_error.h"
 #include "headroom/journal.h"
@@ -164,6 +165,39 @@ TEST(Journal, ResumeKeepsFinishedCasesAndDropsATornLastLine) {
   again.append(sample_case("c", true));
   Journal third(path, "qualify k quick 1/1", true);
   EXPECT_EQ(third.size(), 3u);
+}
+
+// A kill can cut a write just before its '\n': the case is whole and kept, and
+// the cases appended after it must still start lines of their own, through
+// a second and a third resume.
+TEST(Journal, ACaseCutBeforeItsNewlineIsKeptAndLaterAppendsStayReadable) {
+  const auto dir = fresh_dir("journal_newline");
+  const auto path = dir / "run.journal";
+  {
+    Journal j(path, "qualify k quick 1/1", false);
+    j.append(sample_case("a", true));
+  }
+  std::string text;
+  {
+    std::ifstream in(path, std::ios::binary);
+    text.assign(std::istreambuf_iterator<char>(in), std::istreambuf_iterator<char>());
+  }
+  ASSERT_EQ(text.back(), '\n');
+  text.pop_back();
+  std::ofstream(path, std::ios::trunc) << text;
+  {
+    Journal again(path, "qualify k quick 1/1", true);
+    EXPECT_EQ(again.size(), 1u);
+    again.append(sample_case("b", true));
+  }
+  {
+    Journal third(path, "qualify k quick 1/1", true);
+    EXPECT_EQ(third.size(), 2u);
+    third.append(sample_case("c", true));
+  }
+  Journal fourth(path, "qualify k quick 1/1", true);
+  EXPECT_EQ(fourth.size(), 3u);
+  EXPECT_NE(fourth.find("b"), nullptr);
 }
 
 TEST(Journal, RefusesAnotherRunsJournal) {

@@ -18,11 +18,11 @@ namespace headroom {
 namespace {
 
 // The journal's lines as std::getline would split them: on '\n', with no
-// empty last line for a file that ends in one.
-std::vector<std::string> read_lines(const std::filesystem::path& path) {
+// empty last line for a file that ends in one. `text` receives the whole file.
+std::vector<std::string> read_lines(const std::filesystem::path& path, std::string& text) {
   static constexpr InputKind kJournalFile{"journal", kRecordFile.max_bytes,
                                           "give the journal of a headroom run, or remove it to start afresh"};
-  const std::string text = read_input_file(path, kJournalFile);
+  text = read_input_file(path, kJournalFile);
   std::vector<std::string> lines;
   for (std::size_t start = 0; start < text.size();) {
     const std::size_t end = std::min(text.find('\n', start), text.size());
@@ -51,13 +51,15 @@ Journal::Journal(std::filesystem::path path, const std::string& identity, bool r
   const nlohmann::json id_line = {{"journal", identity}};
   bool fresh = true;
   if (resume && std::filesystem::exists(path_)) {
-    const auto lines = read_lines(path_);
+    std::string text;
+    const auto lines = read_lines(path_, text);
     if (!lines.empty()) {
       fresh = false;
       const nlohmann::json head = parse_json_input(lines[0], file, "remove the journal to start afresh", 1);
       if (head != id_line)
         throw InputError(file, "line 1", "belongs to another run (" + quote_input(head.dump()) + ")",
                          "resume with the same command and options, or remove the journal to start afresh");
+      std::string kept = lines[0] + '\n';
       for (std::size_t i = 1; i < lines.size(); ++i) {
         const std::string place = "line " + std::to_string(i + 1);
         nlohmann::json line;
@@ -73,14 +75,15 @@ Journal::Journal(std::filesystem::path path, const std::string& identity, bool r
           throw InputError(file, place + " field \"name\"", "case " + quote_input(c.name) + " is journalled twice",
                            "remove the journal to start afresh");
         done_[c.name] = std::move(c);
+        kept += lines[i] + '\n';
       }
-      if (!lines.back().empty() && done_.size() + 1 < lines.size()) {
-        // Rewrite without the torn last line so appends start on a clean line;
-        // atomically, so a full disk cannot cost the cases already journalled.
-        std::string kept = lines[0] + '\n';
-        for (std::size_t i = 1; i + 1 < lines.size(); ++i) kept += lines[i] + '\n';
-        write_file_atomically(path_, kept);
-      }
+      // Appends must start on a clean line. A kill can cut the last write
+      // anywhere: inside the line (dropped above), or just before its '\n',
+      // which leaves a whole case that the next append would be glued to, and
+      // the journal unreadable past it. So the file is rewritten as the lines
+      // kept, each ended; atomically, so a full disk cannot cost the cases
+      // already journalled.
+      if (kept != text) write_file_atomically(path_, kept);
     }
   }
   check_writable_target(path_);

@@ -20,6 +20,7 @@
 #include <string_view>
 #include <vector>
 
+#include "fuzz_scratch.h"
 #include "headroom/case_folder.h"
 #include "headroom/input_error.h"
 
@@ -32,9 +33,7 @@ using headroom::Level;
 using headroom::MaskKind;
 using headroom::Tensor;
 
-void check(bool ok) {
-  if (!ok) std::abort();
-}
+using headroom::fuzzing::check;
 
 // Values exact in every source format (small multiples of 1/4).
 Tensor filled(std::vector<std::int64_t> shape, int salt) {
@@ -94,13 +93,8 @@ struct Folders {
   fs::path round_trip;
 };
 
-fs::path make_root() {
-  // tmpfs when there is one: write_case flushes each file to disk.
-  std::string base = fs::exists("/dev/shm") ? "/dev/shm" : fs::temp_directory_path().string();
-  std::string templ = base + "/headroom-fuzz-manifest-XXXXXX";
-  check(mkdtemp(templ.data()) != nullptr);
-  return templ;
-}
+// tmpfs when there is one (write_case flushes each file to disk); removed at exit.
+fs::path make_root() { return headroom::fuzzing::scratch_dir("fuzz-manifest"); }
 
 const Folders& folders() {
   static const Folders f = [] {

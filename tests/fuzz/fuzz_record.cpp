@@ -6,8 +6,6 @@
 // a crash, a sanitizer report, a leak, another exception (a nlohmann::json
 // type_error escaping, say), or an accepted record that does not survive
 // to_json → run_record_from_json unchanged.
-#include <stdlib.h>
-
 #include <cstddef>
 #include <cstdint>
 #include <cstdlib>
@@ -16,6 +14,7 @@
 #include <string>
 #include <string_view>
 
+#include "fuzz_scratch.h"
 #include "headroom/input_error.h"
 #include "headroom/journal.h"
 #include "headroom/record.h"
@@ -24,23 +23,9 @@ namespace {
 
 namespace fs = std::filesystem;
 
-void check(bool ok) {
-  if (!ok) std::abort();
-}
+using headroom::fuzzing::check;
 
-const fs::path& root() {
-  static const fs::path r = [] {
-    std::string base = fs::exists("/dev/shm") ? "/dev/shm" : fs::temp_directory_path().string();
-    std::string templ = base + "/headroom-fuzz-record-XXXXXX";
-    check(mkdtemp(templ.data()) != nullptr);
-    std::atexit([] {
-      std::error_code ec;
-      fs::remove_all(root(), ec);
-    });
-    return fs::path(templ);
-  }();
-  return r;
-}
+const fs::path& root() { return headroom::fuzzing::scratch_dir("fuzz-record"); }
 
 void write(const fs::path& p, std::string_view a, std::string_view b = {}) {
   std::ofstream out(p, std::ios::binary | std::ios::trunc);
