@@ -98,6 +98,12 @@ TEST_F(SpecialFiles, RecordsGivenToCompareAndMerge) {
   EXPECT_FALSE(fs::exists(dir_ / "m.json"));
 }
 
+TEST_F(SpecialFiles, ModelShapesFile) {
+  for (const auto& f : specials())
+    expect_refused("qualify --kernel f32_textbook --shapes {} --json " + (dir_ / "r.json").string(), f,
+                   "not a regular file");
+}
+
 TEST_F(SpecialFiles, JournalResumedOrWritten) {
   for (const auto& f : specials()) {
     // A folder is refused with the other output paths, before the run starts (run_common.cpp).

@@ -9,6 +9,7 @@
 
 #include "headroom/generate.h"
 #include "headroom/input_error.h"
+#include "headroom/input_file.h"
 
 namespace headroom {
 namespace {
@@ -102,9 +103,13 @@ class Reader {
 }  // namespace
 
 std::vector<CoreShape> load_shapes_file(const std::string& path) {
+  // A page of TOML; read bounded, so a FIFO, a device or a folder is refused, never waited on.
+  static constexpr InputKind kShapesFile{"model shapes file", std::uint64_t{1} << 20,
+                                         "give the path of a shapes file (TOML, docs/shapes-format.md)"};
+  const std::string text = read_input_file(path, kShapesFile);
   toml::table root;
   try {
-    root = toml::parse_file(path);
+    root = toml::parse(text, path);
   } catch (const toml::parse_error& e) {
     throw InputError(path, place(e.source()), std::string(e.description()),
                      "fix the TOML syntax (docs/shapes-format.md has an example)");
