@@ -124,16 +124,20 @@ TEST_F(Served, ACrashGetsTheFaultAndTheNextCallARestartedProgram) {
 }
 
 TEST_F(Served, TheTimeLimitIsPerCallAndKillsOnlyTheHangingCall) {
+  // The limit leaves the well-behaved calls room on a loaded machine: the third
+  // call restarts Python and imports NumPy under it (a 1.5 s limit failed 2 of
+  // 5 full CTest runs at a load average of about 10 on the 2-core machine),
+  // while the hang sleeps 60 s, 10 limits.
   const auto start = std::chrono::steady_clock::now();
-  const auto runs = calls("ok,hang,ok", 1.5);
+  const auto runs = calls("ok,hang,ok", 6.0);
   const double took = std::chrono::duration<double>(std::chrono::steady_clock::now() - start).count();
   EXPECT_STATUS(runs[0], RunStatus::ok, "");
-  EXPECT_STATUS(runs[1], RunStatus::timeout, "over the time limit of 1.5 s");
+  EXPECT_STATUS(runs[1], RunStatus::timeout, "over the time limit of 6 s");
   EXPECT_STATUS(runs[2], RunStatus::ok, "");
   const auto pids = starts();
   ASSERT_EQ(pids.size(), 2u);
-  EXPECT_TRUE(ends_within(pids[0], 1.0)) << "the hanging program was not killed";
-  EXPECT_LT(took, 30.0) << "a hang of 60 s was waited out";
+  EXPECT_TRUE(ends_within(pids[0], 5.0)) << "the hanging program was not killed";
+  EXPECT_LT(took, 40.0) << "a hang of 60 s was waited out";
 }
 
 TEST_F(Served, ErrorAndUnsupportedRepliesKeepTheProgram) {
