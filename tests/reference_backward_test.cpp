@@ -204,6 +204,39 @@ TEST(ReferenceBackward, NearOneHotRowsWhereDCancelsStayCertified) {
   EXPECT_TRUE(enclose_same(fast.d_v.out, fast.d_v.bound, mp.d_v.out, mp.d_v.bound));
 }
 
+TEST(ReferenceBackward, AMassiveRowAndAOneHotUpstreamGradientEscalateOnlyWhereTheyMust) {
+  // Query row 0 and key 0 carry a massive activation in channel 0 (Sun et al.
+  // 2024, "Massive Activations in Large Language Models": 10^4× typical), so
+  // row 0's scores are ~10^8 and its weights' exponent uncertainty is far
+  // above 2^-80; dO is one-hot per row (column 0 of dO is 0 throughout). Only
+  // row 0's dQ and key 0's dK, dV, to which that row gives nearly all its
+  // weight, may need multiprecision; every other element, the zero dV column
+  // included, is certified on the fast path (before the per-row charge,
+  // every dK and dV element of the block escalated). The causal mask sends
+  // row 0 to key 0 alone; the other rows have 0 in channel 0, so their
+  // scores stay ordinary.
+  CoreShape s{1, 1, 1, 12, 12, 8, 6};
+  Case c = make_case(s, MaskKind::causal_top_left, 21);
+  c.c.inputs.q.at(0, 0, 0, 0) = 3e4;
+  c.c.inputs.k.at(0, 0, 0, 0) = 3e4;
+  for (std::int64_t i = 1; i < s.q_len; ++i) c.c.inputs.q.at(0, 0, i, 0) = 0.0;  // other rows: ordinary scores
+  std::fill(c.d_o.values.begin(), c.d_o.values.end(), 0.0);
+  for (std::int64_t i = 0; i < s.q_len; ++i) c.d_o.at(0, 0, i, 1 + i % (s.value_dim - 1)) = i % 2 == 0 ? 1.0 : -1.0;
+  const BackwardReference fast = run(c, ReferenceMethod::fast), mp = run(c, ReferenceMethod::multiprecision);
+  EXPECT_TRUE(fast.certified);
+  EXPECT_TRUE(mp.certified);
+  expect_agree(fast.d_q, mp.d_q, "dQ");
+  expect_agree(fast.d_k, mp.d_k, "dK");
+  expect_agree(fast.d_v, mp.d_v, "dV");
+  for (std::int64_t j = 0; j < s.kv_len; ++j) {
+    EXPECT_EQ(fast.d_v.out.at(0, 0, j, 0), 0.0);
+    EXPECT_EQ(fast.d_v.bound.at(0, 0, j, 0), 0.0);
+  }
+  std::printf("escalated %lld of %zu elements\n", static_cast<long long>(fast.stats.escalated_elements),
+              fast.d_q.out.values.size() + fast.d_k.out.values.size() + fast.d_v.out.values.size());
+  EXPECT_LE(fast.stats.escalated_elements, s.key_dim + s.key_dim + s.value_dim);
+}
+
 TEST(ReferenceBackward, ThreadCountChangesNoBit) {
   CoreShape s{2, 4, 2, 5, 7, 4, 3};
   const Case c = make_case(s, MaskKind::causal_top_left, 3);

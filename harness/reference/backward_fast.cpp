@@ -42,6 +42,24 @@
 //        bound(dK_jd) = (τ_max + λ_max·e_acc,j)M_jd + (k_neg,j·ν_max + n_j·2^-1060)·Q_max,d + tiny
 //        bound(dV_jd) = (ρ_max + e_acc,j)(1 + u)M_jd + k_neg,j·π0_max·dO_max,d + tiny
 //      (maxima over the block's rows, e_acc,j with n_j the rows seeing key j).
+//      A row whose τ exceeds kCleanTau (scores so large that the forward's
+//      exponent uncertainty, ρ, is far above u²: massive activations) would
+//      lift τ_max and ρ_max for every key of the block; its own terms are
+//      charged instead, beside the sums: E_jd += RN(τ_i·m_ij)·|Q_id| and
+//      F_jd += RN(ρ_i·P̂_ij,hi)·|dO_id| by fma, so with its clean rows' maxima
+//        bound(dK_jd) gains nonneg_sum_up(E_jd, 2n_j + 2), and
+//        bound(dV_jd) gains (1 + u)·nonneg_sum_up(F_jd, 2n_j + 2)
+//      (each term one rounded product then one fma: 2 operations on its path
+//      besides the sum's; (1 + u) covers |P̂_lo| ≤ u·P̂_hi), which is the
+//      per-row form of the same bound: Σ_i τ_i m_ij|Q_id| ≥ the dirty rows' error.
+//      A column of K (of Q, of dO over the block's rows) that is 0 throughout
+//      makes every term of dQ_id (dK_jd, dV_jd) exactly 0: the sum is exactly 0,
+//      given with bound 0 and magnitude 0 (a one-hot dO has such columns).
+//      Likewise where the accumulated magnitude M is 0 and no negligible key
+//      took part: each term's m·|x| is then 0 or rounded to 0 from below
+//      2^-1074; with μ ≤ every coefficient m (P̂_hi for dV) of the sum and
+//      ξ ≤ every nonzero |x| of its column, μ·ξ ≥ 2^-1073 rules the second
+//      out, so every x of the sum is 0 and it is exactly 0.
 //  (6) Magnitudes: the exact natural magnitudes of reference_backward.h
 //      differ from |s|·M (resp. M) by the relative errors of P̂ (ρ), of the
 //      computed A (γ_Dv, γ_2n) and of the sums (γ_2n): κ_mag = 3ρ + 3γ_Dv +
@@ -71,6 +89,8 @@ namespace {
 constexpr double kU = 0x1p-53;
 constexpr double kU2 = 0x1p-106;
 constexpr double kMagSlack = 0x1p-30;
+// Rows with τ above this are charged per term (see (5)); typical rows have τ near 2^-93.
+constexpr double kCleanTau = 0x1p-90;
 
 struct DD {
   double hi, lo;
@@ -110,6 +130,13 @@ inline void cascade(double* __restrict hi, double* __restrict lo, double* __rest
     lo[d] = lo[d] + std::fma(wl, x[d], sigma + e);
     mag[d] = std::fma(m, std::fabs(x[d]), mag[d]);
   }
+}
+// (5) for a row above kCleanTau: as cascade, and err[d] += c·|x[d]|.
+inline void cascade_charged(double* __restrict hi, double* __restrict lo, double* __restrict mag,
+                            double* __restrict err, double wh, double wl, double m, double c,
+                            const double* __restrict x, std::int64_t n) {
+  cascade(hi, lo, mag, wh, wl, m, x, n);
+  for (std::int64_t d = 0; d < n; ++d) err[d] = std::fma(c, std::fabs(x[d]), err[d]);
 }
 inline void renormalise(double* __restrict hi, double* __restrict lo, std::int64_t n) {
   for (std::int64_t d = 0; d < n; ++d) {
@@ -178,14 +205,30 @@ void BackwardFast::run_block(std::int64_t block, BackwardReference& ref, Scratch
   zero_fill(sc.v_hi, tk * dv);
   zero_fill(sc.v_lo, tk * dv);
   zero_fill(sc.v_mag, tk * dv);
+  zero_fill(sc.k_err, tk * dk);
+  zero_fill(sc.v_err, tk * dv);
   sc.k_rows.assign(static_cast<std::size_t>(tk), 0);
   sc.k_neg.assign(static_cast<std::size_t>(tk), 0);
   sc.k_fresh.assign(static_cast<std::size_t>(tk), 0);
   std::vector<double> k_max(static_cast<std::size_t>(dk), 0.0), q_max(static_cast<std::size_t>(dk), 0.0),
       do_max(static_cast<std::size_t>(dv), 0.0);
+  // Smallest nonzero |x| per column (k over the block's keys, q and dO over its rows); +inf if none.
+  std::vector<double> k_min(static_cast<std::size_t>(dk), kInf), q_min(static_cast<std::size_t>(dk), kInf),
+      do_min(static_cast<std::size_t>(dv), kInf);
+  auto note_min = [](std::vector<double>& mins, const double* x, std::int64_t n) {
+    for (std::int64_t d = 0; d < n; ++d)
+      if (x[d] != 0) mins[static_cast<std::size_t>(d)] = std::min(mins[static_cast<std::size_t>(d)], std::fabs(x[d]));
+  };
+  // Smallest coefficient m of the dK sums and P̂_hi of the dV sums over the block.
+  double mk_min = kInf, mv_min = kInf;
+  // Exactly 0 by the rule of (6): magnitude 0, no negligible key, μ·ξ ≥ 2^-1073.
+  auto exact_zero = [](double mag, std::int64_t neg, double mu, double xi) {
+    return mag == 0 && neg == 0 && mul_down(mu, xi) >= 0x1p-1073;
+  };
   for (std::int64_t j = 0; j < tk; ++j)
     for (std::int64_t d = 0; d < dk; ++d)
       k_max[static_cast<std::size_t>(d)] = std::max(k_max[static_cast<std::size_t>(d)], std::fabs(kb[j * dk + d]));
+  for (std::int64_t j = 0; j < tk; ++j) note_min(k_min, kb + j * dk, dk);
   double tau_max = 0, lambda_max = 1, rho_max = 0, nu_max = 0, pi0_max = 0;
   bool failed = false;
 
@@ -211,6 +254,8 @@ void BackwardFast::run_block(std::int64_t block, BackwardReference& ref, Scratch
         q_max[static_cast<std::size_t>(d)] = std::max(q_max[static_cast<std::size_t>(d)], std::fabs(q[d]));
       for (std::int64_t d = 0; d < dv; ++d)
         do_max[static_cast<std::size_t>(d)] = std::max(do_max[static_cast<std::size_t>(d)], std::fabs(dor[d]));
+      note_min(q_min, q, dk);
+      note_min(do_min, dor, dv);
       FastCore::RowScratch& rs = sc.row;
       visible_keys(s, p_.mask, b, h, i, rs.keys, rs.bias);
       const std::size_t dq_at = static_cast<std::size_t>(row * dk);
@@ -297,9 +342,12 @@ void BackwardFast::run_block(std::int64_t block, BackwardReference& ref, Scratch
         failed = true;
         break;
       }
-      tau_max = std::max(tau_max, tau);
+      const bool charged = tau > kCleanTau;
+      if (!charged) {
+        tau_max = std::max(tau_max, tau);
+        rho_max = std::max(rho_max, rho);
+      }
       lambda_max = std::max(lambda_max, lambda);
-      rho_max = std::max(rho_max, rho);
       nu_max = std::max(nu_max, nu);
       if (n_neg > 0) pi0_max = std::max(pi0_max, pi0);
 
@@ -309,6 +357,7 @@ void BackwardFast::run_block(std::int64_t block, BackwardReference& ref, Scratch
       sc.q_lo.assign(static_cast<std::size_t>(dk), 0.0);
       sc.q_mag.assign(static_cast<std::size_t>(dk), 0.0);
       std::int64_t since = 0;
+      double m_row_min = kInf;
       for (std::size_t x = 0; x < nz; ++x) {
         const std::int64_t j = rs.keys[x];
         const auto ju = static_cast<std::size_t>(j);
@@ -319,6 +368,8 @@ void BackwardFast::run_block(std::int64_t block, BackwardReference& ref, Scratch
         }
         const DD ds = dd_mul({sc.ph[x], sc.pl[x]}, dd_add({sc.dph[x], sc.dpl[x]}, minus_d));
         const double m = sc.ph[x] * (sc.a[x] + a_i);
+        m_row_min = std::min(m_row_min, m);
+        mv_min = std::min(mv_min, sc.ph[x]);
         if (want_ds) {
           const double bound = add_up(mul_up(tau, m), 0x1p-1060);
           put(ref.d_s, static_cast<std::size_t>(row * tk + j), ds.hi, bound, mul_down(m, 1.0 - kMagSlack));
@@ -329,8 +380,15 @@ void BackwardFast::run_block(std::int64_t block, BackwardReference& ref, Scratch
           since = 0;
         }
         const std::size_t kat = ju * static_cast<std::size_t>(dk), vat = ju * static_cast<std::size_t>(dv);
-        cascade(&sc.k_hi[kat], &sc.k_lo[kat], &sc.k_mag[kat], ds.hi, ds.lo, m, q, dk);
-        cascade(&sc.v_hi[vat], &sc.v_lo[vat], &sc.v_mag[vat], sc.ph[x], sc.pl[x], sc.ph[x], dor, dv);
+        if (charged) {
+          cascade_charged(&sc.k_hi[kat], &sc.k_lo[kat], &sc.k_mag[kat], &sc.k_err[kat], ds.hi, ds.lo, m, tau * m, q,
+                          dk);
+          cascade_charged(&sc.v_hi[vat], &sc.v_lo[vat], &sc.v_mag[vat], &sc.v_err[vat], sc.ph[x], sc.pl[x], sc.ph[x],
+                          rho * sc.ph[x], dor, dv);
+        } else {
+          cascade(&sc.k_hi[kat], &sc.k_lo[kat], &sc.k_mag[kat], ds.hi, ds.lo, m, q, dk);
+          cascade(&sc.v_hi[vat], &sc.v_lo[vat], &sc.v_mag[vat], sc.ph[x], sc.pl[x], sc.ph[x], dor, dv);
+        }
         ++sc.k_rows[ju];
         if (++sc.k_fresh[ju] == kRenormEvery) {
           renormalise(&sc.k_hi[kat], &sc.k_lo[kat], dk);
@@ -339,6 +397,7 @@ void BackwardFast::run_block(std::int64_t block, BackwardReference& ref, Scratch
         }
       }
       renormalise(sc.q_hi.data(), sc.q_lo.data(), dk);
+      mk_min = std::min(mk_min, m_row_min);
 
       // (5) dQ of the row.
       const double e_acc = e_acc_up(n);
@@ -346,6 +405,10 @@ void BackwardFast::run_block(std::int64_t block, BackwardReference& ref, Scratch
       const double tiny = mul_up(static_cast<double>(n), 0x1p-1071);
       for (std::int64_t d = 0; d < dk; ++d) {
         const auto du = static_cast<std::size_t>(d);
+        if (k_max[du] == 0 || exact_zero(sc.q_mag[du], n_neg, m_row_min, k_min[du])) {  // (6): exactly 0
+          put(ref.d_q, dq_at + du, 0, 0, 0);
+          continue;
+        }
         const double mag = nonneg_sum_up(sc.q_mag[du], 2 * n);
         double bound = add_up(mul_up(coef, mag), tiny);
         bound = add_up(bound, mul_up(add_up(mul_up(static_cast<double>(n_neg), nu), mul_up(static_cast<double>(n),
@@ -394,13 +457,18 @@ void BackwardFast::run_block(std::int64_t block, BackwardReference& ref, Scratch
     const double k_abs = add_up(mul_up(static_cast<double>(neg), nu_max), mul_up(static_cast<double>(rows), 0x1p-1060));
     for (std::int64_t d = 0; d < dk; ++d) {
       const auto du = static_cast<std::size_t>(d);
+      const std::size_t at = static_cast<std::size_t>(ref.d_k.out.offset(b, g, j, d));
+      if (q_max[du] == 0 || exact_zero(sc.k_mag[kat + du], neg, mk_min, q_min[du])) {  // (6): exactly 0
+        put(ref.d_k, at, 0, 0, 0);
+        continue;
+      }
       const double mag = nonneg_sum_up(sc.k_mag[kat + du], 2 * rows);
       double bound = add_up(add_up(mul_up(k_coef, mag), mul_up(k_abs, q_max[du])), tiny);
+      bound = add_up(bound, nonneg_sum_up(sc.k_err[kat + du], 2 * rows + 2));
       const double sl = scale * sc.k_lo[kat + du];
       const double out = std::fma(scale, sc.k_hi[kat + du], sl);
       bound = add_up(mul_up(abs_s, bound), add_up(mul_up(0x1p-52, std::fabs(sl)), 0x1p-1074));
       const double magnitude = mul_down(mul_down(abs_s, sc.k_mag[kat + du]), 1.0 - kMagSlack);
-      const std::size_t at = static_cast<std::size_t>(ref.d_k.out.offset(b, g, j, d));
       put(ref.d_k, at, out, bound, magnitude);
       if (!meets(bound, magnitude, allowed_rel)) pending.push_back({GradKind::d_k, b, g, j, d});
     }
@@ -408,10 +476,15 @@ void BackwardFast::run_block(std::int64_t block, BackwardReference& ref, Scratch
     const double v_abs = mul_up(static_cast<double>(neg), pi0_max);
     for (std::int64_t d = 0; d < dv; ++d) {
       const auto du = static_cast<std::size_t>(d);
-      const double mag = nonneg_sum_up(sc.v_mag[vat + du], 2 * rows);
-      const double bound = add_up(add_up(mul_up(v_coef, mag), mul_up(v_abs, do_max[du])), tiny);
-      const double magnitude = mul_down(sc.v_mag[vat + du], 1.0 - kMagSlack);
       const std::size_t at = static_cast<std::size_t>(ref.d_v.out.offset(b, g, j, d));
+      if (do_max[du] == 0 || exact_zero(sc.v_mag[vat + du], neg, mv_min, do_min[du])) {  // (6): exactly 0
+        put(ref.d_v, at, 0, 0, 0);
+        continue;
+      }
+      const double mag = nonneg_sum_up(sc.v_mag[vat + du], 2 * rows);
+      double bound = add_up(add_up(mul_up(v_coef, mag), mul_up(v_abs, do_max[du])), tiny);
+      bound = add_up(bound, mul_up(nonneg_sum_up(sc.v_err[vat + du], 2 * rows + 2), 1.0 + kU));
+      const double magnitude = mul_down(sc.v_mag[vat + du], 1.0 - kMagSlack);
       put(ref.d_v, at, sc.v_hi[vat + du] + sc.v_lo[vat + du], bound, magnitude);
       if (!meets(bound, magnitude, allowed_rel)) pending.push_back({GradKind::d_v, b, g, j, d});
     }

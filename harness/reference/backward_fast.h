@@ -29,6 +29,7 @@ class BackwardFast {
     FastCore::RowScratch row;
     std::vector<double> ph, pl, dph, dpl, a, sh, sl, mh;  // per visible key of a row
     std::vector<double> k_hi, k_lo, k_mag, v_hi, v_lo, v_mag;  // [Tk, D] of the block
+    std::vector<double> k_err, v_err;  // [Tk, D]: error charged per term by rows above kCleanTau
     std::vector<double> q_hi, q_lo, q_mag;                     // [Dk] of a row
     std::vector<std::int64_t> k_rows, k_neg, k_fresh;          // per key: rows, negligible rows, terms since renormalising
   };

@@ -72,6 +72,25 @@ void axpy(double x, const double* w, double* y, std::int64_t n) {
   base::axpy(x, w, y, n);
 }
 
+void backward_row(const double* q, const double* d_o, const double* kt, const double* kr, const double* vt,
+                  std::int64_t tk, std::int64_t dk, std::int64_t dv, double scale, double* z, double* dp, double* dq,
+                  double* dk_acc, double* dv_acc) {
+#ifdef BENCH_HAVE_AVX2
+  if (use_avx2())
+    return avx2::backward_row(q, d_o, kt, kr, vt, tk, pad4(tk), dk, pad4(dk), dv, pad4(dv), scale, z, dp, dq, dk_acc,
+                              dv_acc);
+#endif
+  base::backward_row(q, d_o, kt, kr, vt, tk, pad4(tk), dk, pad4(dk), dv, pad4(dv), scale, z, dp, dq, dk_acc, dv_acc);
+}
+
+// Rows [rows][cols] of `x` padded with zeros to [rows][pad4(cols)].
+std::vector<double> padded(const double* x, std::int64_t rows, std::int64_t cols) {
+  const std::int64_t cp = pad4(cols);
+  std::vector<double> out(static_cast<std::size_t>(rows * cp), 0.0);
+  for (std::int64_t r = 0; r < rows; ++r) std::copy_n(x + r * cols, cols, &out[static_cast<std::size_t>(r * cp)]);
+  return out;
+}
+
 // Keys transposed [dk][tk_pad] and values padded [tk][dv_pad] of one head,
 // from rows `stride` doubles apart starting at column `col`.
 void lay_out(const double* k, const double* v, std::int64_t stride_k, std::int64_t stride_v, std::int64_t tk,
@@ -122,6 +141,49 @@ void plain_core(const headroom::CoreProblem& p, const headroom::CoreInputs& in, 
   out.resize(static_cast<std::size_t>(tq * dv));
   for (std::int64_t i = 0; i < tq; ++i)
     std::copy_n(&o[static_cast<std::size_t>(i * dv_pad)], dv, &out[static_cast<std::size_t>(i * dv)]);
+}
+
+void plain_backward(const headroom::CoreProblem& p, const headroom::CoreInputs& in, const headroom::Tensor& d_o,
+                    unsigned threads, std::vector<double>& d_q, std::vector<double>& d_k, std::vector<double>& d_v) {
+  const auto& s = p.shape;
+  const std::int64_t tq = s.q_len, tk = s.kv_len, dk = s.key_dim, dv = s.value_dim;
+  const std::int64_t dk_pad = pad4(dk), dv_pad = pad4(dv), tk_pad = pad4(tk);
+  std::vector<double> kt, vt, unused;
+  lay_out(in.k.values.data(), in.v.values.data(), dk, dv, tk, dk, dv, kt, unused);
+  lay_out(in.v.values.data(), in.v.values.data(), dv, dv, tk, dv, dv, vt, unused);
+  const std::vector<double> kr = padded(in.k.values.data(), tk, dk), qp = padded(in.q.values.data(), tq, dk),
+                            dop = padded(d_o.values.data(), tq, dv);
+  const auto t = static_cast<std::int64_t>(std::max(1u, threads));
+  std::vector<double> dq(static_cast<std::size_t>(tq * dk_pad));
+  std::vector<std::vector<double>> dk_part(static_cast<std::size_t>(t)), dv_part(static_cast<std::size_t>(t));
+  std::vector<std::thread> pool;
+  auto work = [&](std::int64_t w) {
+    std::vector<double>& dka = dk_part[static_cast<std::size_t>(w)];
+    std::vector<double>& dva = dv_part[static_cast<std::size_t>(w)];
+    dka.assign(static_cast<std::size_t>(tk * dk_pad), 0.0);
+    dva.assign(static_cast<std::size_t>(tk * dv_pad), 0.0);
+    std::vector<double> z(static_cast<std::size_t>(tk_pad)), dp(static_cast<std::size_t>(tk_pad));
+    for (std::int64_t i = tq * w / t; i < tq * (w + 1) / t; ++i)
+      backward_row(&qp[static_cast<std::size_t>(i * dk_pad)], &dop[static_cast<std::size_t>(i * dv_pad)], kt.data(),
+                   kr.data(), vt.data(), tk, dk, dv, p.scale, z.data(), dp.data(),
+                   &dq[static_cast<std::size_t>(i * dk_pad)], dka.data(), dva.data());
+  };
+  for (std::int64_t w = 1; w < t; ++w) pool.emplace_back(work, w);
+  work(0);
+  for (auto& th : pool) th.join();
+  for (std::int64_t w = 1; w < t; ++w) {
+    for (std::size_t e = 0; e < dk_part[0].size(); ++e) dk_part[0][e] += dk_part[static_cast<std::size_t>(w)][e];
+    for (std::size_t e = 0; e < dv_part[0].size(); ++e) dv_part[0][e] += dv_part[static_cast<std::size_t>(w)][e];
+  }
+  auto unpad = [](const std::vector<double>& x, std::int64_t rows, std::int64_t cols, std::vector<double>& out) {
+    const std::int64_t cp = pad4(cols);
+    out.resize(static_cast<std::size_t>(rows * cols));
+    for (std::int64_t r = 0; r < rows; ++r)
+      std::copy_n(&x[static_cast<std::size_t>(r * cp)], cols, &out[static_cast<std::size_t>(r * cols)]);
+  };
+  unpad(dq, tq, dk, d_q);
+  unpad(dk_part[0], tk, dk, d_k);
+  unpad(dv_part[0], tk, dv, d_v);
 }
 
 void plain_block(const headroom::BlockProblem& p, const headroom::BlockInputs& in, unsigned threads,

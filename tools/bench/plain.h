@@ -24,6 +24,13 @@ void plain_core(const headroom::CoreProblem& p, const headroom::CoreInputs& in, 
 void plain_block(const headroom::BlockProblem& p, const headroom::BlockInputs& in, unsigned threads,
                  std::vector<double>& out);
 
+/// dQ, dK, dV of one batch and head of an unmasked core problem for upstream
+/// gradient d_o [Tq, Dv] (Dao et al. 2022, Alg. 4, P recomputed from the
+/// scores); query rows split over `threads`, each thread summing its own dK,
+/// dV, added at the end. Outputs row-major [Tq, Dk], [Tk, Dk], [Tk, Dv].
+void plain_backward(const headroom::CoreProblem& p, const headroom::CoreInputs& in, const headroom::Tensor& d_o,
+                    unsigned threads, std::vector<double>& d_q, std::vector<double>& d_k, std::vector<double>& d_v);
+
 /// Returns: "avx2+fma" or "baseline", the build the plain loops run.
 const char* plain_isa();
 

@@ -15,6 +15,7 @@ namespace bench {
 struct Options {
   std::vector<std::pair<std::int64_t, std::int64_t>> core_sizes;  ///< (T, D)
   std::vector<std::int64_t> block_lengths;                         ///< T of the block rows
+  std::vector<std::pair<std::int64_t, std::int64_t>> backward_sizes;  ///< (T, D) of the backward rows
   std::int64_t naive_rows = 8;  ///< query rows the all-MPFR core reference is timed on
   std::int64_t q_rows = 0;      ///< core: only this many query rows (0: T)
   unsigned threads = 1;         ///< for the reference and the plain baselines alike
@@ -27,6 +28,8 @@ struct Options {
 
 /// Core attention: plain float64 vs certified (fast) vs all-MPFR.
 void core_section(const Options& opt);
+/// Core backward: plain float64 dQ, dK, dV vs the certified backward (fast).
+void backward_section(const Options& opt);
 /// Block level (d_model 512, 8 heads of 64): plain float64 block vs certified block.
 void block_section(const Options& opt);
 /// Suites end to end: `headroom qualify --suite S` on a kernel, isolated and --no-isolation.
