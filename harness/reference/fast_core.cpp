@@ -4,8 +4,8 @@
 // Per row, with n visible keys, u = 2^-53:
 //
 //  (a) Exponents. The kernel reports r_max ≥ every r_j, the uncertainty of
-//      key j's exponent: score error E_z,j (score_coef_·|s|·‖q‖‖k_j‖ + the
-//      finishing roundings), the shift's rounding and the exp reduction's ρ_j.
+//      key j's exponent: score error E_z,j (|s|·score_err, the dot products'
+//      bound on the row's grid σ ≥ 2‖q‖·max_j‖k_j‖, + the finishing roundings), the shift's rounding and the exp reduction's ρ_j.
 //      r_max and lse_err are sums and products of a few dozen nonnegative
 //      doubles computed in round-to-nearest: their relative rounding error is
 //      below γ_64 < 2^-46, covered by inflating them by (1 + 2^-40); 2^-1000 is
@@ -42,8 +42,7 @@
 // q̃ = q + q_lo, k̃, ṽ, and the exact inputs lie within radii of them:
 // ‖q − q̃‖₂ ≤ ρ_q, ‖k_j − k̃_j‖₂ ≤ ρ_k,j, |v_jd − ṽ_jd| ≤ ρ_v,d for every key.
 //  (a') The score's dot product is formed on q̃, k̃ (fast_row.inc,
-//      score_blocks, wide: coefficient γ_{Dk+3}·u·(Dk+4) + u² in place of
-//      γ_{Dk+1}·u·(Dk+2)), and the exact inputs move it by at most
+//      score_blocks, wide: the same score_err covers it), and the exact inputs move it by at most
 //      ρ_q‖k̃_j‖ + ‖q̃‖ρ_k,j + ρ_qρ_k,j (Cauchy–Schwarz), which the kernel adds
 //      to E_z,j: the exponent uncertainty r_j — and so φ̄ and everything after
 //      it — then covers exact scores, not the scores of q̃, k̃.
@@ -70,12 +69,6 @@ namespace {
 constexpr double kU = 0x1p-53;
 constexpr double kU2 = 0x1p-106;
 
-bool float32_valued(const Tensor& t) {
-  for (double x : t.values)
-    if (static_cast<double>(static_cast<float>(x)) != x) return false;
-  return true;
-}
-
 }  // namespace
 
 FastCore::FastCore(const CoreProblem& p, const CoreInputs& in, const ReferenceOptions& opt, unsigned workers,
@@ -84,15 +77,11 @@ FastCore::FastCore(const CoreProblem& p, const CoreInputs& in, const ReferenceOp
   const CoreShape& s = p.shape;
   blocks_ = (s.kv_len + kLanes - 1) / kLanes;
   dv_pad_ = (s.value_dim + kLanes - 1) / kLanes * kLanes;
-  // Products of two float32 values have at most 48 significant bits and
-  // magnitudes in [2^-298, 2^256]: exact in double, no underflow.
-  exact_products_ = float32_valued(in.q) && float32_valued(in.k);
-  // fast_row.inc, score_blocks: |hi + lo − q·k| ≤ γ_{Dk+1}·u·(Dk + 2)·A.
-  score_coef_ = mul_up(mul_up(gamma_up(s.key_dim + 1, kU), kU), static_cast<double>(s.key_dim + 2));
-  if (wide_ != nullptr) {  // (a')
-    exact_products_ = false;
-    score_coef_ = add_up(mul_up(mul_up(gamma_up(s.key_dim + 3, kU), kU), static_cast<double>(s.key_dim + 4)), kU2);
-  }
+  // fast_row.inc, score_blocks: |hi + lo − q̃·k̃_j| ≤ (γ_{Dk+1}·(Dk+2)·u + (Dk+3)·u²)·σ
+  // + 3·Dk·2^-1075, narrow or wide.
+  const auto dk = static_cast<double>(s.key_dim);
+  score_coef_ = add_up(mul_up(mul_up(gamma_up(s.key_dim + 1, kU), kU), dk + 2), mul_up(dk + 3, kU2));
+  score_floor_ = mul_up(3 * dk, 0x1p-1074);  // ≥ 3·Dk·2^-1075
   const std::int64_t heads = s.batch * s.kv_heads;
   kt_.assign(static_cast<std::size_t>(heads * blocks_ * s.key_dim * kLanes), 0.0);
   vp_.assign(static_cast<std::size_t>(heads * s.kv_len * dv_pad_), 0.0);
@@ -157,9 +146,15 @@ void FastCore::prepare_row(std::int64_t row, RowScratch& rs, FastRowArgs& a, Fas
   a.dv = dv;
   a.dv_pad = dv_pad_;
   a.scale = p_.scale;
-  a.score_coef_a = score_coef_;
   a.q_norm = norm_up(a.q, s.key_dim);
-  a.exact_products = exact_products_;
+  // σ: the power of two 2^(e+2) ≥ 2·‖q‖·max_j ‖k_j‖ over the visible keys
+  // (A = 2^e·m, 1 ≤ m < 2), at least 2^-900; fast_row.inc, score_blocks.
+  double k_max = 0;
+  for (const std::int64_t j : rs.keys) k_max = std::max(k_max, a.k_norm[j]);
+  const double bound = mul_up(a.q_norm, k_max);
+  a.sigma = bound > 0x1p-902 ? std::ldexp(1.0, std::ilogb(bound) + 2) : 0x1p-900;
+  if (!std::isfinite(bound)) a.sigma = kInf;
+  a.score_err = add_up(mul_up(score_coef_, a.sigma), score_floor_);
   if (wide_ != nullptr) {
     a.q_lo = &wide_->q_lo.values[static_cast<std::size_t>(in_.q.offset(b, h, i, 0))];
     a.kt_lo = &kt_lo_[static_cast<std::size_t>(bg * blocks_ * s.key_dim * kLanes)];

@@ -86,8 +86,7 @@ class FastCore {
   ReferenceOptions opt_;
   const FastKernels* kernels_;
   std::int64_t blocks_ = 0, dv_pad_ = 0;
-  bool exact_products_ = false;
-  double score_coef_ = 0;
+  double score_coef_ = 0, score_floor_ = 0;  // score_err = score_coef_·σ + score_floor_
   std::vector<double> kt_, vp_, k_norm_;  // per (b, g), concatenated
   const WideCoreInputs* wide_ = nullptr;
   std::vector<double> kt_lo_, vp_lo_;     // wide: the low parts in the same layouts

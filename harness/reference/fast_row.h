@@ -46,13 +46,14 @@ struct FastRowArgs {
   const double* bias = nullptr;   ///< n biases or null
   std::int64_t n = 0, dk = 0, dv = 0, dv_pad = 0;
   double scale = 1.0;
-  double score_coef_a = 0;  ///< dot-product error ≤ score_coef_a·‖q‖‖k_j‖ (the kernel adds the rest of E_z,j)
-  double q_norm = 0;        ///< upper bound of ‖q‖₂
-  bool exact_products = false;  ///< every q_c·k_jc exact in double (both float32-valued)
+  /// The scores' extraction grid (fast_row.inc, score_blocks): a power of two with
+  /// Σ_c |q_c·k_jc| ≤ sigma/2 for every visible key; above 2^1000 the row is not finished.
+  double sigma = 1.0;
+  double score_err = 0;  ///< every dot product errs by ≤ score_err (the kernel adds the rest of E_z,j)
+  double q_norm = 0;     ///< upper bound of ‖q‖₂
   // Double-double inputs (block level; null at core level): q + q_lo, keys kt + kt_lo (same
-  // layout), values vp + vp_lo, each normalised (|lo| ≤ u|hi|); score_coef_a is then the
-  // wide one (fast_row.inc, score_blocks). Radii: the exact inputs lie within q_rad (an
-  // upper bound of ‖δq‖₂) and k_rad[j] (of ‖δk_j‖₂) of them.
+  // layout), values vp + vp_lo, each normalised (|lo| ≤ u|hi|). Radii: the exact inputs lie
+  // within q_rad (an upper bound of ‖δq‖₂) and k_rad[j] (of ‖δk_j‖₂) of them.
   /// weighted() only: every w_hi·v product exact in double and w_lo = 0: triple-double
   /// sums (fast_row.inc, weighted_sums_exact), acc ≥ 5·dv_pad with L3 after GL.
   bool exact_sums = false;

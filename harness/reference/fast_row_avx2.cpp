@@ -36,6 +36,7 @@ inline Vec vadd(Vec a, Vec b) { return {_mm256_add_pd(a.x, b.x)}; }
 inline Vec vsub(Vec a, Vec b) { return {_mm256_sub_pd(a.x, b.x)}; }
 inline Vec vmul(Vec a, Vec b) { return {_mm256_mul_pd(a.x, b.x)}; }
 inline Vec vfma(Vec a, Vec b, Vec c) { return {_mm256_fmadd_pd(a.x, b.x, c.x)}; }
+inline Vec vfms(Vec a, Vec b, Vec c) { return {_mm256_fmsub_pd(a.x, b.x, c.x)}; }
 inline Vec vabs(Vec a) { return {_mm256_andnot_pd(_mm256_set1_pd(-0.0), a.x)}; }
 inline Vec vzero() { return {_mm256_setzero_pd()}; }
 inline Vec vset1(double d) { return {_mm256_set1_pd(d)}; }

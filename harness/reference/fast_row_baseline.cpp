@@ -35,6 +35,9 @@ inline Vec vadd(Vec a, Vec b) { return lanes([&](std::int64_t l) { return a.x[l]
 inline Vec vsub(Vec a, Vec b) { return lanes([&](std::int64_t l) { return a.x[l] - b.x[l]; }); }
 inline Vec vmul(Vec a, Vec b) { return lanes([&](std::int64_t l) { return a.x[l] * b.x[l]; }); }
 inline Vec vfma(Vec a, Vec b, Vec c) { return lanes([&](std::int64_t l) { return std::fma(a.x[l], b.x[l], c.x[l]); }); }
+// a·b − c as a·b + (−c): the same exact value rounded once, so the same bits as
+// the AVX2 fmsub (IEEE 754-2019 §5.4.1: subtraction is addition of the negation).
+inline Vec vfms(Vec a, Vec b, Vec c) { return lanes([&](std::int64_t l) { return std::fma(a.x[l], b.x[l], -c.x[l]); }); }
 inline Vec vabs(Vec a) { return lanes([&](std::int64_t l) { return std::fabs(a.x[l]); }); }
 inline Vec vzero() { return lanes([](std::int64_t) { return 0.0; }); }
 inline Vec vset1(double d) { return lanes([&](std::int64_t) { return d; }); }
