@@ -16,6 +16,7 @@
 #include <cstdio>
 #include <random>
 
+#include "../harness/reference/bound_arith.h"
 #include "../harness/reference/fast_core.h"
 #include "../harness/reference/parallel.h"
 #include "headroom/reference.h"
@@ -242,6 +243,48 @@ RC_GTEST_PROP(ReferenceFast, InstructionSetsAgreeBitForBit, ()) {
   const CoreReference a = compute(&detail::fast_kernels()), b = compute(&detail::fast_kernels_baseline());
   RC_TAG(detail::fast_kernels().name);
   RC_ASSERT(bit_identical(a.out, b.out) && bit_identical(a.bound, b.bound) && bit_identical(a.lse, b.lse));
+}
+
+// The bound arithmetic's inline steps are the C library's nextafter
+// (ISO C 7.12.11.3) on every class of double: zeros, subnormals, normals,
+// the largest finite, infinities, NaN, and random bit patterns.
+TEST(ReferenceFast, InlineStepsAreTheLibrarysNextafter) {
+  std::vector<double> xs = {0.0, -0.0, 0x1p-1074, 0x1p-1022, 0x1.fffffffffffffp-1023, 1.0, 0x1.fffffffffffffp1023,
+                            -1.0, -0x1p-1074, detail::kInf, -detail::kInf, std::nan("")};
+  std::mt19937_64 rng(11);
+  for (int k = 0; k < 10000; ++k) xs.push_back(std::bit_cast<double>(rng()));
+  for (const double x : xs) {
+    const double up = detail::step_up(x), lib = std::nextafter(x, detail::kInf);
+    EXPECT_TRUE(std::bit_cast<std::uint64_t>(up) == std::bit_cast<std::uint64_t>(lib) || (std::isnan(up) && std::isnan(lib)))
+        << x;
+    const double down = detail::step_down_clamped(x), lib_down = std::nextafter(x, 0.0);
+    EXPECT_EQ(std::bit_cast<std::uint64_t>(down), std::bit_cast<std::uint64_t>(lib_down > 0 ? lib_down : 0.0)) << x;
+  }
+}
+
+// The weighted sums run on a grid scaled by max_j |v_jd| (fast_row.inc,
+// weighted_sums_grid). A value 2^60 on a key of weight ≈ e^-100 (2^-144:
+// it moves the output by ~2^-84 of the others, yet the grid's scale by 2^60)
+// makes the grid too coarse for that column: the row is run again with the
+// cascaded sums and certified there, with no multiprecision escalation; a grid
+// row that was not run again would miss the target and escalate.
+TEST(ReferenceFast, CoarseGridRowsAreRunAgainWithCascadedSums) {
+  CoreShape s;
+  s.q_len = 3;
+  s.kv_len = 40;
+  s.key_dim = 8;
+  s.value_dim = 6;
+  testing::CoreCase c = testing::random_core(s, 5);
+  c.problem.mask.kind = MaskKind::bias;
+  c.problem.mask.bias = Tensor({1, 1, s.q_len, s.kv_len});
+  for (std::int64_t i = 0; i < s.q_len; ++i) c.problem.mask.bias.at(0, 0, i, 7) = -100.0;
+  c.inputs.v.at(0, 0, 7, 2) = 0x1p60;
+  const CoreReference fast = run(c, ReferenceMethod::fast), mp = run(c, ReferenceMethod::multiprecision);
+  EXPECT_TRUE(fast.certified);
+  EXPECT_EQ(fast.stats.escalated_elements, 0);
+  EXPECT_TRUE(enclose_same(fast.out, fast.bound, mp.out, mp.bound));
+  for (std::size_t e = 0; e < fast.out.values.size(); ++e)
+    EXPECT_LE(fast.bound.values[e], 0x1p-80 * fast.magnitude.values[e] * (1 + 0x1p-40));
 }
 
 // Memory stays O((Tq + Tk)·D): a long problem (Tk = 16384, D = 128) computed

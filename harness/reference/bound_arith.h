@@ -12,6 +12,7 @@
 // arithmetic; nothing here relies on the rounding mode being changed.
 #pragma once
 
+#include <bit>
 #include <cmath>
 #include <cstdint>
 #include <limits>
@@ -20,27 +21,32 @@ namespace headroom::detail {
 
 inline constexpr double kInf = std::numeric_limits<double>::infinity();
 
+/// Returns: std::nextafter(x, +inf), inline: for x > 0 finite the next
+/// encoding up (IEEE 754-2019 §3.4: positive doubles are ordered as their bit
+/// patterns, +inf just after the largest finite), for ±0 the smallest
+/// subnormal; anything else (negative, inf, NaN) as the library does it.
+inline double step_up(double x) {
+  if (x > 0 && x < kInf) return std::bit_cast<double>(std::bit_cast<std::uint64_t>(x) + 1);
+  if (x == 0) return std::numeric_limits<double>::denorm_min();
+  return std::nextafter(x, kInf);
+}
+/// Returns: the double just below x > 0 (std::nextafter(x, 0)), 0 otherwise (NaN included).
+inline double step_down_clamped(double x) {
+  return x > 0 ? std::bit_cast<double>(std::bit_cast<std::uint64_t>(x) - 1) : 0.0;
+}
+
 /// Returns: an upper bound of a + b (a, b ≥ 0).
-inline double add_up(double a, double b) { return std::nextafter(a + b, kInf); }
+inline double add_up(double a, double b) { return step_up(a + b); }
 /// Returns: an upper bound of a · b (a, b ≥ 0).
-inline double mul_up(double a, double b) { return std::nextafter(a * b, kInf); }
+inline double mul_up(double a, double b) { return step_up(a * b); }
 /// Returns: an upper bound of a / b (a ≥ 0, b > 0).
-inline double div_up(double a, double b) { return std::nextafter(a / b, kInf); }
+inline double div_up(double a, double b) { return step_up(a / b); }
 /// Returns: a lower bound ≥ 0 of a · b (a, b ≥ 0).
-inline double mul_down(double a, double b) {
-  const double r = std::nextafter(a * b, 0.0);
-  return r > 0 ? r : 0.0;
-}
+inline double mul_down(double a, double b) { return step_down_clamped(a * b); }
 /// Returns: a lower bound ≥ 0 of a / b (a ≥ 0, b > 0).
-inline double div_down(double a, double b) {
-  const double r = std::nextafter(a / b, 0.0);
-  return r > 0 ? r : 0.0;
-}
+inline double div_down(double a, double b) { return step_down_clamped(a / b); }
 /// Returns: a lower bound ≥ 0 of a − b (a, b ≥ 0); 0 when b ≥ a.
-inline double sub_down(double a, double b) {
-  const double r = std::nextafter(a - b, -kInf);
-  return r > 0 ? r : 0.0;
-}
+inline double sub_down(double a, double b) { return step_down_clamped(a - b); }
 
 /// Returns: an upper bound of the unit roundoff 2^-p of a p-bit format.
 inline double unit(long p) { return std::ldexp(1.0, static_cast<int>(-p)); }

@@ -29,6 +29,12 @@
 //        c = (e_acc + φ̄)(1 + u) + ε_S(1 + φ̄)(1 + u)/(1 − ε_S),
 //      and the quotient q1 + q2 adds e_div ≤ 16u²|out| (+ 2^-1060 if the
 //      remainder underflowed): bound_d is their sum, every step rounded up.
+//  (c'') Weighted sums on the grid σ_d (o.grid; fast_row.inc, weighted_sums_grid):
+//      H + L is within grid_error_d (absolute) of Σ_j ŵ_j v_jd, so the term
+//      e_acc(1 + u)G_d of (d) is replaced by grid_error_d: c loses its e_acc
+//      and grid_error_d/Ŝ_low is added to bound_d. A row whose grid share
+//      would exceed 2^(target−2) of its scale is run again with the cascaded
+//      sums of (c) first (grid_too_coarse: a choice, the bound is sound either way).
 //  (e) Magnitude M_d = Σ p_j|v_jd| ≥ Ĝ_d(1 − 2^-49)(1 − u)(1 − φ̄)/(Ŝ_up(1 + ε_S)),
 //      and RN(Ĝ_d/SH) is within 2^-49 of it. Element certified when
 //      bound_d ≤ 2^target·(that lower end).
@@ -90,6 +96,9 @@ FastCore::FastCore(const CoreProblem& p, const CoreInputs& in, const ReferenceOp
     vp_lo_.assign(vp_.size(), 0.0);
   }
   k_norm_.assign(static_cast<std::size_t>(heads * s.kv_len), 0.0);
+  v_max_.assign(static_cast<std::size_t>(heads * dv_pad_), 0.0);
+  // fast_row.inc, weighted_sums_grid: n(4 roundings)·2^-1075 ≤ n·2^-1073 absolute, and
+  // (n+1)u²(1+u) + (γ_B + 3u)(n+1)u(1+u)²(1 + 2^-40) per σ_d (n: the row's keys).
   parallel_for(heads, workers, [&](std::int64_t bg, unsigned) {
     const std::int64_t b = bg / s.kv_heads, g = bg % s.kv_heads;
     double* kt = &kt_[static_cast<std::size_t>(bg * blocks_ * s.key_dim * kLanes)];
@@ -101,6 +110,8 @@ FastCore::FastCore(const CoreProblem& p, const CoreInputs& in, const ReferenceOp
       k_norm_[static_cast<std::size_t>(bg * s.kv_len + j)] = norm_up(k, s.key_dim);
       const double* v = &in.v.values[static_cast<std::size_t>(in.v.offset(b, g, j, 0))];
       std::copy(v, v + s.value_dim, vp + j * dv_pad_);
+      double* v_max = &v_max_[static_cast<std::size_t>(bg * dv_pad_)];
+      for (std::int64_t d = 0; d < s.value_dim; ++d) v_max[d] = std::max(v_max[d], std::fabs(v[d]));
       if (wide_ != nullptr) {
         const std::size_t at = static_cast<std::size_t>(bg * blocks_ * s.key_dim * kLanes);
         const double* kl = &wide_->k_lo.values[static_cast<std::size_t>(in.k.offset(b, g, j, 0))];
@@ -129,7 +140,7 @@ void FastCore::prepare_row(std::int64_t row, RowScratch& rs, FastRowArgs& a, Fas
   const auto n_pad = static_cast<std::size_t>((n + kLanes - 1) / kLanes * kLanes);
   rs.w_hi.resize(n_pad);
   rs.w_lo.resize(n_pad);
-  rs.acc.resize(static_cast<std::size_t>(4 * dv_pad_));
+  rs.acc.resize(static_cast<std::size_t>(6 * dv_pad_));
   rs.out.resize(static_cast<std::size_t>(dv));
   rs.out_lo.resize(static_cast<std::size_t>(dv));
   rs.g.resize(static_cast<std::size_t>(dv));
@@ -162,6 +173,7 @@ void FastCore::prepare_row(std::int64_t row, RowScratch& rs, FastRowArgs& a, Fas
     a.q_rad = wide_->q_rad[static_cast<std::size_t>(row)];
     a.k_rad = &wide_->k_rad[static_cast<std::size_t>(bg * s.kv_len)];
   }
+  a.v_max = &v_max_[static_cast<std::size_t>(bg * dv_pad_)];
   a.tables = &fast_tables();
   a.raw_hi = rs.raw_hi.data();
   a.raw_lo = rs.raw_lo.data();
@@ -193,6 +205,10 @@ bool FastCore::run_group(std::int64_t group, CoreReference& ref, Scratch& sc, Ro
     kernels_->group(args, outs, batch);
     for (int r = 0; r < batch; ++r) {
       const std::int64_t row = head * s.q_len + i0 + row_of[r];
+      if (grid_too_coarse(sc.row[row_of[r]], outs[r], args[r].dv_pad)) {  // again, double-double sums
+        args[r].no_grid = true;
+        kernels_->group(&args[r], &outs[r], 1);
+      }
       ok = finish_row(row, sc.row[row_of[r]], outs[r], ref, mp, stats) && ok;
     }
     batch = 0;
@@ -216,6 +232,30 @@ bool FastCore::run_group(std::int64_t group, CoreReference& ref, Scratch& sc, Ro
   }
   flush();
   return ok;
+}
+
+FastCore::GridError FastCore::grid_error(std::int64_t n) {
+  const auto n1 = static_cast<double>(n + 1);
+  GridError e;
+  e.coef = add_up(mul_up(mul_up(n1, kU2), 1.0 + 0x1p-52),
+                  mul_up(mul_up(add_up(gamma_up(kRenormEvery, kU), 3 * kU), mul_up(n1, kU)), 1.0 + 0x1p-39));
+  e.floor = mul_up(static_cast<double>(n), 0x1p-1073);
+  return e;
+}
+
+double FastCore::GridError::at(double sigma) const { return add_up(mul_up(coef, sigma), floor); }
+
+bool FastCore::grid_too_coarse(const RowScratch& rs, const FastRowOut& o, std::int64_t dv_pad) const {
+  if (!o.ok || !o.grid) return false;
+  // A choice of method, not a claim: the grid's share of an element's bound
+  // against 2^(target − 2) of its magnitude's scale Ĝ_d/Ŝ (the bound divides
+  // both by Ŝ); the bound itself is derived in finish_row either way.
+  const double allowed = std::ldexp(1.0, opt_.target_log2 - 2);
+  const GridError ge = grid_error(static_cast<std::int64_t>(rs.keys.size()));
+  for (std::int64_t d = 0; d < p_.shape.value_dim; ++d)
+    if (!(ge.at(rs.acc[static_cast<std::size_t>(5 * dv_pad + d)]) <= allowed * rs.g[static_cast<std::size_t>(d)]))
+      return true;
+  return false;
 }
 
 void FastCore::run_row(std::int64_t row, RowScratch& rs, FastRowOut& o) const {
@@ -266,6 +306,11 @@ bool FastCore::finish_row(std::int64_t row, RowScratch& sc, const FastRowOut& o,
   const double c = add_up(mul_up(add_up(e_acc, phi), one_u),
                           div_up(mul_up(mul_up(eps_s, add_up(1.0, phi)), one_u), sub_down(1.0, eps_s)));
   const double cg = div_up(mul_up(c, 1.0 + 0x1p-49), s_low);
+  // (c''): on the grid, e_acc·(1 + u)G_d gives way to the absolute grid_error.
+  const double c_grid = add_up(mul_up(phi, one_u),
+                               div_up(mul_up(mul_up(eps_s, add_up(1.0, phi)), one_u), sub_down(1.0, eps_s)));
+  const double cg_grid = div_up(mul_up(c_grid, 1.0 + 0x1p-49), s_low);
+  const GridError ge = grid_error(n);
   const double low = div_down(mul_down(mul_down(1.0 - 0x1p-49, 1.0 - kU), sub_down(1.0, phi)),
                               mul_up(s_up, add_up(1.0, eps_s)));
   const double allowed_rel = std::ldexp(1.0, opt_.target_log2);
@@ -277,7 +322,8 @@ bool FastCore::finish_row(std::int64_t row, RowScratch& sc, const FastRowOut& o,
     const double out = sc.out[static_cast<std::size_t>(d)], gd = sc.g[static_cast<std::size_t>(d)];
     double nu = tiny_sum;
     if (o.negligible > 0) nu = add_up(nu, mul_up(neg, sc.neg_vmax[static_cast<std::size_t>(d)]));
-    double bound = add_up(mul_up(cg, gd), div_up(mul_up(2.0, nu), s_low));
+    double bound = add_up(mul_up(o.grid ? cg_grid : cg, gd), div_up(mul_up(2.0, nu), s_low));
+    if (o.grid) bound = add_up(bound, div_up(ge.at(sc.acc[static_cast<std::size_t>(5 * dv_pad_ + d)]), s_low));  // (c'')
     bound = add_up(bound, add_up(mul_up(16 * kU2 * (1 + 0x1p-40), std::fabs(out)), 0x1p-1060));
     if (wide) {  // (d')
       const std::int64_t g = kv_head_of(s, (row / s.q_len) % s.q_heads), b = row / (s.q_len * s.q_heads);

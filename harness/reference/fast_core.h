@@ -78,6 +78,14 @@ class FastCore {
 
  private:
   void prepare_row(std::int64_t row, RowScratch& rs, FastRowArgs& a, FastRowOut& o) const;
+  /// |H + L − Σ_j ŵ_j v_jd| ≤ coef·σ_d + floor for a row of n keys whose sums ran on the grid.
+  struct GridError {
+    double coef = 0, floor = 0;
+    double at(double sigma) const;  ///< the bound for grid σ_d, rounded up
+  };
+  static GridError grid_error(std::int64_t n);
+  /// Returns: whether a grid row should be run again with the cascaded sums.
+  bool grid_too_coarse(const RowScratch& rs, const FastRowOut& o, std::int64_t dv_pad) const;
   bool finish_row(std::int64_t row, RowScratch& rs, const FastRowOut& o, CoreReference& ref, RowRecompute& mp,
                   ReferenceStats& stats) const;
 
@@ -87,7 +95,7 @@ class FastCore {
   const FastKernels* kernels_;
   std::int64_t blocks_ = 0, dv_pad_ = 0;
   double score_coef_ = 0, score_floor_ = 0;  // score_err = score_coef_·σ + score_floor_
-  std::vector<double> kt_, vp_, k_norm_;  // per (b, g), concatenated
+  std::vector<double> kt_, vp_, k_norm_, v_max_;  // per (b, g), concatenated
   const WideCoreInputs* wide_ = nullptr;
   std::vector<double> kt_lo_, vp_lo_;     // wide: the low parts in the same layouts
 };

@@ -62,6 +62,11 @@ struct FastRowArgs {
   const double* vp_lo = nullptr;
   double q_rad = 0;
   const double* k_rad = nullptr;
+  /// Attention rows (null for projections): [dv_pad] upper bounds of max_j |v_jd| over
+  /// the keys (high parts), zero-padded; the weighted sums then run on a grid
+  /// (fast_row.inc, weighted_sums_grid) unless no_grid, and acc ≥ 6·dv_pad.
+  const double* v_max = nullptr;
+  bool no_grid = false;
   const FastTables* tables = nullptr;
   // Scratch, caller-owned: raw_hi/raw_lo ≥ Tk rounded up to kLanes, w_hi/w_lo ≥ n rounded up
   // to kLanes, acc ≥ 4·dv_pad.
@@ -79,6 +84,9 @@ struct FastRowOut {
   double lse = 0;         ///< RN(lse_ref)
   double lse_err = 0;     ///< |lse_ref − (m + log Ŝ)| (before the final inflation)
   bool ok = false;        ///< false: a non-finite value or a reduction out of range; escalate the row
+  /// The weighted sums ran on the grid σ_d = acc[5·dv_pad + d] (weighted_sums_grid):
+  /// H + L errs by the driver's grid_error·σ_d, not e_acc·Ḡ.
+  bool grid = false;
 };
 
 /// The kernel entry points, one set per instruction set. group(rows, outs,
