@@ -13,9 +13,10 @@
 //      exactly (two_sum of H and L, so |lo| ≤ u|hi|), and
 //      A_up = Ĝ(1 + 2^-49) + 2^-950 ≥ A (Ĝ is within 2^-49.5 of A).
 //      When X and W are float32-valued the products are exact and the sums
-//      run in triple-double (fast_row.inc, weighted_sums_exact): each element
-//      then carries its own radius, about 2^-106|Q| + n³u³A (project below),
-//      so the projections' uncertainty no longer scales with Σ|X||W|.
+//      run on two grids (fast_row.inc, weighted_sums_exact_grid; triple-double
+//      where a grid would overflow: weighted_sums_exact): each element then
+//      carries its own radius, about 2^-106|Q| + 8n³u³σ (project below), so
+//      the projections' uncertainty no longer scales with Σ|X||W|.
 //  (2) Core attention per head on Q̃, K̃, Ṽ with radii (fast_core.cpp, wide):
 //      ρ_q = ‖rad_q,row‖₂ ≥ ‖δq‖₂, ρ_k,j likewise, ρ_v,d = max_j rad_v,jd
 //      (rad = γ_P·A_up on the double-double sums).
@@ -44,6 +45,7 @@
 #include "fast_block.h"
 
 #include <algorithm>
+#include <bit>
 #include <cmath>
 #include <limits>
 #include <memory>
@@ -106,7 +108,7 @@ struct SumScratch {
     const auto n_pad = static_cast<std::size_t>((m.n + kLanes - 1) / kLanes * kLanes);
     w_hi[r].assign(n_pad, 0.0);
     w_lo[r].assign(n_pad, 0.0);
-    acc[r].resize(static_cast<std::size_t>(5 * m.pad));
+    acc[r].resize(static_cast<std::size_t>(6 * m.pad));
     FastRowArgs& a = args[r];
     a = FastRowArgs{};
     a.vp = m.vp.data();
@@ -167,6 +169,20 @@ Projection project(const FastKernels& kr, const Tensor& x, const Tensor& w, cons
   const double nd = static_cast<double>(m.n);
   const double cube = mul_up(mul_up(mul_up(nd, nd), mul_up(nd, 0x1p-159)), 1.0 + 0x1p-40);
   out.gamma = exact ? add_up(cube, mul_up(kU2, 1.0 + 0x1p-12)) : weighted_error(m.n);
+  // Exact products on grids (fast_row.inc, weighted_sums_exact_grid): per row t
+  // and column c, σ_tc = 2·2^⌊log2 x⌋ > x = 2(‖X_t‖·‖W_c‖ + |b_c|)(1 + 2^-50) ≥
+  // 2·Σ_m |X_tm W_mc| + 2|b_c| (Cauchy–Schwarz; the factor covers x's three
+  // roundings), at least 2^-900; a row with x > 2^999 somewhere keeps the
+  // triple-double sums. Then H + H2 + L2 is within γ_{n−1}·n·u·σ2 + n·2^-1075
+  // of Q_tc; taken to a double-double as above ((a, b) = two_sum(H, H2),
+  // c = RN(b + L2), two_sum(a, c)): rad = that + u|c|. γ is then the largest
+  // rad/A_up of the projection, computed (rounded up) beside it.
+  std::vector<double> w_norm(static_cast<std::size_t>(m.pad), 0.0);
+  if (exact)
+    for (std::int64_t c = 0; c < m.cols; ++c) w_norm[static_cast<std::size_t>(c)] = norm_up(&w.values[static_cast<std::size_t>(c)], dm, m.cols);
+  const double l2_coef = mul_up(mul_up(gamma_up(m.n - 1, kU), nd), kU);
+  const double to2 = exact_grid_ratio(m.n);
+  std::vector<double> gamma_of(workers, out.gamma);
   std::vector<SumScratch> scratch(workers);
   const std::int64_t groups = (rows + kMaxGroup - 1) / kMaxGroup;
   parallel_for(groups, workers, [&](std::int64_t grp, unsigned wk) {
@@ -178,13 +194,34 @@ Projection project(const FastKernels& kr, const Tensor& x, const Tensor& w, cons
       const double* xr = &x.values[static_cast<std::size_t>((grp * kMaxGroup + r) * dm)];
       std::copy(xr, xr + dm, sc.w_hi[r].begin());
       sc.w_hi[r][static_cast<std::size_t>(dm)] = 1.0;
+      if (exact) {
+        const double xn = norm_up(xr, dm);
+        double* sigma = sc.acc[r].data() + 5 * m.pad;
+        bool grid = m.n <= (std::int64_t{1} << 30);
+        for (std::int64_t c = 0; c < m.pad; ++c) {
+          const double bc = c < m.cols && !bias.values.empty() ? std::fabs(bias.values[static_cast<std::size_t>(c)]) : 0.0;
+          const double xc = 2 * (xn * w_norm[static_cast<std::size_t>(c)] + bc) * (1 + 0x1p-50);
+          if (!(xc <= 0x1p999)) grid = false;
+          const double floor2 = std::bit_cast<double>(std::bit_cast<std::uint64_t>(xc) & 0x7ff0000000000000ULL);
+          sigma[c] = std::max(2 * floor2, 0x1p-900);
+        }
+        sc.args[r].exact_grid = grid;
+      }
     }
     kr.weighted(sc.args, count);
     for (int r = 0; r < count; ++r)
       for (std::int64_t c = 0; c < m.cols; ++c) {
         const auto at = static_cast<std::size_t>((grp * kMaxGroup + r) * m.cols + c);
         out.a[at] = add_up(mul_up(sc.g(r, c, m.pad), 1.0 + 0x1p-49), kAbsFloor);
-        if (exact) {
+        if (exact && sc.args[r].exact_grid) {
+          double a = 0, b = 0;
+          two_sum(sc.h(r, c), sc.l3(r, c, m.pad), a, b);  // H, H2
+          const double cc = b + sc.l(r, c, m.pad);          // + L2
+          two_sum(a, cc, out.hi[at], out.lo[at]);
+          const double sigma2 = sc.acc[r][static_cast<std::size_t>(5 * m.pad + c)] * to2;
+          out.rad[at] = add_up(add_up(mul_up(l2_coef, sigma2), mul_up(kU, std::fabs(cc))), mul_up(nd, 0x1p-1074));
+          gamma_of[wk] = std::max(gamma_of[wk], div_up(out.rad[at], out.a[at]));
+        } else if (exact) {
           double a = 0, b = 0;
           two_sum(sc.h(r, c), sc.l(r, c, m.pad), a, b);
           const double cc = b + sc.l3(r, c, m.pad);
@@ -196,6 +233,7 @@ Projection project(const FastKernels& kr, const Tensor& x, const Tensor& w, cons
         }
       }
   });
+  for (const double g : gamma_of) out.gamma = std::max(out.gamma, g);
   return out;
 }
 

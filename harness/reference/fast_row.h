@@ -9,6 +9,7 @@
 // pieces combine in fast_core.cpp).
 #pragma once
 
+#include <cmath>
 #include <cstdint>
 
 namespace headroom::detail {
@@ -57,6 +58,9 @@ struct FastRowArgs {
   /// weighted() only: every w_hi·v product exact in double and w_lo = 0: triple-double
   /// sums (fast_row.inc, weighted_sums_exact), acc ≥ 5·dv_pad with L3 after GL.
   bool exact_sums = false;
+  /// With exact_sums: the sums run on the grids σ_c = acc[5·dv_pad + c] (fast_row.inc,
+  /// weighted_sums_exact_grid), acc ≥ 6·dv_pad, n ≤ 2^30; acc then holds H, L2, GH, GL, H2.
+  bool exact_grid = false;
   const double* q_lo = nullptr;
   const double* kt_lo = nullptr;
   const double* vp_lo = nullptr;
@@ -100,6 +104,13 @@ struct FastKernels {
   void (*weighted)(const FastRowArgs* rows, int count);
   const char* name;
 };
+
+/// Returns: σ2/σ = 2^(⌈log2 n⌉ − 51) of weighted_sums_exact_grid's second grid (n ≥ 1).
+inline double exact_grid_ratio(std::int64_t n) {
+  int e = 0;
+  while ((std::int64_t{1} << e) < n) ++e;
+  return std::ldexp(1.0, e - 51);
+}
 
 /// Returns: the AVX2+FMA kernels when the CPU has both, else the baseline ones.
 const FastKernels& fast_kernels();
