@@ -19,6 +19,7 @@ const hr_bundled_kernel kTable[] = {
     {&gqa_f32, 0, nullptr, nullptr},
     {&e4m3_tensorwise, 0, nullptr, nullptr},
     {&e4m3_blockwise, 0, nullptr, nullptr},
+    {&f32_varlen, 0, nullptr, nullptr},
     {&block_f32, 0, nullptr, nullptr},
     {&f32_backward_tiled, 0, nullptr, nullptr},
     {&f16_backward_f32acc, 0, nullptr, nullptr},
@@ -55,6 +56,8 @@ const hr_bundled_kernel kTable[] = {
     {&softcap_after_mask, 1, "mask_leak",
      "soft cap applied after the mask: tanh(-inf) = -1 gives masked keys the score -c, so they are attended"},
     {&sink_dropped, 1, "error", "sink logit left out of the softmax normaliser: rows too large by (S + e^sink) / S"},
+    {&varlen_offset_off_by_one, 1, "mask_leak",
+     "packed key range read to cu_kv_lens[n+1] + 1: each sequence but the last attends the next one's first key"},
     {nullptr, 0, nullptr, nullptr},  // sentinel, not counted
 };
 

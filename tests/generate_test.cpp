@@ -9,6 +9,7 @@
 
 #include "generate_support.h"
 #include "headroom/suite.h"
+#include "headroom/varlen.h"
 
 namespace headroom {
 namespace {
@@ -27,7 +28,7 @@ TEST(GenerateFamilies, ListedOnceWithDocsAndFound) {
     ASSERT_NE(found, nullptr) << f.name;
     EXPECT_EQ(found->name, f.name);
   }
-  EXPECT_EQ(names.size(), 21u);
+  EXPECT_EQ(names.size(), 22u);
   EXPECT_EQ(find_family("no_such_family"), nullptr);
   EXPECT_EQ(find_family("block_gaussian")->level, Level::block);
   EXPECT_EQ(find_family("gaussian")->level, Level::core);
@@ -79,9 +80,10 @@ TEST(GenerateValidity, EveryFamilyValidAcrossSeedsAndSizes) {
         EXPECT_TRUE(std::isfinite(scale) && scale > 0);
         // Default sizes keep the reference quick: Tk ≤ 64 but for the long families
         // (a sliding window needs rows longer than the window; fp8_scales' block
-        // kinds need two 64-token blocks).
+        // kinds need two 64-token blocks; varlen_edges packs several sequences,
+        // Tk is their total).
         if (c.level == Level::core && f.name != "tile_edges" && f.name != "long_sequence" &&
-            f.name != "sliding_window" && f.name != "fp8_scales") {
+            f.name != "sliding_window" && f.name != "fp8_scales" && f.name != "varlen_edges") {
           EXPECT_LE(c.core.shape.kv_len, 64);
         }
       }
@@ -144,7 +146,16 @@ TEST(GenerateValidity, RequestedShapeAndMaskAreObeyed) {
       const Case c = make_case(r);
       SCOPED_TRACE(c.name);
       EXPECT_EQ(errors_of(c), std::vector<std::string>{});
-      if (c.level == Level::core) {
+      if (c.core.mask.is_varlen()) {
+        // A packed batch: the shape is told as N sequences of at most Tq, Tk
+        // (varlen.h); key padding, dense and bias requests get no mask.
+        const CoreShape told = declared_shape(c.core.shape, c.core.mask);
+        EXPECT_EQ(told.batch, shape.batch);
+        EXPECT_LE(told.q_len, shape.q_len);
+        EXPECT_LE(told.kv_len, shape.kv_len);
+        const bool kept = m == MaskKind::none || m == MaskKind::causal_top_left || m == MaskKind::causal_bottom_right;
+        EXPECT_EQ(c.core.mask.kind, kept ? m : MaskKind::none);
+      } else if (c.level == Level::core) {
         EXPECT_EQ(c.core.shape, shape);
         EXPECT_EQ(c.core.mask.kind, m);
       } else {

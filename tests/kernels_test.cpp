@@ -226,7 +226,7 @@ TEST(BundledTable, SoundKernelsHaveNoFaultAndSpecimensHaveOne) {
     EXPECT_TRUE(kFaultClasses.count(t[i].expected_fault)) << name << ": " << t[i].expected_fault;
     EXPECT_GT(std::strlen(t[i].defect), 10u) << name;
   }
-  EXPECT_EQ(specimens, 23);
+  EXPECT_EQ(specimens, 24);
 }
 
 TEST(BundledTable, HoldsEveryKernelWithItsExpectedFault) {
@@ -242,6 +242,7 @@ TEST(BundledTable, HoldsEveryKernelWithItsExpectedFault) {
       {"gqa_f32", nullptr},
       {"e4m3_tensorwise", nullptr},
       {"e4m3_blockwise", nullptr},
+      {"f32_varlen", nullptr},
       {"no_max_shift", "non_finite"},
       {"mask_tail_off_by_one", "mask_leak"},
       {"nan_masked_rows", "convention"},
@@ -267,6 +268,7 @@ TEST(BundledTable, HoldsEveryKernelWithItsExpectedFault) {
       {"backward_masked_keys", "masked_key_gradient"},
       {"softcap_after_mask", "mask_leak"},
       {"sink_dropped", "error"},
+      {"varlen_offset_off_by_one", "mask_leak"},
   };
   std::size_t n = 0;
   const hr_bundled_kernel* t = headroom_bundled_kernels(&n);

@@ -19,7 +19,7 @@ constexpr std::uint32_t kAllMasks = HR_MASK_NONE | HR_MASK_CAUSAL_TOP_LEFT | HR_
                                     HR_MASK_KEY_PADDING | HR_MASK_DENSE | HR_MASK_BIAS;
 constexpr std::uint32_t kAllLayouts = HR_LAYOUT_BHTD | HR_LAYOUT_BTHD;
 // The HR_FEATURE_* bits this build judges; the others are refused (refuse_unjudged).
-constexpr std::uint32_t kJudgedFeatures = HR_FEATURE_WINDOW | HR_FEATURE_SOFTCAP | HR_FEATURE_SINKS;
+constexpr std::uint32_t kJudgedFeatures = HR_FEATURE_WINDOW | HR_FEATURE_SOFTCAP | HR_FEATURE_SINKS | HR_FEATURE_VARLEN;
 constexpr MaskKind kMaskKinds[] = {MaskKind::none,        MaskKind::causal_top_left, MaskKind::causal_bottom_right,
                                    MaskKind::key_padding, MaskKind::dense,           MaskKind::bias};
 
@@ -135,7 +135,7 @@ void refuse_unjudged(const hr_kernel* k, const std::string& kernel, const std::s
     const char* what;
   };
   const Field fields[] = {
-      {"features", (k->features & ~kJudgedFeatures) != 0, "paged, packed and split attention"},
+      {"features", (k->features & ~kJudgedFeatures) != 0, "paged and split attention"},
       {"split_kv_len", k->split_kv_len != 0, "split-KV partial results"},
   };
   for (const Field& f : fields) {
@@ -232,7 +232,8 @@ std::uint32_t mask_bit(MaskKind k) {
 bool KernelDeclaration::supports(MaskKind k) const { return (mask_kinds & mask_bit(k)) != 0; }
 
 bool KernelDeclaration::accepts(const Mask& m) const {
-  return supports(m.kind) && (!m.has_window() || (features & HR_FEATURE_WINDOW) != 0);
+  return supports(m.kind) && (!m.has_window() || (features & HR_FEATURE_WINDOW) != 0) &&
+         (!m.is_varlen() || (features & HR_FEATURE_VARLEN) != 0);
 }
 
 void check_declaration(const KernelDeclaration& d, const std::string& origin) {
@@ -296,10 +297,11 @@ void check_declaration(const KernelDeclaration& d, const std::string& origin) {
   }
   if ((d.features & ~kJudgedFeatures) != 0) {
     refuse(origin, "field \"features\"", who(d) + " declares features this headroom does not judge yet",
-           "declare only HR_FEATURE_WINDOW, HR_FEATURE_SOFTCAP and HR_FEATURE_SINKS (\"window\", \"softcap\", \"sinks\") for now");
+           "declare only HR_FEATURE_WINDOW, HR_FEATURE_SOFTCAP, HR_FEATURE_SINKS and HR_FEATURE_VARLEN "
+           "(\"window\", \"softcap\", \"sinks\", \"varlen\") for now");
   }
-  if (d.backward && (d.features & (HR_FEATURE_SOFTCAP | HR_FEATURE_SINKS)) != 0) {
-    refuse(origin, "field \"features\"", who(d) + " declares a backward entry with soft caps or sinks",
+  if (d.backward && (d.features & (HR_FEATURE_SOFTCAP | HR_FEATURE_SINKS | HR_FEATURE_VARLEN)) != 0) {
+    refuse(origin, "field \"features\"", who(d) + " declares a backward entry with soft caps, sinks or variable lengths",
            "headroom does not judge their gradients yet: declare them on a forward-only kernel");
   }
   const std::pair<const char*, std::int64_t> counts[] = {{"head_dim_multiple", d.head_dim_multiple},
@@ -480,6 +482,7 @@ std::string declaration_summary(const KernelDeclaration& d) {
   if (d.features & HR_FEATURE_WINDOW) s += " window=yes";
   if (d.features & HR_FEATURE_SOFTCAP) s += " softcap=yes";
   if (d.features & HR_FEATURE_SINKS) s += " sinks=yes";
+  if (d.features & HR_FEATURE_VARLEN) s += " varlen=yes";
   if (d.backward) {
     s += " backward=yes";
     if (d.backward_flags & HR_BACKWARD_RECOMPUTES) s += ",recomputes";

@@ -26,7 +26,8 @@ const std::set<std::string> kFieldsV2 = {"key_dims",  "value_dims", "head_dim_mu
                                          "fp8_saturating", "p_quant", "p_scale"};
 // The protocol-2 names of kernel_abi.h's HR_FEATURE_* bits this build judges.
 const std::pair<const char*, std::uint32_t> kFeatureNames[] = {
-    {"window", HR_FEATURE_WINDOW}, {"softcap", HR_FEATURE_SOFTCAP}, {"sinks", HR_FEATURE_SINKS}};
+    {"window", HR_FEATURE_WINDOW}, {"softcap", HR_FEATURE_SOFTCAP}, {"sinks", HR_FEATURE_SINKS},
+    {"varlen", HR_FEATURE_VARLEN}};
 
 std::string place(const std::string& field) { return "describe output, field \"" + field + "\""; }
 

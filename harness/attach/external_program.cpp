@@ -16,6 +16,7 @@
 #include "attach/served_program.h"
 #include "headroom/input_error.h"
 #include "headroom/npy.h"
+#include "headroom/varlen.h"
 
 namespace headroom {
 namespace {
@@ -185,6 +186,18 @@ void write_exchange(const fs::path& dir, const ReceivedCase& c, const KernelDecl
       put(dir, "sinks.npy", raw_array({static_cast<std::int64_t>(k.core.sinks.size())}, "<f4", k.core.sinks.data(),
                                       k.core.sinks.size() * sizeof(float)));
       problem["sinks"] = "sinks.npy";
+    }
+    // Protocol 2, a program that declared "varlen": "shape" keeps the packed
+    // tensors' extents (batch 1, Tq and Tk the totals), "varlen" the rest (docs/varlen.md).
+    if (k.core.mask.is_varlen()) {
+      const Mask& m = k.core.mask;
+      const CoreShape told = declared_shape(s, m);
+      put(dir, "cu_q_lens.npy", raw_array({static_cast<std::int64_t>(m.cu_q_lens.size())}, "<i8", m.cu_q_lens.data(),
+                                          m.cu_q_lens.size() * sizeof(std::int64_t)));
+      put(dir, "cu_kv_lens.npy", raw_array({static_cast<std::int64_t>(m.cu_kv_lens.size())}, "<i8", m.cu_kv_lens.data(),
+                                           m.cu_kv_lens.size() * sizeof(std::int64_t)));
+      problem["varlen"] = {{"sequences", told.batch},         {"max_q_len", told.q_len}, {"max_kv_len", told.kv_len},
+                           {"cu_q_lens", "cu_q_lens.npy"}, {"cu_kv_lens", "cu_kv_lens.npy"}};
     }
     if (is_quantised(d.input_format)) {
       json quant = json::object();

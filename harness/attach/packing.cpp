@@ -7,6 +7,7 @@
 #include <string>
 
 #include "attach/elements.h"
+#include "headroom/varlen.h"
 
 namespace headroom::attach_detail {
 namespace {
@@ -217,13 +218,22 @@ void pack_core(const ReceivedCase& c, const KernelDeclaration& d, PackedCall& p)
   const std::vector<float>& sinks = c.received.core.sinks;
   std::optional<std::size_t> sinks_slot;
   if (!sinks.empty()) sinks_slot = p.arena.add("sinks", Role::input, sinks.size() * sizeof(float));
+  const Mask& case_mask = c.received.core.mask;
+  std::size_t cu_slot[2] = {0, 0};
+  if (case_mask.is_varlen()) {
+    cu_slot[0] = p.arena.add("cu_q_lens", Role::input, case_mask.cu_q_lens.size() * sizeof(std::int64_t));
+    cu_slot[1] = p.arena.add("cu_kv_lens", Role::input, case_mask.cu_kv_lens.size() * sizeof(std::int64_t));
+  }
   if (d.returns_lse) {
     p.lse_slot = p.arena.add("lse", Role::output, static_cast<std::size_t>(s.batch * s.q_heads * s.q_len) * sizeof(float));
   }
   p.arena.allocate();
   hr_core_problem& cp = p.core;
-  cp.batch = s.batch, cp.q_heads = s.q_heads, cp.kv_heads = s.kv_heads;
-  cp.q_len = s.q_len, cp.kv_len = s.kv_len, cp.key_dim = s.key_dim, cp.value_dim = s.value_dim;
+  // A packed batch is told as N sequences of at most the largest lengths; its
+  // tensors keep the case's extents [1, H, total, D] (kernel_abi.h, varlen.h).
+  const CoreShape told = declared_shape(s, case_mask);
+  cp.batch = told.batch, cp.q_heads = s.q_heads, cp.kv_heads = s.kv_heads;
+  cp.q_len = told.q_len, cp.kv_len = told.kv_len, cp.key_dim = s.key_dim, cp.value_dim = s.value_dim;
   cp.scale = c.received.core.scale;
   cp.mask = fill_mask(p.arena, mask);
   cp.q = fill_input(p.arena, q, f);
@@ -234,6 +244,15 @@ void pack_core(const ReceivedCase& c, const KernelDeclaration& d, PackedCall& p)
     cp.features |= HR_FEATURE_WINDOW;
     cp.window_left = c.received.core.mask.window_left;
     cp.window_right = c.received.core.mask.window_right;
+  }
+  if (case_mask.is_varlen()) {
+    cp.features |= HR_FEATURE_VARLEN;
+    auto* q_dst = reinterpret_cast<std::int64_t*>(p.arena.data(cu_slot[0]));
+    auto* kv_dst = reinterpret_cast<std::int64_t*>(p.arena.data(cu_slot[1]));
+    std::copy(case_mask.cu_q_lens.begin(), case_mask.cu_q_lens.end(), q_dst);
+    std::copy(case_mask.cu_kv_lens.begin(), case_mask.cu_kv_lens.end(), kv_dst);
+    cp.cu_q_lens = q_dst;
+    cp.cu_kv_lens = kv_dst;
   }
   if (c.received.core.has_softcap()) {
     cp.features |= HR_FEATURE_SOFTCAP;
@@ -436,7 +455,8 @@ void unpack_gradients(const PackedBackward& p, BackwardRun& r) {
 
 Tensor unpack_lse(const PackedCall& p) {
   if (!p.lse_slot) return Tensor{};
-  Tensor lse({p.core.batch, p.core.q_heads, p.core.q_len});
+  // [B, Hq, Tq] of the case; [1, Hq, total] for a packed batch, whose p.core says N and the largest Tq.
+  Tensor lse({p.out_shape[0], p.out_shape[1], p.out_shape[2]});
   const unsigned char* src = p.arena.data(*p.lse_slot);
   for (std::size_t i = 0; i < lse.values.size(); ++i) lse.values[i] = load_element(Format::float32, src + i * sizeof(float));
   return lse;

@@ -8,6 +8,7 @@
 #include "headroom/binary16.h"
 #include "headroom/input_error.h"
 #include "headroom/kernel_abi.h"
+#include "headroom/varlen.h"
 
 namespace headroom {
 namespace {
@@ -87,12 +88,22 @@ std::optional<std::string> why_unfit(const Case& c, const KernelDeclaration& d) 
   if (!d.supports(mask.kind)) {
     return "kernel \"" + d.name + "\" does not declare mask kind " + std::string(mask_kind_name(mask.kind));
   }
+  if (mask.is_varlen() && (d.features & HR_FEATURE_VARLEN) == 0) return std::string("variable lengths not declared");
   if (!d.accepts(mask)) return std::string("sliding window not declared");
   if (c.level == Level::core && c.core.has_softcap() && (d.features & HR_FEATURE_SOFTCAP) == 0)
     return std::string("soft cap not declared");
   if (c.level == Level::core && c.core.has_sinks() && (d.features & HR_FEATURE_SINKS) == 0)
     return std::string("sink logits not declared");
-  if (auto reason = d.shape_unfit(shape)) return reason;
+  // A packed batch is declared to the kernel as N sequences of at most the
+  // largest lengths (kernel_abi.h), and its limits apply to that.
+  const bool offsets_ok = validate_varlen(mask, shape).empty();  // sequence() may index them
+  if (auto reason = d.shape_unfit(offsets_ok ? declared_shape(shape, mask) : shape)) return reason;
+  for (std::int64_t n = 0; offsets_ok && n < sequence_count(mask) && d.kv_len_multiple > 1; ++n) {
+    const std::int64_t tk = sequence(mask, n).kv_len;
+    if (tk % d.kv_len_multiple != 0)
+      return "Tk " + std::to_string(tk) + " of sequence " + std::to_string(n) + " not a multiple of the declared " +
+             std::to_string(d.kv_len_multiple);
+  }
   if (c.level == Level::block && is_quantised(d.input_format)) {
     return std::string(format_name(d.input_format)) + " input at block level is not supported (only Q, K, V are quantised)";
   }

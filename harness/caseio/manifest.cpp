@@ -13,6 +13,7 @@
 #include "headroom/case_folder.h"
 #include "headroom/input_error.h"
 #include "headroom/json_input.h"
+#include "headroom/varlen.h"
 
 namespace headroom::case_detail {
 namespace {
@@ -156,6 +157,40 @@ void read_score_features(const json& root, const Reader& r, CoreProblem& p) {
   }
 }
 
+// A packed variable-length batch (kernel_abi.h version 2, HR_FEATURE_VARLEN):
+// "varlen": {"q_lens": [...], "kv_lens": [...]}, one entry per sequence.
+void read_varlen(const json& root, const Reader& r, CoreProblem& p) {
+  auto it = root.find("varlen");
+  if (it == root.end()) return;
+  if (!it->is_object()) r.fail("varlen", Reader::type_problem("an object {\"q_lens\": [...], \"kv_lens\": [...]}", *it));
+  r.only_keys(*it, {"q_lens", "kv_lens"}, "varlen");
+  std::vector<std::int64_t> lens[2];
+  const char* keys[2] = {"q_lens", "kv_lens"};
+  for (int a = 0; a < 2; ++a) {
+    const json& v = r.member(*it, keys[a], "varlen");
+    const std::string field = std::string("varlen.") + keys[a];
+    if (!v.is_array() || v.empty()) r.fail(field, Reader::type_problem("a non-empty array of lengths, one per sequence", v));
+    for (std::size_t n = 0; n < v.size(); ++n) {
+      const std::int64_t l = r.int_of(v[n], field + "[" + std::to_string(n) + "]");
+      if (l < 0 || l > (std::int64_t{1} << 40))
+        r.fail(field + "[" + std::to_string(n) + "]", "length " + std::to_string(l) + " is out of range",
+               "give a length in [0, 2^40]");
+      lens[a].push_back(l);
+    }
+  }
+  if (lens[0].size() != lens[1].size())
+    r.fail("varlen.kv_lens", std::to_string(lens[1].size()) + " key lengths for " + std::to_string(lens[0].size()) + " sequences",
+           "give one query length and one key length per sequence");
+  const std::vector<std::int64_t> cu_q = offsets_of(lens[0]), cu_kv = offsets_of(lens[1]);
+  if (cu_q.back() != p.shape.q_len || cu_kv.back() != p.shape.kv_len || p.shape.batch != 1)
+    r.fail("varlen", "the lengths sum to " + std::to_string(cu_q.back()) + " queries and " + std::to_string(cu_kv.back()) +
+                         " keys, the shape says batch " + std::to_string(p.shape.batch) + ", q_len " +
+                         std::to_string(p.shape.q_len) + ", kv_len " + std::to_string(p.shape.kv_len),
+           "a packed batch has shape batch 1, q_len the sum of q_lens, kv_len the sum of kv_lens (docs/varlen.md)");
+  p.mask.cu_q_lens = cu_q;
+  p.mask.cu_kv_lens = cu_kv;
+}
+
 }  // namespace
 
 bool valid_case_name(std::string_view name) {
@@ -169,7 +204,7 @@ Case parse_manifest(std::string_view text, const std::string& file) {
   const json root = parse_json(text, file);
   const Reader r(file);
   r.only_keys(root, {"headroom_case", "name", "level", "shape", "scale", "scale_hex", "softcap_hex", "sinks_hex",
-                     "source_format", "mask", "provenance"},
+                     "varlen", "source_format", "mask", "provenance"},
               "");
 
   const std::int64_t version = r.int_at(root, "headroom_case", "");
@@ -246,9 +281,10 @@ Case parse_manifest(std::string_view text, const std::string& file) {
     c.core.scale = scale;
     c.core.mask = std::move(mask);
     read_score_features(root, r, c.core);
+    read_varlen(root, r, c.core);
   } else {
-    for (const char* key : {"softcap_hex", "sinks_hex"})
-      if (root.contains(key)) r.fail(key, std::string(key) + " given for a block case", "remove it: only core cases soft-cap or sink");
+    for (const char* key : {"softcap_hex", "sinks_hex", "varlen"})
+      if (root.contains(key)) r.fail(key, std::string(key) + " given for a block case", "remove it: only core cases soft-cap, sink or pack variable lengths");
     c.block.shape = BlockShape{cs.batch, cs.q_len, cs.kv_len, extent("model_dim"), cs.q_heads, cs.kv_heads, cs.key_dim, cs.value_dim};
     c.block.scale = scale;
     c.block.mask = std::move(mask);
@@ -287,6 +323,8 @@ std::string format_manifest(const Case& c) {
     for (float x : c.core.sinks) sinks.push_back(float_text(x, "%a"));
     j["sinks_hex"] = sinks;
   }
+  if (core && mask.is_varlen())
+    j["varlen"] = ordered{{"q_lens", lengths_of(mask.cu_q_lens)}, {"kv_lens", lengths_of(mask.cu_kv_lens)}};
   j["source_format"] = std::string(format_name(c.source_format));
   ordered m;
   m["kind"] = std::string(mask_kind_name(mask.kind));

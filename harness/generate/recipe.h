@@ -86,6 +86,7 @@ std::vector<FamilyImpl> edge_families();        // format_edges, masks, cancelli
 std::vector<FamilyImpl> window_families();      // sliding_window
 std::vector<FamilyImpl> fp8_families();         // fp8_scales
 std::vector<FamilyImpl> score_feature_families();  // capped_logits, dominant_sinks
+std::vector<FamilyImpl> varlen_families();          // varlen_edges
 
 // ---- shared helpers (shapes.cpp) ----
 

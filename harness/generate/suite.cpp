@@ -49,6 +49,18 @@ void full_head_blocks(Builder& b, std::uint64_t base, int seeds) {
   }
 }
 
+// Packed variable-length batches at serving shapes: the batch is the number
+// of sequences, Tq and Tk the largest lengths (family_varlen.cpp); the seed
+// picks the length pattern (one long sequence among short ones, tile edges, ...).
+void varlen_production(Builder& b, std::uint64_t base, int seeds) {
+  for (int s = 0; s < seeds; ++s) {
+    const std::uint64_t seed = base + 10 * static_cast<std::uint64_t>(s);
+    b.add("varlen_edges", seed, 100, shape(8, 8, 2, 64, 600, 128, 128), MaskKind::causal_bottom_right);
+    b.add("varlen_edges", seed + 1, 100, shape(4, 8, 1, 32, 2049, 64, 64), MaskKind::causal_bottom_right);
+    b.add("varlen_edges", seed + 2, 100, shape(8, 4, 4, 16, 257, 256, 256), MaskKind::none);
+  }
+}
+
 std::vector<CaseRequest> quick() {
   Builder b;
   every_family(b, 1, 2, {20});
@@ -84,6 +96,7 @@ std::vector<CaseRequest> standard() {
   }
   for (const FamilyInfo& f : kFamilies) b.add(f.name, 701, 30, std::nullopt, MaskKind::causal_bottom_right);
   full_head_blocks(b, 901, 4);
+  varlen_production(b, 1701, 1);
   generate_internal::production_sections(b, generate_internal::Depth::standard, 1001);
   return b.take();
 }
@@ -108,6 +121,7 @@ std::vector<CaseRequest> deep() {
   for (const FamilyInfo& f : kFamilies)
     for (MaskKind m : kAllMasks) b.add(f.name, 801, 30, std::nullopt, m);
   full_head_blocks(b, 901, 8);
+  varlen_production(b, 2701, 4);
   generate_internal::production_sections(b, generate_internal::Depth::deep, 2001);
   return b.take();
 }

@@ -125,7 +125,7 @@ std::vector<std::string> coverage_text(const SuiteCoverage& c) {
       "masks: " + join(c.masks),
       "families: " + std::to_string(c.families.size()) + " of " + std::to_string(std::size(kFamilies)),
       "inference features (kernel_abi.h v2, only for kernels declaring them): " + features +
-          "; not yet: paged K/V, packed variable lengths, split-KV partials",
+          "; not yet: paged K/V, split-KV partials",
       "formats: the kernel's own, each case rounded or quantised to the input format it declares: " + format_list() +
           " (scales per tensor, head, token, channel or block as declared)",
   };

@@ -1,6 +1,8 @@
 // headroom — the problem model: mask semantics and validation (see problem.h).
 #include "headroom/problem.h"
 
+#include "headroom/varlen.h"
+
 #include <array>
 #include <cmath>
 #include <cstdio>
@@ -251,6 +253,20 @@ bool kind_visible(const Mask& m, const CoreShape& s, std::int64_t b, std::int64_
 }  // namespace
 
 bool Mask::visible(const CoreShape& s, std::int64_t b, std::int64_t h, std::int64_t i, std::int64_t j) const {
+  if (is_varlen()) {
+    // Each sequence is its own problem: its keys only, its own lengths and
+    // local positions for causal alignment and the window (varlen.h).
+    const SequenceSpan q = sequence_of_row(*this, i);
+    if (j < q.kv_begin || j >= q.kv_begin + q.kv_len) return false;
+    CoreShape local = s;
+    local.q_len = q.q_len;
+    local.kv_len = q.kv_len;
+    Mask plain;
+    plain.kind = kind;
+    plain.window_left = window_left;
+    plain.window_right = window_right;
+    return plain.visible(local, b, h, i - q.q_begin, j - q.kv_begin);
+  }
   if (!kind_visible(*this, s, b, h, i, j)) return false;
   if (!has_window()) return true;
   const std::int64_t at = kind == MaskKind::causal_top_left ? i : i + (s.kv_len - s.q_len);
@@ -285,7 +301,10 @@ std::vector<ProblemError> validate(const CoreProblem& p) {
   check_scale(p.scale, f);
   if (shape_ok) check_mask(p.mask, p.shape, f);
   check_score_features(p, f);
-  return f.take();
+  std::vector<ProblemError> out = f.take();
+  if (shape_ok)
+    for (ProblemError& e : validate_varlen(p.mask, p.shape)) out.push_back(std::move(e));
+  return out;
 }
 
 std::vector<ProblemError> validate(const CoreProblem& p, const CoreInputs& in) {
@@ -316,6 +335,8 @@ std::vector<ProblemError> validate(const BlockProblem& p) {
       }
     }
     check_mask(p.mask, s.core(), f);
+    if (p.mask.is_varlen() || !p.mask.cu_kv_lens.empty())
+      f.add("mask.cu_q_lens", "no variable lengths at block level", "offsets");
   }
   return f.take();
 }

@@ -5,6 +5,7 @@
 #include <string>
 
 #include "headroom/input_error.h"
+#include "headroom/varlen.h"
 
 namespace headroom::detail {
 namespace {
@@ -55,7 +56,13 @@ void visible_keys(const CoreShape& s, const Mask& mask, std::int64_t b, std::int
                   std::vector<std::int64_t>& keys, std::vector<double>& bias) {
   keys.clear();
   bias.clear();
-  for (std::int64_t j = 0; j < s.kv_len; ++j) {
+  // A varlen row sees only its own sequence's keys: scan just those (varlen.h).
+  std::int64_t begin = 0, end = s.kv_len;
+  if (mask.is_varlen()) {
+    const SequenceSpan q = sequence_of_row(mask, i);
+    begin = q.kv_begin, end = q.kv_begin + q.kv_len;
+  }
+  for (std::int64_t j = begin; j < end; ++j) {
     if (!mask.visible(s, b, h, i, j)) continue;
     keys.push_back(j);
     if (mask.kind == MaskKind::bias) bias.push_back(mask.bias_at(b, h, i, j));

@@ -12,6 +12,7 @@
 
 #include "headroom/faults.h"
 #include "headroom/scores.h"
+#include "headroom/varlen.h"
 
 namespace headroom {
 namespace {
@@ -53,8 +54,15 @@ MaskKind opposite(MaskKind k) {
   return k == MaskKind::causal_top_left ? MaskKind::causal_bottom_right : MaskKind::causal_top_left;
 }
 
+// Causal with Tq ≠ Tk; in a packed batch, in some sequence (each is aligned on its own lengths).
 bool applies(const Mask& m, const CoreShape& s) {
-  return (m.kind == MaskKind::causal_top_left || m.kind == MaskKind::causal_bottom_right) && s.q_len != s.kv_len;
+  if (m.kind != MaskKind::causal_top_left && m.kind != MaskKind::causal_bottom_right) return false;
+  if (!m.is_varlen()) return s.q_len != s.kv_len;
+  for (std::int64_t n = 0; n < sequence_count(m); ++n) {
+    const SequenceSpan q = sequence(m, n);
+    if (q.q_len > 0 && q.q_len != q.kv_len) return true;
+  }
+  return false;
 }
 
 std::optional<Fault> verdict(MaskKind declared, const Distance& mine, const Distance& other) {

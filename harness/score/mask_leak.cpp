@@ -17,6 +17,7 @@
 #include "headroom/faults.h"
 #include "headroom/fp8.h"
 #include "headroom/scores.h"
+#include "headroom/varlen.h"
 
 namespace headroom {
 namespace {
@@ -299,9 +300,13 @@ std::optional<Fault> detect_mask_leak(AttachedKernel& kernel, const ReceivedCase
       const Group& gr = *first_group;
       const RowRef rr = row_ref(c, gr, first_row);
       const auto [h0, i0] = gr.rows[first_row];
-      const std::string first_text = block ? "(b=" + std::to_string(gr.b) + ", i=" + std::to_string(i0) + ")"
-                                           : "(b=" + std::to_string(gr.b) + ", h=" + std::to_string(h0) +
-                                                 ", i=" + std::to_string(i0) + ")";
+      const Mask& case_mask = block ? c.received.block.mask : c.received.core.mask;
+      const bool varlen = !block && case_mask.is_varlen();
+      // A packed batch names the sequence and the row's place in it (varlen.h).
+      const std::string first_text =
+          block    ? "(b=" + std::to_string(gr.b) + ", i=" + std::to_string(i0) + ")"
+          : varlen ? "(h=" + std::to_string(h0) + ", i=" + std::to_string(i0) + ": " + row_place(case_mask, i0) + ")"
+                   : "(b=" + std::to_string(gr.b) + ", h=" + std::to_string(h0) + ", i=" + std::to_string(i0) + ")";
       // A leak reproduces: the same poisoned call gives the same row again,
       // and the unpoisoned call still gives the baseline's. A kernel whose
       // output varies between identical calls fails one of the two, and is
@@ -379,7 +384,13 @@ std::optional<Fault> detect_mask_leak(AttachedKernel& kernel, const ReceivedCase
       f.count = changed;
       const std::string& row_text = first_text;
       f.where = block ? std::vector<std::int64_t>{gr.b, i0} : std::vector<std::int64_t>{gr.b, h0, i0};
-      if (cand.size() == 1) {
+      if (cand.size() == 1 && varlen) {
+        f.where.push_back(cand[0]);
+        const bool other = sequence_of_row(case_mask, i0).kv_begin > cand[0] ||
+                           sequence_of_row(case_mask, i0).kv_begin + sequence_of_row(case_mask, i0).kv_len <= cand[0];
+        f.detail = "masked key j=" + std::to_string(cand[0]) + " (" + key_place(case_mask, cand[0]) + ") changes row " +
+                   row_text + (other ? ", which must see only its own sequence's keys" : "");
+      } else if (cand.size() == 1) {
         f.where.push_back(cand[0]);
         f.detail = "masked key j=" + std::to_string(cand[0]) + " changes row " + row_text;
       } else {

@@ -43,7 +43,10 @@ class Kernel:
             raise ValueError("arrays must be 'numpy' or 'torch'")
         self.fn = fn
         self.mask_as, self.expand_groups, self.arrays, self.device = mask_as, expand_groups, arrays, device
-        self.takes_problem = "problem" in inspect.signature(fn).parameters
+        params = inspect.signature(fn).parameters
+        self.takes_problem = "problem" in params
+        # Protocol 2 score features, passed to a function that names them.
+        self.takes_softcap, self.takes_sinks = "softcap" in params, "sinks" in params
         self.declaration = {
             "protocol": 2,
             "name": name,
@@ -90,6 +93,10 @@ class Kernel:
         kwargs = {"scale": p.scale, "mask": self._array(mask, None)}
         if self.takes_problem:
             kwargs["problem"] = p
+        if self.takes_softcap:
+            kwargs["softcap"] = p.softcap
+        if self.takes_sinks:
+            kwargs["sinks"] = self._array(p.sinks(), None)
         if p.level == "core":
             q, k, v = p.tensor("q"), p.tensor("k"), p.tensor("v")
             if self.expand_groups:
@@ -171,7 +178,11 @@ def kernel(name, input_format, output_format, masks=("none",), level="core", mas
     bias with -inf where masked (mask_as="bias"). scale is the exact float32
     scale as a Python float. Outputs may be any float array or tensor: they are
     rounded to the output format to nearest, ties to even. Raise Unsupported to
-    decline a problem. `extra` holds further declaration fields (max_kv_len,
+    decline a problem. A function naming `softcap` or `sinks` gets the cap c (a
+    float, or None) and the float32 [Hq] sink logits (or None); declare them
+    with features=["softcap", "sinks"]. With features=["varlen"] a packed
+    variable-length batch arrives as batch 1 with a block-diagonal mask (each
+    sequence sees only its own keys); problem.cu_lens() gives the offsets. `extra` holds further declaration fields (max_kv_len,
     key_dims, ...: docs/external-program.md). serve=False: one-shot mode only.
     """
 

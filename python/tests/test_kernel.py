@@ -144,3 +144,58 @@ def test_serve_mode_answers_many_calls_and_survives_an_exception(tmp_path):
     assert "chatter on stdout" in done.stderr and "Traceback" in done.stderr
     assert done.returncode == 0
     assert (folders[3] / "o.npy").exists() and not (folders[1] / "o.npy").exists()
+
+
+def packed_exchange(folder, mask, window=None, softcap=None, sinks=False):
+    """A packed variable-length core problem as write_exchange lays it out:
+    sequences (Tq, Tk) = (2, 3), (0, 1), (3, 2) packed to Tq 5, Tk 6."""
+    p = exchange(folder, mask, b=1, hq=2, hkv=1, tq=5, tk=6)
+    j = p.json
+    np.save(os.path.join(folder, "cu_q_lens.npy"), np.array([0, 2, 2, 5], "<i8"))
+    np.save(os.path.join(folder, "cu_kv_lens.npy"), np.array([0, 3, 4, 6], "<i8"))
+    j["varlen"] = {"sequences": 3, "max_q_len": 3, "max_kv_len": 3, "cu_q_lens": "cu_q_lens.npy",
+                   "cu_kv_lens": "cu_kv_lens.npy"}
+    if window is not None:
+        j["mask"]["window"] = window
+    if softcap is not None:
+        j["softcap"], j["softcap_hex"] = softcap, float.hex(softcap)
+    if sinks:
+        np.save(os.path.join(folder, "sinks.npy"), np.array([0.5, -2.0], "<f4"))
+        j["sinks"] = "sinks.npy"
+    with open(os.path.join(folder, "problem.json"), "w") as f:
+        json.dump(j, f)
+    return Problem(folder)
+
+
+def test_packed_batches_are_block_diagonal_with_per_sequence_alignment(tmp_path):
+    p = packed_exchange(str(tmp_path), "causal_bottom_right")
+    seen = p.visible()
+    assert seen.shape == (1, 1, 5, 6)
+    want = np.zeros((5, 6), bool)
+    want[0, 0:2] = True             # sequence 0 (Tq 2, Tk 3): query 0 sees keys 0, 1
+    want[1, 0:3] = True
+    want[2, 4] = False              # sequence 2 (Tq 3, Tk 2): its first query sees nothing
+    want[3, 4] = True
+    want[4, 4:6] = True
+    assert (seen[0, 0] == want).all()
+    assert [list(c) for c in p.cu_lens()] == [[0, 2, 2, 5], [0, 3, 4, 6]]
+
+
+def test_window_softcap_and_sinks_reach_the_function(tmp_path):
+    p = packed_exchange(str(tmp_path), "none", window={"left": 0, "right": 0}, softcap=12.5, sinks=True)
+    seen = p.visible()[0, 0]
+    # Mask none aligns bottom-right: sequence 0's query i sits at key i + 1.
+    assert seen[0].tolist() == [False, True, False, False, False, False]
+    assert p.softcap == 12.5
+    assert p.sinks().tolist() == [0.5, -2.0]
+    got = {}
+
+    @kernel(name="k", input_format="float32", output_format="float32", returns_lse=True,
+            features=["varlen", "softcap", "sinks"])
+    def attend(q, k, v, scale, mask, softcap, sinks):
+        got["softcap"], got["sinks"] = softcap, sinks
+        return np.zeros(q.shape[:3] + (v.shape[3],)), np.zeros(q.shape[:3])
+
+    attend.solve(str(tmp_path))
+    assert got["softcap"] == 12.5 and got["sinks"].tolist() == [0.5, -2.0]
+    assert attend.declaration["features"] == ["varlen", "softcap", "sinks"]

@@ -191,6 +191,18 @@ inline constexpr FamilyInfo kFamilies[] = {
      "Xiao et al. 2024, Efficient Streaming Language Models with Attention Sinks, §3 (a learnable sink "
      "logit in the softmax denominator; from memory)",
      Level::core, "sinks"},
+    {"varlen_edges", "packed variable-length batches: lengths 0 and 1, one long among short, offsets on tile edges",
+     "Gaussian Q, K, V packed as N ≥ 2 sequences (kernel_abi.h version 2, HR_FEATURE_VARLEN: tensors "
+     "[1, H, total, D], cu_q_lens and cu_kv_lens the offsets); the shape's batch is N and its Tq, Tk the "
+     "largest lengths. Five patterns: every sequence full; edges (a sequence of 1 query and 1 key, one "
+     "with no query, one with no key whose rows are fully masked, 1 query over all keys, all queries "
+     "over 1 key); one long sequence among sequences of 1 to 3 tokens; lengths from {15, 16, 17, 31, 32, "
+     "33, 63, 64, 65, 127, 128, 129} so offsets land on and beside tile edges; Tq ≠ Tk per sequence. "
+     "Masks none or causal (mostly bottom-right, aligned per sequence on its own lengths); a request for "
+     "key padding, dense or bias gets none (the lengths replace padding). An offset off by one between "
+     "sequences lets a row see its neighbour's first key (mask_leak). Only kernels declaring the "
+     "feature get these cases.",
+     "", Level::core, "varlen"},
 };
 
 /// Returns: every family, in the order above.

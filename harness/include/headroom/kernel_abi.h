@@ -182,7 +182,9 @@ typedef struct hr_core_problem {
                                         no visible key stays fully masked; NULL: none */
   const int64_t* cu_q_lens;          /* HR_FEATURE_VARLEN: [B + 1] offsets of each sequence's
                                         rows in the packed q and o (extents [1, H, total, D]);
-                                        q_len is then the largest length; NULL: dense */
+                                        q_len is then the largest length, lse [1, Hq, total];
+                                        each sequence its own problem (causal alignment and
+                                        window on its own lengths); NULL: dense */
   const int64_t* cu_kv_lens;         /* HR_FEATURE_VARLEN: [B + 1], likewise for k and v */
   hr_paged_kv paged;                 /* HR_FEATURE_PAGED_KV: k and v data are NULL and the
                                         keys and values live in pages */

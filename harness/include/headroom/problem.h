@@ -49,9 +49,19 @@ struct Mask {
   /// under causal_top_left and i + Tk − Tq otherwise (aligned as a decoder's
   /// cache: the last query sits on the last key). −1 leaves that side open.
   std::int64_t window_left = -1, window_right = -1;
+  /// A packed variable-length batch (kernel_abi.h version 2, HR_FEATURE_VARLEN):
+  /// [N + 1] offsets, from 0 and nondecreasing, of each of N sequences' rows
+  /// along the query axis (cu_q_lens, ending at Tq) and the key axis
+  /// (cu_kv_lens, ending at Tk) of a problem of batch 1. Query i of sequence n
+  /// sees only keys of sequence n, each sequence its own attention problem:
+  /// causal alignment and windows use its own lengths and local positions.
+  /// Empty: a dense batch. docs/varlen.md.
+  std::vector<std::int64_t> cu_q_lens, cu_kv_lens;
 
   /// Returns: whether a window restricts visibility.
   bool has_window() const { return window_left >= 0 || window_right >= 0; }
+  /// Returns: whether the problem is a packed variable-length batch.
+  bool is_varlen() const { return !cu_q_lens.empty(); }
   /// Returns: whether key j is visible to query i of head h in batch b.
   bool visible(const CoreShape& s, std::int64_t b, std::int64_t h, std::int64_t i, std::int64_t j) const;
   /// Returns: the additive bias of (b, h, i, j) (0 unless kind is bias).
