@@ -41,7 +41,7 @@ std::int32_t varlen_prefill(const hr_core_problem* p, std::int64_t key_overrun) 
   const ScoreFeatures score(*p);
   if (!formats_are(*p, HR_FORMAT_FLOAT32, HR_FORMAT_FLOAT32) || !MaskView(*p).known()) return HR_UNSUPPORTED;
   const std::int64_t dk = p->key_dim, dv = p->value_dim;
-  std::vector<float> q(dk), k(dk), v(dv), z(kKeyTile), acc(dv);
+  std::vector<float> q(dk), k(dk), v(dv), z(kKeyTile), acc(dv), tile_acc(dv);
   for (std::int64_t n = 0; n < p->batch; ++n) {
     const Sequence s = sequence_of(*p, n, key_overrun);
     hr_core_problem local = *p;  // the sequence's own lengths for causal alignment and window
@@ -68,16 +68,21 @@ std::int32_t varlen_prefill(const hr_core_problem* p, std::int64_t key_overrun) 
           }
           const float m_new = std::max(m, tile_max);
           if (!(m_new > kNegInf)) continue;
+          // The tile's row sum and P·V first, then folded into the running
+          // ones (Dao et al. 2022, alg. 1): a weight is never added alone to
+          // an l near 1, where weights below half its ulp would round away.
           const float alpha = std::exp(m - m_new);  // 0 on the first visible tile
-          l *= alpha;
-          for (float& a : acc) a *= alpha;
+          float tile_l = 0.0f;
+          std::fill(tile_acc.begin(), tile_acc.end(), 0.0f);
           for (std::int64_t c = 0; c < cols; ++c) {
             const float e = std::exp(z[c] - m_new);
             if (e == 0.0f) continue;  // masked: its V row is not read
-            l += e;
+            tile_l += e;
             load_row(p->v, s.tensor_b, g, s.k0 + j0 + c, dv, v.data());
-            for (std::int64_t d = 0; d < dv; ++d) acc[d] += e * v[d];
+            for (std::int64_t d = 0; d < dv; ++d) tile_acc[d] += e * v[d];
           }
+          l = l * alpha + tile_l;
+          for (std::int64_t d = 0; d < dv; ++d) acc[d] = acc[d] * alpha + tile_acc[d];
           m = m_new;
         }
         float* lse = lse_of(*p, s, h, i);

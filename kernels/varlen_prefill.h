@@ -8,8 +8,9 @@
 // window applied to local positions with the sequence's own Tq_n and Tk_n.
 // Per row, the keys are taken 64 at a time with the online normaliser of
 // Milakov & Gimelshein 2018 (alg. 3): a running maximum m, normaliser l and
-// accumulator acc, rescaled by exp(m − m') when a tile raises the maximum;
-// everything in float32. Soft cap and sinks through ScoreFeatures. A row with
+// accumulator acc, rescaled by exp(m − m') when a tile raises the maximum, a
+// tile's weights and P·V summed before they join l and acc (Dao et al. 2022,
+// alg. 1); everything in float32. Soft cap and sinks through ScoreFeatures. A row with
 // no visible key (a sequence with no keys, say) gets zeros and lse −inf.
 // Without HR_FEATURE_VARLEN (cu_q_lens NULL) batch b is sequence b of a
 // dense batch, with every mask kind.
