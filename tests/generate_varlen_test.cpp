@@ -53,16 +53,16 @@ TEST(GenerateVarlen, CasesAreValidPackedBatchesCoveringTheEdges) {
 }
 
 TEST(GenerateVarlen, ARequestedShapeIsReadAsSequencesAndLargestLengths) {
-  for (std::uint64_t seed = 1; seed <= 6; ++seed) {
+  for (std::uint64_t seed = 1; seed <= 3; ++seed) {
     CaseRequest r = request(seed);
-    r.shape = CoreShape{8, 8, 2, 64, 1025, 128, 128};
+    r.shape = CoreShape{8, 2, 1, 64, 1025, 128, 128};
     const Case c = make_case(r);
     ASSERT_TRUE(validate(c.core, c.core_inputs).empty());
     const CoreShape told = declared_shape(c.core.shape, c.core.mask);
     EXPECT_EQ(told.batch, 8);
     EXPECT_LE(told.q_len, 64);
     EXPECT_LE(told.kv_len, 1025);
-    EXPECT_EQ(c.core.shape.q_heads, 8);
+    EXPECT_EQ(c.core.shape.q_heads, 2);
     EXPECT_EQ(c.core.shape.key_dim, 128);
   }
   // A key-padding request falls back to no mask: the lengths replace padding.

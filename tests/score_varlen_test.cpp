@@ -9,6 +9,7 @@
 #include <cstring>
 #include <filesystem>
 #include <fstream>
+#include <iterator>
 #include <nlohmann/json.hpp>
 
 #include "attach_cases.h"
@@ -148,6 +149,21 @@ TEST(ScoreVarlen, CaseFolderRoundTripsTheLengths) {
   Case bad = c;
   bad.core.mask.cu_kv_lens.back() -= 1;
   EXPECT_THROW(write_case(bad, dir), InputError);
+  // And in a manifest: one line naming the file and the field.
+  std::ifstream in(dir / "manifest.json");
+  std::string text((std::istreambuf_iterator<char>(in)), std::istreambuf_iterator<char>());
+  in.close();
+  const std::size_t at = text.find("\"q_lens\": [\n      3");
+  ASSERT_NE(at, std::string::npos) << text;
+  text.replace(text.find('3', at), 1, "4");
+  std::ofstream(dir / "manifest.json") << text;
+  try {
+    read_case(dir);
+    ADD_FAILURE() << "a manifest whose lengths disagree with its shape was read";
+  } catch (const InputError& e) {
+    EXPECT_NE(std::string(e.what()).find("manifest.json"), std::string::npos) << e.what();
+    EXPECT_NE(std::string(e.what()).find("\"varlen\""), std::string::npos) << e.what();
+  }
   fs::remove_all(dir);
 }
 
