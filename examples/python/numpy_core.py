@@ -1,8 +1,9 @@
 #!/usr/bin/python3
 """A headroom kernel in NumPy, written with the headroom_kernel package (python/).
 
-Textbook attention computed in float32, every mask kind, grouped-query heads
-expanded by the package, log-sum-exp returned; inputs in the format the first
+Textbook attention computed in float32, every mask kind, sliding windows and
+packed variable-length batches (the package's mask: block diagonal per
+sequence), grouped-query heads expanded by the package, log-sum-exp returned; inputs in the format the first
 word names (f32, f16 = binary16, bf16, i8 = int8 per token, dequantised by the
 package), output in float32 (i8) or that format. Qualify it with
 
@@ -25,7 +26,7 @@ int8 = {f + "_quant": {"granularity": "per_token", "asymmetric": False} for f in
 
 @kernel(name="numpy_core_" + variant, input_format=fmt, output_format="float32" if fmt == "int8" else fmt,
         masks=["none", "causal_top_left", "causal_bottom_right", "key_padding", "dense", "bias"],
-        mask_as="bias", returns_lse=True, expand_groups=True, **int8)
+        mask_as="bias", returns_lse=True, expand_groups=True, features=["window", "varlen"], **int8)
 def attend(q, k, v, scale, mask):
     """max-shifted softmax in float32, NumPy"""
     q, k, v = (x.astype(np.float32) for x in (q, k, v))
