@@ -546,6 +546,45 @@ TEST(Compare, DetectsARegressionBeyondToleranceAndAnImprovement) {
   EXPECT_FALSE(compare_records(base, next, 0.60).regressed());
 }
 
+TEST(Compare, GradientScaledErrorsRegressEachWayPastToleranceAndFloor) {
+  RunRecord base = seven_cases();
+  BackwardFigures b;
+  b.upstream = "gaussian";
+  for (std::size_t t = 0; t < 3; ++t) {
+    b.fed_exact[t].max_scaled_error = 4 + static_cast<double>(t);  // worst 6 (d_v)
+    b.end_to_end[t].max_scaled_error = 10;
+  }
+  base.cases[1].backward = b;  // gaussian
+  base.cases[4].backward = b;  // masks
+  RunRecord next = base;
+  next.cases[1].backward->end_to_end[0].max_scaled_error = 15;  // gaussian end to end 10 → 15
+  next.cases[4].backward->fed_exact[1].max_scaled_error = 3;    // masks fed exact 6 → 4 (d_q's)
+  next.cases[4].backward->fed_exact[2].max_scaled_error = 3;
+  next.cases[1].backward->fed_exact[2].max_scaled_error = 6.5;  // within 10 %: no change
+  const Comparison c = compare_records(base, next, 0.10);
+  ASSERT_EQ(c.regressions.size(), 1u) << comparison_text(c);
+  EXPECT_EQ(c.regressions[0].family, "gaussian");
+  EXPECT_EQ(c.regressions[0].figure, "worst_gradient_scaled_error_end_to_end");
+  EXPECT_EQ(c.regressions[0].base, 10);
+  EXPECT_EQ(c.regressions[0].next, 15);
+  ASSERT_EQ(c.improvements.size(), 1u) << comparison_text(c);
+  EXPECT_EQ(c.improvements[0].family, "masks");
+  EXPECT_EQ(c.improvements[0].figure, "worst_gradient_scaled_error");
+  EXPECT_EQ(c.improvements[0].next, 4);
+  // A 1-unit rise is under the floor (one rounding unit), whatever the tolerance.
+  RunRecord small = base;
+  small.cases[1].backward->fed_exact[2].max_scaled_error = 7;
+  EXPECT_FALSE(compare_records(base, small, 0.0).regressed());
+  // Gradients no longer judged: a note, not a regression.
+  RunRecord none = base;
+  for (auto& k : none.cases) k.backward.reset();
+  const Comparison gone = compare_records(base, none, 0.10);
+  EXPECT_FALSE(gone.regressed());
+  bool noted = false;
+  for (const auto& n : gone.notes) noted |= n.find("worst_gradient_scaled_error") != std::string::npos;
+  EXPECT_TRUE(noted);
+}
+
 TEST(Compare, AnyNewFaultRegressesWhateverTheToleranceAndALostFamilyToo) {
   const RunRecord base = seven_cases();
   RunRecord next = base;

@@ -15,7 +15,11 @@
 //   dQ_id = s·Σ_j dS_ij K_jd,  dK_jd = s·Σ_{h∈group, i} dS_ij Q_id,  dV_jd = Σ_i P_ij dO_id
 // Magnitudes from the lower ends, rounded down: A_ij = Σ_d |dO_id||V_jd|,
 // A_i = Σ_j P_ij,lo A_ij and the sums of reference_backward.h.
-// Row quantities (lse, D, A_i) are cached per row at the current precision.
+// Row quantities (lse, D, A_i) are cached per row at the current precision,
+// and P_ij, dS_ij and the lower end of P_ij (A_ij + A_i) per (row, key): the
+// Dk elements of a dK row (the Dv of a dV row) share every pair's dot
+// products instead of redoing them per element. The cached intervals are the
+// very ones the element would compute, so results do not change.
 #include "backward_mp.h"
 
 #include <mpfr.h>
@@ -133,6 +137,14 @@ struct MpBackward::Impl {
   };
   std::unordered_map<std::int64_t, Row> rows;
 
+  struct Pair {
+    Ival pr, ds;
+    Mp mag;  // lower end of P_ij (A_ij + A_i)
+    explicit Pair(long p) : pr(p), ds(p), mag(p) {}
+  };
+  std::unordered_map<std::int64_t, Pair> pairs;
+  static constexpr std::size_t kMaxPairs = std::size_t{1} << 18;  // ~100 MiB at 192 bits, then start afresh
+
   // Scratch at the current precision.
   std::unique_ptr<Ival> z, pr, dp, ds, acc;
   std::unique_ptr<Mp> t, t2, t3, mag;
@@ -146,6 +158,7 @@ struct MpBackward::Impl {
     prec = np;
     max_used = std::max(max_used, np);
     rows.clear();
+    pairs.clear();
     z = std::make_unique<Ival>(np);
     pr = std::make_unique<Ival>(np);
     dp = std::make_unique<Ival>(np);
@@ -254,6 +267,28 @@ struct MpBackward::Impl {
   // dS_ij into *ds (and P_ij in *pr); returns the lower end of P_ij (A_ij + A_i)
   // as an MPFR number in *t2. Key j must be visible to the row.
   void d_score(const Row& r, std::int64_t b, std::int64_t h, std::int64_t i, std::size_t idx) {
+    const CoreShape& s = p.shape;
+    const std::int64_t id = ((b * s.q_heads + h) * s.q_len + i) * s.kv_len + r.keys[idx];
+    if (const auto found = pairs.find(id); found != pairs.end()) {
+      const Pair& c = found->second;
+      mpfr_set(pr->lo.x, c.pr.lo.x, MPFR_RNDD);
+      mpfr_set(pr->hi.x, c.pr.hi.x, MPFR_RNDU);
+      mpfr_set(ds->lo.x, c.ds.lo.x, MPFR_RNDD);
+      mpfr_set(ds->hi.x, c.ds.hi.x, MPFR_RNDU);
+      mpfr_set(t2->x, c.mag.x, MPFR_RNDD);
+      return;
+    }
+    d_score_fresh(r, b, h, i, idx);
+    if (pairs.size() >= kMaxPairs) pairs.clear();
+    Pair& c = pairs.emplace(id, Pair(prec)).first->second;
+    mpfr_set(c.pr.lo.x, pr->lo.x, MPFR_RNDD);
+    mpfr_set(c.pr.hi.x, pr->hi.x, MPFR_RNDU);
+    mpfr_set(c.ds.lo.x, ds->lo.x, MPFR_RNDD);
+    mpfr_set(c.ds.hi.x, ds->hi.x, MPFR_RNDU);
+    mpfr_set(c.mag.x, t2->x, MPFR_RNDD);
+  }
+
+  void d_score_fresh(const Row& r, std::int64_t b, std::int64_t h, std::int64_t i, std::size_t idx) {
     const double a = prob_and_dp(r, b, h, i, r.keys[idx], r.bias.empty() ? 0.0 : r.bias[idx]);
     mpfr_sub(dp->lo.x, dp->lo.x, r.delta.hi.x, MPFR_RNDD);
     mpfr_sub(dp->hi.x, dp->hi.x, r.delta.lo.x, MPFR_RNDU);
@@ -308,7 +343,7 @@ struct MpBackward::Impl {
             add(*ds, qc);
             add_mag(t2->x, qc);
           } else {
-            prob_and_dp(r, b, h, i, j, r.bias.empty() ? 0.0 : r.bias[idx]);
+            d_score(r, b, h, i, idx);  // P_ij in *pr
             const double oc = do_row(b, h, i)[d];
             add(*pr, oc);
             add_mag(pr->lo.x, oc);

@@ -69,7 +69,7 @@ class Comparer {
  private:
   double floor_of(const std::string& figure) const {
     if (figure == "worst_ulp") return out_.floors.ulp;
-    if (figure == "worst_scaled_error") return out_.floors.scaled;
+    if (figure == "worst_scaled_error" || figure.starts_with("worst_gradient_scaled_error")) return out_.floors.scaled;
     if (figure == "worst_rel_rmse") return out_.floors.rel_rmse;
     return 0;
   }
@@ -193,6 +193,9 @@ Comparison compare_records(const RunRecord& base, const RunRecord& next, double 
     cmp.error_figure(g, n, "worst_ulp", g.worst_ulp, n.worst_ulp);
     cmp.error_figure(g, n, "worst_scaled_error", g.worst_scaled_error, n.worst_scaled_error);
     cmp.error_figure(g, n, "worst_rel_rmse", g.worst_rel_rmse, n.worst_rel_rmse);
+    cmp.error_figure(g, n, "worst_gradient_scaled_error", g.worst_gradient_fed_exact, n.worst_gradient_fed_exact);
+    cmp.error_figure(g, n, "worst_gradient_scaled_error_end_to_end", g.worst_gradient_end_to_end,
+                     n.worst_gradient_end_to_end);
     cmp.count_figure(n, "failing_cases", static_cast<double>(g.failing), static_cast<double>(n.failing));
     std::map<std::string, int> classes = g.faults;
     for (const auto& [name, k] : n.faults) classes.emplace(name, 0);

@@ -61,6 +61,7 @@ GroupSummary summarise(const std::vector<const CaseRecord*>& cases, std::string 
   // NaN until a case supplies the figure: a group of cases with no applicable
   // figure then reports NaN rather than a made-up 0.
   g.worst_ulp = g.worst_scaled_error = g.worst_rmse = g.worst_rel_rmse = g.worst_ratio_to_plain = kNaN;
+  g.worst_gradient_fed_exact = g.worst_gradient_end_to_end = kNaN;
   for (const CaseRecord* c : cases) {
     if (!c->within_budget) ++g.failing;
     const CaseFigures& f = c->figures;
@@ -69,6 +70,12 @@ GroupSummary summarise(const std::vector<const CaseRecord*>& cases, std::string 
     keep_max(g.worst_rmse, f.rmse);
     keep_max(g.worst_rel_rmse, f.relative_rmse);
     keep_max(g.worst_ratio_to_plain, f.ratio_to_plain);
+    if (c->backward)
+      for (std::size_t t = 0; t < 3; ++t) {
+        keep_max(g.worst_gradient_fed_exact, c->backward->fed_exact[t].max_scaled_error);
+        if (c->backward->end_to_end_judged)
+          keep_max(g.worst_gradient_end_to_end, c->backward->end_to_end[t].max_scaled_error);
+      }
     g.ulp_limit.add(c->limits.max_ulp);
     g.scaled_limit.add(c->limits.max_scaled_error);
     g.rel_rmse_limit.add(c->limits.max_rel_rmse);

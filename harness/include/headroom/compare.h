@@ -1,15 +1,17 @@
 // headroom — comparing two run records: what got worse, what got better, and whether that fails CI.
 //
 // Figures are compared per family × format group (run_summary.h): worst ULP,
-// worst scaled error, worst relative RMSE, the number of failing cases and
-// the count of each fault class. An error figure regresses when
+// worst scaled error, worst relative RMSE, for a backward kernel the worst
+// gradient scaled error fed the exact O/lse and end to end (over dQ, dK, dV),
+// the number of failing cases and the count of each fault class. An error figure regresses when
 //   new > base · (1 + tolerance)  and  new − base > floor
 // (tolerance relative, e.g. 0.10 = 10 %; floor absolute, per figure: the
 // noise floor below) and improves when
 //   new · (1 + tolerance) < base  and  base − new > floor.
 // Noise floors (our own choice, one rounding unit of the output format F:
 // a change that small is what reordering one sum gives): worst ULP 1 ULP,
-// worst scaled error 1 (units of u_F·Σp|v|), worst relative RMSE u_F.
+// worst scaled error 1 (units of u_F·Σp|v|; the gradients' 1 unit of u_F
+// times their natural magnitude), worst relative RMSE u_F.
 // So 0 → 1 ULP is noise, 0 → 2 ULP regresses.
 // Faults and failing cases regress on any increase, whatever the tolerance: a
 // new fault is never noise. A group tried in BASE but absent from NEW is a
@@ -35,7 +37,8 @@ inline constexpr double kDefaultCompareTolerance = 0.10;
 struct FigureChange {
   std::string kernel;        ///< the kernel of NEW
   std::string family, format;
-  std::string figure;        ///< "worst_ulp", "worst_scaled_error", "worst_rmse", "failing_cases",
+  std::string figure;        ///< "worst_ulp", "worst_scaled_error", "worst_rmse", "worst_gradient_scaled_error",
+                             ///< "worst_gradient_scaled_error_end_to_end", "failing_cases",
                              ///< "fault:<class>", or "cases" (a group absent from NEW)
   double base = 0, next = 0;
   double relative = 0;       ///< (next − base) / base; ±inf when base = 0 ≠ next

@@ -39,6 +39,10 @@ struct GroupSummary {
   double worst_rmse = 0;            ///< max of figures.rmse (per-case RMSE; not pooled)
   double worst_rel_rmse = 0;        ///< max of figures.relative_rmse
   double worst_ratio_to_plain = 0;  ///< max of figures.ratio_to_plain; NaN when no case has one
+  /// Backward kernels: max over cases and gradient tensors of the max scaled
+  /// error fed the exact O/lse, and end to end; NaN when no case judged the
+  /// gradients (that way).
+  double worst_gradient_fed_exact = 0, worst_gradient_end_to_end = 0;
   std::string worst_ulp_case, worst_scaled_case;  ///< names; "" when no case
   ValueRange ulp_limit, scaled_limit, rel_rmse_limit, ratio_limit;  ///< limits recorded for the cases (+inf = none)
   std::map<std::string, int> faults;                                ///< class → count
