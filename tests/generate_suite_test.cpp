@@ -112,6 +112,23 @@ TEST(GenerateSuites, CoverageCountsTheInferenceFeatures) {
   }
 }
 
+// Long rows are where running sums stagnate, split-KV paths start and tile
+// counters wrap: every adversarial family of the production sections must
+// reach Tk ≥ 4096 in standard (a sink row summed weight by weight fails only
+// there: tests/cli_growth_test.cpp), not only the ones a rotation lands on.
+TEST(GenerateSuites, EveryShapeFamilyReachesLongRowsInStandardAndDeep) {
+  const std::set<std::string> families{"gaussian",          "large_logits",     "near_ties",     "dominant_key",
+                                       "outlier_channels",  "sparse_outliers",  "massive_activations",
+                                       "common_offset",     "cancelling_values", "attention_sink",
+                                       "repeated_maxima",   "format_edges"};
+  for (const char* suite : {"standard", "deep"}) {
+    std::set<std::string> long_rows;
+    for (const CaseRequest& r : suite_requests(suite))
+      if (r.shape && r.shape->kv_len >= 4096) long_rows.insert(r.family);
+    for (const std::string& f : families) EXPECT_TRUE(long_rows.count(f)) << suite << " never runs " << f << " at Tk >= 4096";
+  }
+}
+
 TEST(GenerateSuites, QuickStaysSmall) {
   // The work of an exact reference grows with B·Hq·Tq·Tk·(Dk + Dv); the quick
   // suite must run in seconds, so most cases keep Tk ≤ 32 and all ≤ 129.

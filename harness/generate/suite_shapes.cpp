@@ -63,12 +63,16 @@ void production_sections(SuiteBuilder& b, Depth depth, std::uint64_t base) {
     // Fewer heads as Tk grows keeps each tensor near 2^22 elements.
     const std::int64_t hq = k <= 14 ? 8 : 4, hkv = k <= 12 ? 2 : 1;
     const std::int64_t dim = k <= 14 ? 128 : 64;
-    const std::size_t per_len = deep ? kFamilyCount : 6;
+    // standard: half the families at one power, the other half at the next,
+    // so each family meets Tk 4096 or 8192 and again 16384 or 8192; deep: all
+    // at every power.
+    const std::size_t per_len = deep ? kFamilyCount : kFamilyCount / 2;
     for (std::size_t f = 0; f < per_len; ++f, ++turn) {
       const std::int64_t tk = f % 2 == 0 ? p + 1 : p;
       // Decode and causal prefill; key padding now and then.
       const MaskKind m = f % 3 == 2 ? MaskKind::key_padding : MaskKind::causal_bottom_right;
-      b.add(family_at(f + static_cast<std::size_t>(k)), seed++, 100, shape(1, hq, hkv, tq, tk, dim, dim), m);
+      b.add(family_at(f + per_len * static_cast<std::size_t>(k - 8)), seed++, 100, shape(1, hq, hkv, tq, tk, dim, dim),
+            m);
     }
   }
 }
