@@ -3,12 +3,17 @@
 // Method: QKᵀ is accumulated in float32 on the binary16 inputs (as tensor-core
 // kernels do) and scaled, z_j = s·(q·k_j) + bias_j, so scores cannot overflow
 // binary16's 65504. The softmax statistics (maximum, exp, normaliser) are
-// float32, as half-precision kernels keep them. PV is where binary16 shows:
-// p_j is rounded to binary16 and every multiply and add of PV is done in
-// float32 on binary16 values and rounded straight back to binary16, which makes
-// each one correctly rounded binary16 arithmetic (24 ≥ 2·11 + 2, Figueroa
-// 1995). O = acc / l is rounded once. Masked keys are never read; a fully
-// masked row gets zeros and log-sum-exp −inf.
+// float32, as half-precision kernels keep them, in a first pass. PV is where
+// binary16 shows: in a second pass each normalised weight p_j = e_j / l is
+// rounded to binary16 and every multiply and add of PV is done in float32 on
+// binary16 values and rounded straight back to binary16, which makes each one
+// correctly rounded binary16 arithmetic (24 ≥ 2·11 + 2, Figueroa 1995). The
+// accumulator holds a convex combination of V rows, so it cannot overflow
+// where the output does not; accumulating the unnormalised weights e_j ≤ 1
+// did, to −inf, on format_edges rows at Tk 8192 whose output was −661
+// (`headroom qualify --kernel f16_f16acc --family format_edges --shape
+// 1,8,1,4,8192,128,128`). Masked keys are never read; a fully masked row gets
+// zeros and log-sum-exp −inf.
 //
 // Error: a binary16 sum of n terms is off by up to γ_n·Σ|terms| (Higham 2002,
 // §3.1), u = 2^-11; so the PV error is ≲ Tk·u·Σ_j p_j|v_j| in the worst case,
@@ -45,17 +50,25 @@ std::int32_t run(const hr_core_problem* p) {
           write_masked_row(*p, b, h, i);
           continue;
         }
+        // Pass 1: the normaliser, in float32, 64 keys a block (one running sum
+        // stagnates on long rows dominated by one key).
         float l = 0.0f;
+        for (std::int64_t j0 = 0; j0 < p->kv_len; j0 += 64) {
+          float part = 0.0f;
+          for (std::int64_t j = j0; j < std::min<std::int64_t>(j0 + 64, p->kv_len); ++j) part += std::exp(z[j] - m);
+          l += part;
+        }
+        // Pass 2: PV in binary16 on the normalised weights.
         std::fill(acc.begin(), acc.end(), 0.0f);
         for (std::int64_t j = 0; j < p->kv_len; ++j) {
           const float e = std::exp(z[j] - m);
           if (e == 0.0f) continue;
-          l += e;
-          const float e16 = round_binary16(e);
+          const float p16 = round_binary16(e / l);
           load_row(p->v, b, g, j, p->value_dim, v.data());
-          for (std::int64_t d = 0; d < p->value_dim; ++d) acc[d] = round_binary16(acc[d] + round_binary16(e16 * v[d]));
+          for (std::int64_t d = 0; d < p->value_dim; ++d) acc[d] = round_binary16(acc[d] + round_binary16(p16 * v[d]));
         }
-        write_row(*p, b, h, i, acc.data(), m, l);
+        for (std::int64_t d = 0; d < p->value_dim; ++d) store(p->o, b, h, i, d, acc[d]);
+        if (float* out = lse_at(*p, b, h, i)) *out = m + std::log(l);
       }
     }
   }

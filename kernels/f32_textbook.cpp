@@ -8,10 +8,11 @@
 // never read, so whatever lies in masked K/V rows cannot reach the output.
 // A row with no visible key gets zeros and log-sum-exp −inf.
 //
-// Kept weight by weight on purpose, as users first write it: on a long row
-// dominated by one key the running sum stagnates (weights below half an ulp of
-// l ≈ 1 round away) and the default budget fails it from Tk ≈ 4096 on the
-// attention_sink family (docs/reports.md, "Error growth"; tests/cli_growth_test.cpp).
+// The sums are taken 64 keys at a time, each block's then added to the total
+// (blocked summation, Higham 2002 §4.2): one running sum stagnates on a long
+// row dominated by one key — once l ≈ 1, weights below half its ulp round away,
+// all in one direction — and the default budget fails that from Tk ≈ 4096 on
+// the attention_sink family (docs/reports.md, "Error growth").
 #include <cmath>
 #include <vector>
 
@@ -22,11 +23,14 @@
 namespace hr_kernels {
 namespace {
 
+constexpr std::int64_t kBlock = 64;  // keys per block of the blocked sums
+
 std::int32_t run(const hr_core_problem* p) {
   const MaskView mask(*p);
   const ScoreFeatures score(*p);
   if (!formats_are(*p, HR_FORMAT_FLOAT32, HR_FORMAT_FLOAT32) || !mask.known()) return HR_UNSUPPORTED;
-  std::vector<float> q(p->key_dim), k(p->key_dim), v(p->value_dim), z(p->kv_len), acc(p->value_dim);
+  std::vector<float> q(p->key_dim), k(p->key_dim), v(p->value_dim), z(p->kv_len), acc(p->value_dim),
+      part(p->value_dim);
   for (std::int64_t b = 0; b < p->batch; ++b) {
     for (std::int64_t h = 0; h < p->q_heads; ++h) {
       const std::int64_t g = kv_head(h, p->q_heads, p->kv_heads);
@@ -47,12 +51,18 @@ std::int32_t run(const hr_core_problem* p) {
         m = score.with_sink(h, m);
         float l = score.sink_weight(h, m);  // the sink's term, no value row
         std::fill(acc.begin(), acc.end(), 0.0f);
-        for (std::int64_t j = 0; j < p->kv_len; ++j) {
-          const float e = std::exp(z[j] - m);
-          if (e == 0.0f) continue;  // masked (or underflowed): V row not read
-          l += e;
-          load_row(p->v, b, g, j, p->value_dim, v.data());
-          for (std::int64_t d = 0; d < p->value_dim; ++d) acc[d] += e * v[d];
+        for (std::int64_t j0 = 0; j0 < p->kv_len; j0 += kBlock) {
+          float part_l = 0.0f;
+          std::fill(part.begin(), part.end(), 0.0f);
+          for (std::int64_t j = j0; j < std::min(j0 + kBlock, p->kv_len); ++j) {
+            const float e = std::exp(z[j] - m);
+            if (e == 0.0f) continue;  // masked (or underflowed): V row not read
+            part_l += e;
+            load_row(p->v, b, g, j, p->value_dim, v.data());
+            for (std::int64_t d = 0; d < p->value_dim; ++d) part[d] += e * v[d];
+          }
+          l += part_l;
+          for (std::int64_t d = 0; d < p->value_dim; ++d) acc[d] += part[d];
         }
         write_row(*p, b, h, i, acc.data(), m, l);
       }
@@ -66,7 +76,7 @@ std::int32_t run(const hr_core_problem* p) {
 const hr_kernel f32_textbook = {
     .abi_version = HEADROOM_ABI_VERSION,
     .name = "f32_textbook",
-    .description = "float32, scores materialised per row, max shift, exp, normalise, PV in key order",
+    .description = "float32, scores materialised per row, max shift, exp, normalise, PV in key order, 64 keys a block",
     .level = HR_LEVEL_CORE,
     .input_format = HR_FORMAT_FLOAT32,
     .output_format = HR_FORMAT_FLOAT32,

@@ -50,17 +50,20 @@ TEST(CliGrowth, ReportsTheExponentAndABudgetCapsIt) {
 // other 4095 keys weigh about e^-16 to e^-20 each) summed weight by weight in
 // float32: once l ≈ 1, every weight below half its ulp (2^-24) rounds away, all
 // in the same direction, so the error grows with every key instead of as √n
-// (stagnation; checked outside headroom with NumPy float32 emulation of the
-// textbook loop on this case: l = 1.0000324 against the exact 1.0000958). The
-// default budget must fail that, and must pass the same row summed a tile or a
-// block at a time (Dao et al. 2022, alg. 1; Higham 2002, §4.2).
+// (stagnation; checked outside headroom with NumPy float32 emulation of such a
+// loop on this case: l = 1.0000324 against the exact 1.0000958). The default
+// budget must fail that — the test-only textbook kernel of
+// tests/plugins/shape_defect_plugin.c keeps one running sum — and must pass the
+// same row summed a tile or a block at a time (Dao et al. 2022, alg. 1; Higham
+// 2002, §4.2), as the bundled float32 kernels do.
 TEST(CliGrowth, WeightByWeightSumsStagnateOnASinkRowAndTileSumsDoNot) {
   const auto dir = fresh_cli_dir("stagnation");
   const std::string shape = " --family attention_sink --shape 1,4,1,4,4096,64,64";
-  EXPECT_EQ(shell_in(dir, kTool + " qualify --kernel f32_textbook" + shape + " >out.txt 2>&1"), 1)
+  const std::string one_running_sum = std::string(HEADROOM_SHAPE_DEFECT_DIR) + "/libshape_defect_0.so";
+  EXPECT_EQ(shell_in(dir, kTool + " qualify --kernel " + one_running_sum + shape + " >out.txt 2>&1"), 1)
       << file_text(dir / "out.txt");
   EXPECT_NE(file_text(dir / "out.txt").find("max_rel_rmse"), std::string::npos) << file_text(dir / "out.txt");
-  for (const std::string kernel : {"f32_tiled_64", "gqa_f32"})
+  for (const std::string kernel : {"f32_textbook", "f32_tiled_64", "gqa_f32"})
     EXPECT_EQ(shell_in(dir, kTool + " qualify --kernel " + kernel + shape + " >out.txt 2>&1"), 0)
         << kernel << ": " << file_text(dir / "out.txt");
 }

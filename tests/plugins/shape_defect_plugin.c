@@ -10,7 +10,9 @@
  *                   is h mod Hkv instead of h / 8 (the wrong kv head);
  *   SHAPE_DEFECT 0  "no80":   sound, declaring every production head dim but 80.
  *
- * The rest is textbook attention (max-shifted softmax in key order, float32,
+ * The rest is textbook attention (max-shifted softmax in key order with one
+ * running sum, which stagnates on long rows dominated by one key:
+ * tests/cli_growth_test.cpp relies on that; float32,
  * masks none / causal / key padding, fully masked rows as zeros).
  */
 #include <math.h>
