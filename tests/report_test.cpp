@@ -775,6 +775,16 @@ TEST(Records, NonsenseIsRefusedNamingTheField) {
   j = good;
   j["levels"][0]["taken"] = 0;
   refused(j, "field \"levels\"");
+  // The kernel's name follows a declaration's rules, the formats are formats (tools/attack.py found both accepted).
+  j = good;
+  j["kernel"] = std::string("f32\0textbook", 12);
+  refused(j, "field \"kernel\": \"f32\\x00textbook\" is not a kernel name");
+  j = good;
+  j["input_format"] = "float24";
+  refused(j, "field \"input_format\": \"float24\" is not a format");
+  j = good;
+  j["output_format"] = "";
+  refused(j, "field \"output_format\"");
   // replay names the second folder holding a case "<name>@<folder>" (cmd_replay.cpp): read back,
   // but the part before "@" follows the case-name rules and the folder holds no control byte.
   j = good;

@@ -13,7 +13,7 @@
 namespace headroom {
 namespace {
 
-constexpr std::size_t kMaxNameLength = 64;
+constexpr std::size_t kMaxNameLength = kMaxKernelNameLength;
 constexpr std::size_t kMaxDimList = 64;  // entries read from a zero-terminated head-dim list
 constexpr std::uint32_t kAllMasks = HR_MASK_NONE | HR_MASK_CAUSAL_TOP_LEFT | HR_MASK_CAUSAL_BOTTOM_RIGHT |
                                     HR_MASK_KEY_PADDING | HR_MASK_DENSE | HR_MASK_BIAS;
@@ -242,12 +242,9 @@ void check_declaration(const KernelDeclaration& d, const std::string& origin) {
     refuse(origin, "field \"name\"", "the name is empty or longer than 64 characters",
            "give the kernel a short unique name of [a-z0-9_.-]");
   }
-  for (char ch : d.name) {
-    bool ok = (ch >= 'a' && ch <= 'z') || (ch >= '0' && ch <= '9') || ch == '_' || ch == '.' || ch == '-';
-    if (!ok) {
-      refuse(origin, "field \"name\"", "name \"" + d.name + "\" holds a character outside [a-z0-9_.-]",
-             "rename the kernel using lower-case letters, digits, '_', '.' and '-' only");
-    }
+  if (!valid_kernel_name(d.name)) {
+    refuse(origin, "field \"name\"", "name \"" + d.name + "\" holds a character outside [a-z0-9_.-]",
+           "rename the kernel using lower-case letters, digits, '_', '.' and '-' only");
   }
   if (d.output_format == Format::int8) {
     refuse(origin, "field \"output_format\"", who(d) + " declares int8 output; int8 is an input format only",

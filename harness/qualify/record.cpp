@@ -16,6 +16,7 @@
 #include "headroom/case_folder.h"
 #include "headroom/faults.h"
 #include "headroom/json_input.h"
+#include "headroom/kernel.h"
 #include "headroom/qualify.h"
 
 namespace headroom {
@@ -572,9 +573,16 @@ RunRecord run_record_from_json(const json& j, const std::string& file) {
   rec.tool = r.str("tool");
   rec.command = r.one_of("command", {"qualify", "hunt", "replay", "merge"});
   rec.kernel = r.str("kernel");
+  if (!valid_kernel_name(rec.kernel))
+    r.fail("kernel", quote_input(rec.kernel) + " is not a kernel name (1 to 64 of a-z 0-9 _ . -)",
+           "give a record written by headroom");
   rec.kernel_description = r.str("kernel_description");
   rec.input_format = r.str("input_format");
   rec.output_format = r.str("output_format");
+  if (!parse_format(rec.input_format))
+    r.fail("input_format", quote_input(rec.input_format) + " is not a format", "give a record written by headroom");
+  if (!parse_format(rec.output_format))
+    r.fail("output_format", quote_input(rec.output_format) + " is not a format", "give a record written by headroom");
   rec.suite = r.str("suite");
   rec.budget = r.str("budget");
   rec.shard = r.str("shard");

@@ -10,6 +10,7 @@
 #include <cstdint>
 #include <optional>
 #include <string>
+#include <string_view>
 #include <vector>
 
 #include "headroom/case.h"
@@ -25,6 +26,18 @@ enum class MaskedRowConvention : unsigned char { zeros, nan, never_called };
 
 /// Returns: "zeros", "nan", "never_called".
 const char* masked_row_name(MaskedRowConvention c);
+
+/// The longest kernel name a declaration may give.
+inline constexpr std::size_t kMaxKernelNameLength = 64;
+
+/// Returns: whether `name` is a kernel name a declaration may give: 1 to
+/// kMaxKernelNameLength characters of [a-z0-9_.-].
+inline bool valid_kernel_name(std::string_view name) {
+  if (name.empty() || name.size() > kMaxKernelNameLength) return false;
+  for (char ch : name)
+    if (!((ch >= 'a' && ch <= 'z') || (ch >= '0' && ch <= '9') || ch == '_' || ch == '.' || ch == '-')) return false;
+  return true;
+}
 
 struct KernelDeclaration {
   std::string name;
