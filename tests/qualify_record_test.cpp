@@ -50,12 +50,15 @@ CaseRecord sample_case(const std::string& name, bool within) {
 RunRecord qualify_record() {
   RunRecord r;
   r.command = "qualify";
+  r.kernel = "f32_textbook";
+  r.input_format = r.output_format = "float32";
   return r;
 }
 
 TEST(RunRecord, RoundTripsThroughJsonWithNonFiniteFigures) {
   RunRecord r = qualify_record();
   r.kernel = "f16_f32acc";
+  r.input_format = r.output_format = "binary16";
   r.cases = {sample_case("a", true), sample_case("b", false)};
   const auto dir = fresh_dir("roundtrip");
   write_run_record(r, dir / "r.json");

@@ -75,6 +75,7 @@ RunRecord run_record(int cases, std::size_t detail_bytes = 0) {
   RunRecord r;
   r.command = "qualify";
   r.kernel = "f32_textbook";
+  r.input_format = r.output_format = "float32";
   for (int i = 0; i < cases; ++i) r.cases.push_back(case_record("case_" + std::to_string(i), detail_bytes));
   return r;
 }
