@@ -20,6 +20,7 @@ const hr_bundled_kernel kTable[] = {
     {&e4m3_tensorwise, 0, nullptr, nullptr},
     {&e4m3_blockwise, 0, nullptr, nullptr},
     {&f32_varlen, 0, nullptr, nullptr},
+    {&f32_paged_split, 0, nullptr, nullptr},
     {&block_f32, 0, nullptr, nullptr},
     {&f32_backward_tiled, 0, nullptr, nullptr},
     {&f16_backward_f32acc, 0, nullptr, nullptr},
@@ -58,6 +59,10 @@ const hr_bundled_kernel kTable[] = {
     {&sink_dropped, 1, "error", "sink logit left out of the softmax normaliser: rows too large by (S + e^sink) / S"},
     {&varlen_offset_off_by_one, 1, "mask_leak",
      "packed key range read to cu_kv_lens[n+1] + 1: each sequence but the last attends the next one's first key"},
+    {&paged_last_page_whole, 1, "mask_leak",
+     "a sequence's last paged page read whole: keys past its length (stale cache rows) attended"},
+    {&split_merge_unnormalised, 1, "split_merge",
+     "split-KV merge sums e^(lse_s - max) o_s without dividing by the weights' sum: partials right, merge wrong"},
     {nullptr, 0, nullptr, nullptr},  // sentinel, not counted
 };
 

@@ -97,9 +97,15 @@ class MaskView {
  public:
   MaskView(const hr_mask& m, std::int64_t q_len, std::int64_t kv_len) : m_(m), q_len_(q_len), kv_len_(kv_len) {}
   /// The mask and window of `p` (kernel_abi.h version 2: window_left/right, −1 open).
+  /// With HR_FEATURE_PAGED_KV, sequence b has paged.seq_lens[b] keys, and the
+  /// bottom-right alignment and the window follow that length.
   explicit MaskView(const hr_core_problem& p) : m_(p.mask), q_len_(p.q_len), kv_len_(p.kv_len) {
     if (p.features & HR_FEATURE_WINDOW) window_left_ = p.window_left, window_right_ = p.window_right;
+    if (p.features & HR_FEATURE_PAGED_KV) seq_lens_ = p.paged.seq_lens;
   }
+
+  /// Returns: the keys sequence b has (its paged length, else Tk).
+  std::int64_t seq_len(std::int64_t b) const { return seq_lens_ != nullptr ? seq_lens_[b] : kv_len_; }
 
   /// Returns: whether the kind is one of the six of kernel_abi.h.
   bool known() const { return (m_.kind & kAllMasks) != 0 && (m_.kind & (m_.kind - 1)) == 0; }
@@ -112,26 +118,27 @@ class MaskView {
   /// b, in [0, Tk]; Tk for dense and bias. Causal bounds from kernel_abi.h:
   /// top-left j ≤ i, bottom-right j ≤ i + (Tk − Tq).
   std::int64_t key_end(std::int64_t b, std::int64_t i) const {
-    std::int64_t end = kv_len_;
+    const std::int64_t len = seq_len(b);
+    std::int64_t end = len;
     switch (m_.kind) {
       case HR_MASK_CAUSAL_TOP_LEFT: end = i + 1; break;
-      case HR_MASK_CAUSAL_BOTTOM_RIGHT: end = i + 1 + kv_len_ - q_len_; break;
+      case HR_MASK_CAUSAL_BOTTOM_RIGHT: end = i + 1 + len - q_len_; break;
       case HR_MASK_KEY_PADDING: end = m_.key_lengths[b]; break;
       default: break;
     }
-    if (window_right_ >= 0) end = std::min(end, window_at(i) + window_right_ + 1);
-    return std::clamp<std::int64_t>(end, 0, kv_len_);
+    if (window_right_ >= 0) end = std::min(end, window_at(b, i) + window_right_ + 1);
+    return std::clamp<std::int64_t>(end, 0, len);
   }
 
   /// Returns: the first key the window lets query i see (0 without a left side).
-  std::int64_t key_begin(std::int64_t i) const {
-    return window_left_ < 0 ? 0 : std::clamp<std::int64_t>(window_at(i) - window_left_, 0, kv_len_);
+  std::int64_t key_begin(std::int64_t b, std::int64_t i) const {
+    return window_left_ < 0 ? 0 : std::clamp<std::int64_t>(window_at(b, i) - window_left_, 0, kv_len_);
   }
 
   /// Returns: whether key j is visible to query i of head h in batch b. A bias
   /// of −inf masks (kernel_abi.h, HR_MASK_BIAS).
   bool visible(std::int64_t b, std::int64_t h, std::int64_t i, std::int64_t j) const {
-    if (j < key_begin(i)) return false;
+    if (j < key_begin(b, i)) return false;
     switch (m_.kind) {
       case HR_MASK_DENSE:
         return j < key_end(b, i) && m_.allowed[mask_offset(b, h, i, j)] != 0;
@@ -149,9 +156,9 @@ class MaskView {
 
  private:
   // The query's position on the key axis for the window (kernel_abi.h):
-  // i under causal top-left, i + Tk − Tq otherwise.
-  std::int64_t window_at(std::int64_t i) const {
-    return m_.kind == HR_MASK_CAUSAL_TOP_LEFT ? i : i + kv_len_ - q_len_;
+  // i under causal top-left, i + Tk − Tq otherwise (Tk: the sequence's length).
+  std::int64_t window_at(std::int64_t b, std::int64_t i) const {
+    return m_.kind == HR_MASK_CAUSAL_TOP_LEFT ? i : i + seq_len(b) - q_len_;
   }
 
   // The dense/bias tensor may have extent 1 on the head axis (one mask for all
@@ -164,6 +171,7 @@ class MaskView {
   const hr_mask& m_;
   std::int64_t q_len_, kv_len_;
   std::int64_t window_left_ = -1, window_right_ = -1;
+  const std::int64_t* seq_lens_ = nullptr;
 };
 
 /// Returns: where the log-sum-exp of row (b, h, i) goes, or nullptr when the

@@ -20,6 +20,7 @@ extern const hr_kernel gqa_f32;
 extern const hr_kernel e4m3_tensorwise;
 extern const hr_kernel e4m3_blockwise;
 extern const hr_kernel f32_varlen;
+extern const hr_kernel f32_paged_split;
 // Backward kernels (kernels/f32_backward_tiled.cpp): judged by the score stage
 // (gradient_scores.h), not yet listed in the table qualify walks.
 extern const hr_kernel f32_backward_tiled;
@@ -51,5 +52,7 @@ extern const hr_kernel e4m3_p_unscaled;
 extern const hr_kernel softcap_after_mask;
 extern const hr_kernel sink_dropped;
 extern const hr_kernel varlen_offset_off_by_one;
+extern const hr_kernel paged_last_page_whole;
+extern const hr_kernel split_merge_unnormalised;
 
 }  // namespace hr_kernels

@@ -113,6 +113,15 @@ TEST(AttachScoreFeatures, ExternalProgramsDeclareThemByName) {
   } catch (const InputError& e) {
     EXPECT_NE(std::string(e.what()).find("\"softcap\""), std::string::npos) << e.what();
   }
+  // Paged K/V and split partials are judged for plug-ins only: refused by name with the reason.
+  for (const char* name : {"paged_kv", "split_partials"}) {
+    try {
+      declaration_from_json("{" + common + R"(, "features": [")" + name + R"("]})", "prog");
+      ADD_FAILURE() << name << " was accepted from an external program";
+    } catch (const InputError& e) {
+      EXPECT_NE(std::string(e.what()).find("plug-ins only"), std::string::npos) << e.what();
+    }
+  }
 }
 
 }  // namespace

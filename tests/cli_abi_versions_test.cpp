@@ -155,8 +155,7 @@ TEST(AbiVersions, FieldsThisBuildDoesNotJudgeAreRefusedByName) {
     void (*apply)(hr_kernel&);
   };
   const Set sets[] = {
-      {"features", [](hr_kernel& k) { k.features = HR_FEATURE_PAGED_KV; }},
-      {"split_kv_len", [](hr_kernel& k) { k.split_kv_len = 512; }},
+      {"features", [](hr_kernel& k) { k.features = HR_FEATURE_VARLEN; }},
   };
   for (const Set& s : sets) {
     hr_kernel k = v2_kernel();
@@ -165,6 +164,12 @@ TEST(AbiVersions, FieldsThisBuildDoesNotJudgeAreRefusedByName) {
     EXPECT_NE(e.find(s.field), std::string::npos) << s.field << ": " << e;
     EXPECT_NE(e.find("not judged"), std::string::npos) << s.field << ": " << e;
   }
+  // Paged K/V and split partials are judged; a split length without its feature is refused by name.
+  hr_kernel k = v2_kernel();
+  k.split_kv_len = 512;
+  const std::string e = refusal(k);
+  EXPECT_NE(e.find("split_kv_len"), std::string::npos) << e;
+  EXPECT_NE(e.find("HR_FEATURE_SPLIT_PARTIALS"), std::string::npos) << e;
 }
 
 TEST(AbiVersions, BackwardFieldsAreJudgedAndCheckedByName) {

@@ -103,11 +103,12 @@ TEST(GenerateSuites, CoverageCountsTheInferenceFeatures) {
       names.push_back(name);
       EXPECT_GE(n, 2u) << suite << ' ' << name;
     }
-    EXPECT_EQ(names, (std::vector<std::string>{"window", "softcap", "sinks", "varlen"})) << suite;
+    EXPECT_EQ(names, (std::vector<std::string>{"window", "softcap", "sinks", "varlen", "paged_kv"})) << suite;
     bool line = false;
     for (const std::string& l : coverage_text(c))
       line = line || (l.find("inference features") != std::string::npos && l.find("softcap ") != std::string::npos &&
-                      l.find("not yet: paged K/V") != std::string::npos);
+                      l.find("varlen ") != std::string::npos && l.find("paged_kv ") != std::string::npos &&
+                      l.find("split-KV partials judged") != std::string::npos);
     EXPECT_TRUE(line) << suite;
   }
 }

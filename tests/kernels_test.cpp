@@ -192,7 +192,7 @@ TEST(BlockF32, MatchesDoubleReference) {
 
 const std::set<std::string> kFaultClasses = {"non_finite",       "mask_leak", "oob_read", "oob_write", "convention",
                                              "nondeterministic", "crash",     "timeout",  "error",
-                                             "wrong_group_sum",  "masked_key_gradient"};
+                                             "wrong_group_sum",  "masked_key_gradient", "split_merge"};
 
 TEST(BundledTable, NamesAreUniqueAndWellFormed) {
   std::size_t n = 0;
@@ -226,7 +226,7 @@ TEST(BundledTable, SoundKernelsHaveNoFaultAndSpecimensHaveOne) {
     EXPECT_TRUE(kFaultClasses.count(t[i].expected_fault)) << name << ": " << t[i].expected_fault;
     EXPECT_GT(std::strlen(t[i].defect), 10u) << name;
   }
-  EXPECT_EQ(specimens, 24);
+  EXPECT_EQ(specimens, 26);
 }
 
 TEST(BundledTable, HoldsEveryKernelWithItsExpectedFault) {
@@ -269,6 +269,9 @@ TEST(BundledTable, HoldsEveryKernelWithItsExpectedFault) {
       {"softcap_after_mask", "mask_leak"},
       {"sink_dropped", "error"},
       {"varlen_offset_off_by_one", "mask_leak"},
+      {"f32_paged_split", nullptr},
+      {"paged_last_page_whole", "mask_leak"},
+      {"split_merge_unnormalised", "split_merge"},
   };
   std::size_t n = 0;
   const hr_bundled_kernel* t = headroom_bundled_kernels(&n);

@@ -184,6 +184,7 @@ KernelRun forward_run(const CallOutcome& out, const PackedCall& p, const RunOpti
   if (r.status != RunStatus::ok) return r;
   r.out = unpack_output(p);
   r.lse = unpack_lse(p);
+  unpack_partials(p, r.o_partials, r.lse_partials);
   r.unwritten = count_unwritten(p, &r.first_unwritten);
   return r;
 }

@@ -19,7 +19,8 @@ constexpr std::uint32_t kAllMasks = HR_MASK_NONE | HR_MASK_CAUSAL_TOP_LEFT | HR_
                                     HR_MASK_KEY_PADDING | HR_MASK_DENSE | HR_MASK_BIAS;
 constexpr std::uint32_t kAllLayouts = HR_LAYOUT_BHTD | HR_LAYOUT_BTHD;
 // The HR_FEATURE_* bits this build judges; the others are refused (refuse_unjudged).
-constexpr std::uint32_t kJudgedFeatures = HR_FEATURE_WINDOW | HR_FEATURE_SOFTCAP | HR_FEATURE_SINKS | HR_FEATURE_VARLEN;
+constexpr std::uint32_t kJudgedFeatures = HR_FEATURE_WINDOW | HR_FEATURE_SOFTCAP | HR_FEATURE_SINKS | HR_FEATURE_VARLEN |
+                                          HR_FEATURE_PAGED_KV | HR_FEATURE_SPLIT_PARTIALS;
 constexpr MaskKind kMaskKinds[] = {MaskKind::none,        MaskKind::causal_top_left, MaskKind::causal_bottom_right,
                                    MaskKind::key_padding, MaskKind::dense,           MaskKind::bias};
 
@@ -135,8 +136,7 @@ void refuse_unjudged(const hr_kernel* k, const std::string& kernel, const std::s
     const char* what;
   };
   const Field fields[] = {
-      {"features", (k->features & ~kJudgedFeatures) != 0, "paged and split attention"},
-      {"split_kv_len", k->split_kv_len != 0, "split-KV partial results"},
+      {"features", (k->features & ~kJudgedFeatures) != 0, "features beyond window, softcap, sinks, varlen, paged K/V and split partials"},
   };
   for (const Field& f : fields) {
     if (!f.set) continue;
@@ -294,8 +294,26 @@ void check_declaration(const KernelDeclaration& d, const std::string& origin) {
   }
   if ((d.features & ~kJudgedFeatures) != 0) {
     refuse(origin, "field \"features\"", who(d) + " declares features this headroom does not judge yet",
-           "declare only HR_FEATURE_WINDOW, HR_FEATURE_SOFTCAP, HR_FEATURE_SINKS and HR_FEATURE_VARLEN "
-           "(\"window\", \"softcap\", \"sinks\", \"varlen\") for now");
+           "declare only HR_FEATURE_WINDOW, HR_FEATURE_SOFTCAP, HR_FEATURE_SINKS, HR_FEATURE_VARLEN, "
+           "HR_FEATURE_PAGED_KV and HR_FEATURE_SPLIT_PARTIALS for now");
+  }
+  const bool split = (d.features & HR_FEATURE_SPLIT_PARTIALS) != 0;
+  if (split && d.split_kv_len < 1) {
+    refuse(origin, "field \"split_kv_len\"", who(d) + " declares HR_FEATURE_SPLIT_PARTIALS with split_kv_len " +
+                                                  std::to_string(d.split_kv_len),
+           "give the keys each split covers (>= 1)");
+  }
+  if (!split && d.split_kv_len != 0) {
+    refuse(origin, "field \"split_kv_len\"", who(d) + " sets split_kv_len without HR_FEATURE_SPLIT_PARTIALS",
+           "declare HR_FEATURE_SPLIT_PARTIALS, or leave split_kv_len at 0");
+  }
+  if (d.level != Level::core && (d.features & (HR_FEATURE_PAGED_KV | HR_FEATURE_SPLIT_PARTIALS)) != 0) {
+    refuse(origin, "field \"features\"", who(d) + " is a block kernel declaring paged K/V or split partials",
+           "declare them on a core kernel");
+  }
+  if (d.backward && (d.features & (HR_FEATURE_PAGED_KV | HR_FEATURE_SPLIT_PARTIALS)) != 0) {
+    refuse(origin, "field \"features\"", who(d) + " declares a backward entry with paged K/V or split partials",
+           "headroom does not judge their gradients: declare them on a forward-only kernel");
   }
   if (d.backward && (d.features & (HR_FEATURE_SOFTCAP | HR_FEATURE_SINKS | HR_FEATURE_VARLEN)) != 0) {
     refuse(origin, "field \"features\"", who(d) + " declares a backward entry with soft caps, sinks or variable lengths",
@@ -434,6 +452,7 @@ KernelDeclaration declaration_of(const hr_kernel* k, const std::string& origin) 
     d.p_scale = k->p_scale == 0.0f ? 1.0f : k->p_scale;
     refuse_unjudged(k, kernel, origin);
     d.features = k->features;
+    d.split_kv_len = k->split_kv_len;
     d.backward = k->run_backward != nullptr;
     d.backward_flags = k->backward_flags;
   }
@@ -480,6 +499,8 @@ std::string declaration_summary(const KernelDeclaration& d) {
   if (d.features & HR_FEATURE_SOFTCAP) s += " softcap=yes";
   if (d.features & HR_FEATURE_SINKS) s += " sinks=yes";
   if (d.features & HR_FEATURE_VARLEN) s += " varlen=yes";
+  if (d.features & HR_FEATURE_PAGED_KV) s += " paged_kv=yes";
+  if (d.features & HR_FEATURE_SPLIT_PARTIALS) s += " split_kv_len=" + std::to_string(d.split_kv_len);
   if (d.backward) {
     s += " backward=yes";
     if (d.backward_flags & HR_BACKWARD_RECOMPUTES) s += ",recomputes";

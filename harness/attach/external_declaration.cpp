@@ -233,6 +233,10 @@ KernelDeclaration declaration_from_json(const std::string& text, const std::stri
       for (const auto& [n, bit] : kFeatureNames) {
         if (name == n) d.features |= bit, known = true;
       }
+      if (!known && (name == "paged_kv" || name == "split_partials"))
+        refuse(origin, "features", "feature \"" + name + "\" is judged for plug-ins only: the external-program exchange "
+                                   "does not carry pages, block tables or split partials yet",
+               "build the kernel as a shared library against kernel_abi.h, or leave \"" + name + "\" out");
       if (!known) refuse(origin, "features", "unknown or not yet judged feature \"" + name + "\"",
                           "use \"window\", \"softcap\" or \"sinks\"");
     }

@@ -8,6 +8,7 @@
 
 #include "attach/elements.h"
 #include "headroom/varlen.h"
+#include "headroom/paged_kv.h"
 
 namespace headroom::attach_detail {
 namespace {
@@ -199,9 +200,65 @@ hr_out_tensor fill_output(PackedCall& p) {
   return o;
 }
 
+// A paged case's K/V pool and block table (kernel_abi.h hr_paged_kv): pages
+// [P, page_size, Hkv, D] contiguous, made from the received logical K/V, rows
+// of pages in no table holding 0, pages the case lists as poisoned the poison.
+struct PagedPlan {
+  Tensor k_pages, v_pages;
+  std::int64_t ke[4] = {1, 1, 1, 1}, ve[4] = {1, 1, 1, 1};
+  std::size_t k_slot = 0, v_slot = 0, table_slot = 0, lens_slot = 0;
+};
+
+PagedPlan plan_paged(GuardedArena& arena, const ReceivedCase& c, Format f) {
+  const CoreProblem& cp = c.received.core;
+  const CoreShape& s = cp.shape;
+  PagedPlan p;
+  p.k_pages = scatter_pages(cp.paged, c.received.core_inputs.k);
+  p.v_pages = scatter_pages(cp.paged, c.received.core_inputs.v);
+  for (std::int32_t pg : c.poisoned_pages) {
+    for (auto [pages, value] : {std::pair{&p.k_pages, c.page_poison_k}, std::pair{&p.v_pages, c.page_poison_v}}) {
+      const std::size_t per_page = pages->values.size() / static_cast<std::size_t>(cp.paged.num_pages);
+      std::fill_n(pages->values.begin() + static_cast<std::ptrdiff_t>(pg * per_page), per_page, value);
+    }
+  }
+  set4(p.ke, cp.paged.num_pages, cp.paged.page_size, s.kv_heads, s.key_dim);
+  set4(p.ve, cp.paged.num_pages, cp.paged.page_size, s.kv_heads, s.value_dim);
+  p.k_slot = arena.add("k_pages", Role::input, count(p.ke) * item_size(f));
+  p.v_slot = arena.add("v_pages", Role::input, count(p.ve) * item_size(f));
+  p.table_slot = arena.add("block_table", Role::input, cp.paged.block_table.size() * sizeof(std::int32_t));
+  p.lens_slot = arena.add("seq_lens", Role::input, cp.mask.kv_lens.size() * sizeof(std::int64_t));
+  return p;
+}
+
+hr_paged_kv fill_paged(const GuardedArena& arena, const PagedPlan& pp, const CoreProblem& cp, Format f) {
+  hr_paged_kv out{};
+  const std::size_t n = item_size(f);
+  const std::pair<const Tensor*, std::size_t> pools[2] = {{&pp.k_pages, pp.k_slot}, {&pp.v_pages, pp.v_slot}};
+  hr_tensor* dst[2] = {&out.k_pages, &out.v_pages};
+  const std::int64_t* extents[2] = {pp.ke, pp.ve};
+  for (int t = 0; t < 2; ++t) {
+    unsigned char* data = arena.data(pools[t].second);
+    for (std::size_t i = 0; i < pools[t].first->values.size(); ++i) store_element(f, pools[t].first->values[i], data + i * n);
+    dst[t]->data = data;
+    dst[t]->format = abi_format(f);
+    std::memcpy(dst[t]->extents, extents[t], sizeof dst[t]->extents);
+    set_strides(dst[t]->extents, false, dst[t]->strides);
+  }
+  auto* table = reinterpret_cast<std::int32_t*>(arena.data(pp.table_slot));
+  std::copy(cp.paged.block_table.begin(), cp.paged.block_table.end(), table);
+  auto* lens = reinterpret_cast<std::int64_t*>(arena.data(pp.lens_slot));
+  std::copy(cp.mask.kv_lens.begin(), cp.mask.kv_lens.end(), lens);
+  out.block_table = table;
+  out.seq_lens = lens;
+  out.page_size = cp.paged.page_size;
+  out.max_pages_per_seq = cp.paged.max_pages_per_seq;
+  return out;
+}
+
 void pack_core(const ReceivedCase& c, const KernelDeclaration& d, PackedCall& p) {
   const CoreShape& s = c.received.core.shape;
   const CoreInputs& in = c.received.core_inputs;
+  const bool paged = c.received.core.has_paged_kv();
   const bool bthd = (d.layouts & HR_LAYOUT_BHTD) == 0;
   const Format f = d.input_format;
   const bool int8 = is_quantised(f);  // codes with scales: int8, e4m3, e5m2
@@ -210,11 +267,21 @@ void pack_core(const ReceivedCase& c, const KernelDeclaration& d, PackedCall& p)
   const std::int64_t ve[4] = {s.batch, s.kv_heads, s.kv_len, s.value_dim};
   const std::int64_t oe[4] = {s.batch, s.q_heads, s.q_len, s.value_dim};
   InputPlan q = plan_input(p.arena, "q", &in.q, int8 ? &*c.q8 : nullptr, qe, bthd, f);
-  InputPlan k = plan_input(p.arena, "k", &in.k, int8 ? &*c.k8 : nullptr, ke, bthd, f);
-  InputPlan v = plan_input(p.arena, "v", &in.v, int8 ? &*c.v8 : nullptr, ve, bthd, f);
+  // Paged: K/V live in the pages only; q.k and q.v keep their extents, data NULL.
+  const Tensor none;
+  InputPlan k = plan_input(p.arena, "k", paged ? &none : &in.k, int8 ? &*c.k8 : nullptr, ke, bthd, f);
+  InputPlan v = plan_input(p.arena, "v", paged ? &none : &in.v, int8 ? &*c.v8 : nullptr, ve, bthd, f);
+  std::optional<PagedPlan> pages;
+  if (paged) pages = plan_paged(p.arena, c, f);
   MaskPlan mask = plan_mask(p.arena, c.received.core.mask, s);
   plan_output(p, oe, bthd);
   p.out_shape = {s.batch, s.q_heads, s.q_len, s.value_dim};
+  if ((d.features & HR_FEATURE_SPLIT_PARTIALS) != 0) {
+    p.num_splits = (s.kv_len + d.split_kv_len - 1) / d.split_kv_len;
+    const auto rows = static_cast<std::size_t>(p.num_splits * s.batch * s.q_heads * s.q_len);
+    p.partial_slot = p.arena.add("o_partials", Role::output, rows * static_cast<std::size_t>(s.value_dim) * item_size(p.output_format));
+    p.lse_partial_slot = p.arena.add("lse_partials", Role::output, rows * sizeof(float));
+  }
   const std::vector<float>& sinks = c.received.core.sinks;
   std::optional<std::size_t> sinks_slot;
   if (!sinks.empty()) sinks_slot = p.arena.add("sinks", Role::input, sinks.size() * sizeof(float));
@@ -240,6 +307,22 @@ void pack_core(const ReceivedCase& c, const KernelDeclaration& d, PackedCall& p)
   cp.k = fill_input(p.arena, k, f);
   cp.v = fill_input(p.arena, v, f);
   cp.o = fill_output(p);
+  if (pages) {
+    cp.features |= HR_FEATURE_PAGED_KV;
+    cp.paged = fill_paged(p.arena, *pages, c.received.core, f);
+  }
+  if (p.num_splits > 0) {
+    cp.features |= HR_FEATURE_SPLIT_PARTIALS;
+    const std::int64_t pe[4] = {p.num_splits, s.batch * s.q_heads, s.q_len, s.value_dim};
+    fill_unwritten(p.output_format, p.arena.data(p.partial_slot), count(pe));
+    cp.o_partials.data = p.arena.data(p.partial_slot);
+    cp.o_partials.format = abi_format(p.output_format);
+    std::memcpy(cp.o_partials.extents, pe, sizeof cp.o_partials.extents);
+    set_strides(pe, false, cp.o_partials.strides);
+    fill_unwritten(Format::float32, p.arena.data(p.lse_partial_slot), p.arena.bytes(p.lse_partial_slot) / sizeof(float));
+    cp.lse_partials = reinterpret_cast<float*>(p.arena.data(p.lse_partial_slot));
+    cp.num_splits = p.num_splits;
+  }
   if (c.received.core.mask.has_window()) {
     cp.features |= HR_FEATURE_WINDOW;
     cp.window_left = c.received.core.mask.window_left;
@@ -340,6 +423,21 @@ Tensor unpack_output(const PackedCall& p) {
     out.values[i] = load_element(p.output_format, src + at * n);
   });
   return out;
+}
+
+void unpack_partials(const PackedCall& p, Tensor& o_partials, Tensor& lse_partials) {
+  o_partials = Tensor{};
+  lse_partials = Tensor{};
+  if (p.num_splits == 0) return;
+  const hr_core_problem& cp = p.core;
+  o_partials = Tensor({p.num_splits, cp.batch * cp.q_heads, cp.q_len, cp.value_dim});
+  lse_partials = Tensor({p.num_splits, cp.batch, cp.q_heads, cp.q_len});
+  const unsigned char* src = p.arena.data(p.partial_slot);
+  const std::size_t n = item_size(p.output_format);
+  for (std::size_t i = 0; i < o_partials.values.size(); ++i) o_partials.values[i] = load_element(p.output_format, src + i * n);
+  const unsigned char* lse = p.arena.data(p.lse_partial_slot);
+  for (std::size_t i = 0; i < lse_partials.values.size(); ++i)
+    lse_partials.values[i] = load_element(Format::float32, lse + i * sizeof(float));
 }
 
 std::int64_t count_unwritten(const PackedCall& p, std::int64_t* first) {

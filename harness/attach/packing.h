@@ -28,6 +28,10 @@ struct PackedCall {
   std::int64_t out_extents[4] = {1, 1, 1, 1};
   std::int64_t out_strides[4] = {0, 0, 0, 0};
   std::vector<std::int64_t> out_shape;  ///< of KernelRun::out: [B, Hq, Tq, Dv] or [B, Tq, Dm]
+  /// HR_FEATURE_SPLIT_PARTIALS: o_partials [S, B·Hq, Tq, Dv] (output format,
+  /// contiguous) and lse_partials [S, B, Hq, Tq] (float32); S = 0 otherwise.
+  std::int64_t num_splits = 0;
+  std::size_t partial_slot = 0, lse_partial_slot = 0;
 };
 
 /// A backward call's buffers: the forward's inputs and mask, O, lse and dO as
@@ -63,6 +67,9 @@ PackedCall pack(const ReceivedCase& c, const KernelDeclaration& d);
 /// when returned, the log-sum-exp [B, Hq, Tq].
 Tensor unpack_output(const PackedCall& p);
 Tensor unpack_lse(const PackedCall& p);
+/// Returns: the split partials of a call (KernelRun::o_partials, lse_partials);
+/// empty tensors when the call has none.
+void unpack_partials(const PackedCall& p, Tensor& o_partials, Tensor& lse_partials);
 /// Returns: how many output elements still hold the unwritten fill; sets
 /// `*first` to the flat index (into unpack_output's tensor) of the first, −1 when none.
 std::int64_t count_unwritten(const PackedCall& p, std::int64_t* first);

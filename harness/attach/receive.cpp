@@ -94,6 +94,11 @@ std::optional<std::string> why_unfit(const Case& c, const KernelDeclaration& d) 
     return std::string("soft cap not declared");
   if (c.level == Level::core && c.core.has_sinks() && (d.features & HR_FEATURE_SINKS) == 0)
     return std::string("sink logits not declared");
+  if (c.level == Level::core && c.core.has_paged_kv() && (d.features & HR_FEATURE_PAGED_KV) == 0)
+    return std::string("paged K/V not declared");
+  if (c.level == Level::core && c.core.has_paged_kv() && is_quantised(d.input_format))
+    return std::string("paged K/V with ") + std::string(format_name(d.input_format)) +
+           " codes is not judged (page-wise scales are not defined)";
   // A packed batch is declared to the kernel as N sequences of at most the
   // largest lengths (kernel_abi.h), and its limits apply to that.
   const bool offsets_ok = validate_varlen(mask, shape).empty();  // sequence() may index them

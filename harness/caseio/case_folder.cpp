@@ -13,6 +13,7 @@
 #include <fstream>
 #include <set>
 #include <stdexcept>
+#include <tuple>
 #include <string>
 #include <vector>
 
@@ -20,6 +21,7 @@
 #include "headroom/input_error.h"
 #include "headroom/input_file.h"
 #include "headroom/npy.h"
+#include "headroom/paged_kv.h"
 #include "manifest.h"
 
 namespace headroom {
@@ -41,11 +43,14 @@ struct Slot {
 };
 
 // The input tensors of a case with their fixed file names (case_folder.h).
+// A paged case stores K and V as its pages (k_pages.npy, v_pages.npy
+// [P, page_size, Hkv, D]); in memory they are the logical view (paged_kv.h).
 std::vector<Slot> slots_of(Case& c) {
+  const bool paged = c.level == Level::core && c.core.has_paged_kv();
   if (c.level == Level::core)
     return {{"q.npy", &c.core_inputs.q, false},
-            {"k.npy", &c.core_inputs.k, false},
-            {"v.npy", &c.core_inputs.v, false},
+            {paged ? "k_pages.npy" : "k.npy", &c.core_inputs.k, false},
+            {paged ? "v_pages.npy" : "v.npy", &c.core_inputs.v, false},
             {"d_o.npy", &c.d_o, true}};
   BlockInputs& b = c.block_inputs;
   return {{"x_q.npy", &b.x_q, false}, {"x_kv.npy", &b.x_kv, false}, {"w_q.npy", &b.w_q, false},
@@ -71,7 +76,7 @@ std::string index_text(const std::vector<std::int64_t>& shape, std::size_t flat)
 
 // One InputError for validate()'s findings: the first one, located in the
 // file it concerns, with the names of the others so none goes unreported.
-[[noreturn]] void throw_findings(const std::vector<ProblemError>& found, const fs::path& dir) {
+[[noreturn]] void throw_findings(const std::vector<ProblemError>& found, const fs::path& dir, bool paged = false) {
   const ProblemError& e = found.front();
   std::string problem = e.message();
   if (found.size() > 1) {
@@ -83,7 +88,8 @@ std::string index_text(const std::vector<std::int64_t>& shape, std::size_t flat)
   auto after = [&](std::size_t n) { return f.size() > n ? f.substr(n) : std::string("data"); };
   if (f.rfind("inputs.", 0) == 0) {
     const std::size_t dot = f.find('.', 7);
-    const std::string name = f.substr(7, dot == std::string::npos ? std::string::npos : dot - 7);
+    std::string name = f.substr(7, dot == std::string::npos ? std::string::npos : dot - 7);
+    if (paged && (name == "k" || name == "v")) name += "_pages";
     throw InputError((dir / (name + ".npy")).string(), dot == std::string::npos ? "data" : f.substr(dot + 1), problem,
                      "make the tensor match the manifest's \"shape\", or correct the manifest");
   }
@@ -106,7 +112,7 @@ void check_finite(const Tensor& t, const fs::path& file) {
 
 void check_case(Case& c, const fs::path& dir) {
   const auto found = c.level == Level::core ? validate(c.core, c.core_inputs) : validate(c.block, c.block_inputs);
-  if (!found.empty()) throw_findings(found, dir);
+  if (!found.empty()) throw_findings(found, dir, c.level == Level::core && c.core.has_paged_kv());
   if (c.level == Level::core && !absent(c.d_o)) {
     const CoreShape& s = c.core.shape;
     const std::vector<std::int64_t> want{s.batch, s.q_heads, s.q_len, s.value_dim};
@@ -115,6 +121,29 @@ void check_case(Case& c, const fs::path& dir) {
                        "save dO with the shape of the attention output, or correct the manifest");
   }
   for (const Slot& s : slots_of(c)) check_finite(*s.tensor, dir / s.file);
+}
+
+// A paged case read: its layout checked, its pages [P, page_size, Hkv, D]
+// shaped as the manifest says, then replaced by the logical view.
+void gather_case_pages(Case& c, const fs::path& dir) {
+  const auto found = validate(c.core);
+  if (!found.empty()) throw_findings(found, dir, true);
+  const CoreShape& s = c.core.shape;
+  const PagedKv& p = c.core.paged;
+  for (auto [file, t, dim] : {std::tuple{"k_pages.npy", &c.core_inputs.k, s.key_dim},
+                              std::tuple{"v_pages.npy", &c.core_inputs.v, s.value_dim}}) {
+    const std::vector<std::int64_t> want{p.num_pages, p.page_size, s.kv_heads, dim};
+    auto text = [](const std::vector<std::int64_t>& v) {
+      std::string out = "[";
+      for (std::size_t a = 0; a < v.size(); ++a) out += (a ? ", " : "") + std::to_string(v[a]);
+      return out + "]";
+    };
+    if (t->shape != want)
+      throw InputError((dir / file).string(), "shape",
+                       "is " + text(t->shape) + ", not [P, page_size, Hkv, D] = " + text(want) + " of the manifest",
+                       "save the pages with the manifest's num_pages, page_size and shape, or correct the manifest");
+    *t = gather_pages(p, *t, s.batch);
+  }
 }
 
 // The case folder, open: its files are opened relative to it, never through a link.
@@ -246,6 +275,7 @@ Case read_case(const fs::path& dir) {
   }
   if (mask.kind == MaskKind::dense) mask.allowed = read_tensor(folder, "mask.npy", {"|b1", "|u1"}, "a dense mask");
   if (mask.kind == MaskKind::bias) mask.bias = read_tensor(folder, "bias.npy", {"<f4", "<f8"}, "a bias mask");
+  if (c.level == Level::core && c.core.has_paged_kv()) gather_case_pages(c, dir);
   check_case(c, dir);
   return c;
 }
@@ -257,6 +287,10 @@ void write_case(const Case& original, const fs::path& target) {
     throw InputError((dir / kManifest).string(), "field \"name\"", "\"" + c.name + "\" is not a valid case name",
                      "use 1 to 200 characters from A-Z a-z 0-9 _ . + -");
   check_case(c, dir);
+  if (c.level == Level::core && c.core.has_paged_kv()) {
+    c.core_inputs.k = scatter_pages(c.core.paged, c.core_inputs.k);
+    c.core_inputs.v = scatter_pages(c.core.paged, c.core_inputs.v);
+  }
 
   std::vector<std::pair<std::string, NpyArray>> files;
   const std::string_view descr = npy_descr_of(c.source_format);

@@ -191,6 +191,41 @@ void read_varlen(const json& root, const Reader& r, CoreProblem& p) {
   p.mask.cu_kv_lens = cu_kv;
 }
 
+// The paged layout of a core case: "paged": {"page_size", "num_pages",
+// "seq_lens": [B], "block_table": [B][max_pages_per_seq]} (docs/case-format.md).
+void read_paged(const json& root, const Reader& r, CoreProblem& p) {
+  auto it = root.find("paged");
+  if (it == root.end()) return;
+  if (!it->is_object()) r.fail("paged", Reader::type_problem("an object", *it));
+  const json& pj = *it;
+  r.only_keys(pj, {"page_size", "num_pages", "seq_lens", "block_table"}, "paged");
+  p.paged.page_size = r.int_at(pj, "page_size", "paged");
+  p.paged.num_pages = r.int_at(pj, "num_pages", "paged");
+  if (p.paged.page_size < 1) r.fail("paged.page_size", "the page size must be >= 1", "give the keys per page, e.g. 16");
+  const json& lens = r.member(pj, "seq_lens", "paged");
+  if (!lens.is_array() || lens.empty()) r.fail("paged.seq_lens", Reader::type_problem("a non-empty array of integers", lens));
+  for (std::size_t b = 0; b < lens.size(); ++b)
+    p.mask.kv_lens.push_back(r.int_of(lens[b], "paged.seq_lens[" + std::to_string(b) + "]"));
+  const json& table = r.member(pj, "block_table", "paged");
+  if (!table.is_array() || table.empty()) r.fail("paged.block_table", Reader::type_problem("an array of arrays of page indices", table));
+  for (std::size_t b = 0; b < table.size(); ++b) {
+    const std::string row = "paged.block_table[" + std::to_string(b) + "]";
+    if (!table[b].is_array() || table[b].empty()) r.fail(row, Reader::type_problem("a non-empty array of page indices", table[b]));
+    if (b == 0) p.paged.max_pages_per_seq = static_cast<std::int64_t>(table[b].size());
+    if (static_cast<std::int64_t>(table[b].size()) != p.paged.max_pages_per_seq)
+      r.fail(row, "has " + std::to_string(table[b].size()) + " slots, the first row " +
+                      std::to_string(p.paged.max_pages_per_seq),
+             "give every sequence max_pages_per_seq slots, -1 past its last page");
+    for (std::size_t s = 0; s < table[b].size(); ++s) {
+      const std::int64_t pg = r.int_of(table[b][s], row + "[" + std::to_string(s) + "]");
+      if (pg < -1 || pg > std::numeric_limits<std::int32_t>::max())
+        r.fail(row + "[" + std::to_string(s) + "]", "page " + std::to_string(pg) + " is not a page index or -1",
+               "give a page in [0, num_pages) or -1 for an unused slot");
+      p.paged.block_table.push_back(static_cast<std::int32_t>(pg));
+    }
+  }
+}
+
 }  // namespace
 
 bool valid_case_name(std::string_view name) {
@@ -204,7 +239,7 @@ Case parse_manifest(std::string_view text, const std::string& file) {
   const json root = parse_json(text, file);
   const Reader r(file);
   r.only_keys(root, {"headroom_case", "name", "level", "shape", "scale", "scale_hex", "softcap_hex", "sinks_hex",
-                     "varlen", "source_format", "mask", "provenance"},
+                     "varlen", "paged", "source_format", "mask", "provenance"},
               "");
 
   const std::int64_t version = r.int_at(root, "headroom_case", "");
@@ -282,9 +317,10 @@ Case parse_manifest(std::string_view text, const std::string& file) {
     c.core.mask = std::move(mask);
     read_score_features(root, r, c.core);
     read_varlen(root, r, c.core);
+    read_paged(root, r, c.core);
   } else {
-    for (const char* key : {"softcap_hex", "sinks_hex", "varlen"})
-      if (root.contains(key)) r.fail(key, std::string(key) + " given for a block case", "remove it: only core cases soft-cap, sink or pack variable lengths");
+    for (const char* key : {"softcap_hex", "sinks_hex", "varlen", "paged"})
+      if (root.contains(key)) r.fail(key, std::string(key) + " given for a block case", "remove it: only core cases soft-cap, sink, pack variable lengths or page K/V");
     c.block.shape = BlockShape{cs.batch, cs.q_len, cs.kv_len, extent("model_dim"), cs.q_heads, cs.kv_heads, cs.key_dim, cs.value_dim};
     c.block.scale = scale;
     c.block.mask = std::move(mask);
@@ -325,6 +361,17 @@ std::string format_manifest(const Case& c) {
   }
   if (core && mask.is_varlen())
     j["varlen"] = ordered{{"q_lens", lengths_of(mask.cu_q_lens)}, {"kv_lens", lengths_of(mask.cu_kv_lens)}};
+  if (core && c.core.has_paged_kv()) {
+    const PagedKv& p = c.core.paged;
+    ordered table = ordered::array();
+    for (std::int64_t b = 0; b < s.batch; ++b) {
+      ordered row = ordered::array();
+      for (std::int64_t slot = 0; slot < p.max_pages_per_seq; ++slot) row.push_back(p.page(b, slot));
+      table.push_back(row);
+    }
+    j["paged"] = ordered{{"page_size", p.page_size}, {"num_pages", p.num_pages}, {"seq_lens", mask.kv_lens},
+                         {"block_table", table}};
+  }
   j["source_format"] = std::string(format_name(c.source_format));
   ordered m;
   m["kind"] = std::string(mask_kind_name(mask.kind));

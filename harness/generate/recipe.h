@@ -87,6 +87,7 @@ std::vector<FamilyImpl> window_families();      // sliding_window
 std::vector<FamilyImpl> fp8_families();         // fp8_scales
 std::vector<FamilyImpl> score_feature_families();  // capped_logits, dominant_sinks
 std::vector<FamilyImpl> varlen_families();          // varlen_edges
+std::vector<FamilyImpl> paged_families();          // paged_decode
 
 // ---- shared helpers (shapes.cpp) ----
 

@@ -111,7 +111,9 @@ std::vector<std::string> coverage_text(const SuiteCoverage& c) {
     return out;
   };
   std::string features;
-  for (const auto& [name, n] : c.features) features += (features.empty() ? "" : ", ") + name + " " + std::to_string(n);
+  for (const auto& [name, n] : c.features)
+    features += (features.empty() ? "" : ", ") + name + " " + std::to_string(n) +
+                (name == "paged_kv" ? " (decode, Tq 1 to 8)" : "");
   if (features.empty()) features = "none";
   return {
       "cases: " + std::to_string(c.cases) + " (" + std::to_string(c.block_cases) + " block level, " +
@@ -125,7 +127,7 @@ std::vector<std::string> coverage_text(const SuiteCoverage& c) {
       "masks: " + join(c.masks),
       "families: " + std::to_string(c.families.size()) + " of " + std::to_string(std::size(kFamilies)),
       "inference features (kernel_abi.h v2, only for kernels declaring them): " + features +
-          "; not yet: paged K/V, split-KV partials",
+          "; split-KV partials judged on every case of a kernel writing them",
       "formats: the kernel's own, each case rounded or quantised to the input format it declares: " + format_list() +
           " (scales per tensor, head, token, channel or block as declared)",
   };

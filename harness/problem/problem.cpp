@@ -238,8 +238,9 @@ bool kind_visible(const Mask& m, const CoreShape& s, std::int64_t b, std::int64_
     case MaskKind::causal_top_left:
       return j <= i;
     case MaskKind::causal_bottom_right:
-      // Aligned so the last query row sees every key: row Tq−1 ↔ key Tk−1.
-      return j <= i + (s.kv_len - s.q_len);
+      // Aligned so the last query row sees every key: row Tq−1 ↔ key Tk−1
+      // (the sequence's own last key under kv_lens).
+      return j <= i + (m.kv_end(s, b) - s.q_len);
     case MaskKind::key_padding:
       return j < m.key_lengths[static_cast<std::size_t>(b)];
     case MaskKind::dense:
@@ -253,6 +254,7 @@ bool kind_visible(const Mask& m, const CoreShape& s, std::int64_t b, std::int64_
 }  // namespace
 
 bool Mask::visible(const CoreShape& s, std::int64_t b, std::int64_t h, std::int64_t i, std::int64_t j) const {
+  if (!kv_lens.empty() && j >= kv_lens[static_cast<std::size_t>(b)]) return false;
   if (is_varlen()) {
     // Each sequence is its own problem: its keys only, its own lengths and
     // local positions for causal alignment and the window (varlen.h).
@@ -269,7 +271,7 @@ bool Mask::visible(const CoreShape& s, std::int64_t b, std::int64_t h, std::int6
   }
   if (!kind_visible(*this, s, b, h, i, j)) return false;
   if (!has_window()) return true;
-  const std::int64_t at = kind == MaskKind::causal_top_left ? i : i + (s.kv_len - s.q_len);
+  const std::int64_t at = kind == MaskKind::causal_top_left ? i : i + (kv_end(s, b) - s.q_len);
   if (window_left >= 0 && j < at - window_left) return false;
   return window_right < 0 || j <= at + window_right;
 }
@@ -301,6 +303,13 @@ std::vector<ProblemError> validate(const CoreProblem& p) {
   check_scale(p.scale, f);
   if (shape_ok) check_mask(p.mask, p.shape, f);
   check_score_features(p, f);
+  if (shape_ok && p.has_paged_kv()) {
+    for (auto& e : paged_findings(p.paged, p.shape.batch, p.shape.kv_len, p.mask.kv_lens))
+      f.add(std::move(e.field), std::move(e.expected), std::move(e.found));
+    if (p.mask.is_varlen()) f.add("paged", "no packed variable-length offsets with pages (not judged together yet)", "both");
+  } else if (!p.mask.kv_lens.empty()) {
+    f.add("mask.kv_lens", "no sequence lengths without a paged layout", std::to_string(p.mask.kv_lens.size()) + " entries");
+  }
   std::vector<ProblemError> out = f.take();
   if (shape_ok)
     for (ProblemError& e : validate_varlen(p.mask, p.shape)) out.push_back(std::move(e));
@@ -315,7 +324,14 @@ std::vector<ProblemError> validate(const CoreProblem& p, const CoreInputs& in) {
   f.tensor("inputs.q", in.q, {s.batch, s.q_heads, s.q_len, s.key_dim});
   f.tensor("inputs.k", in.k, {s.batch, s.kv_heads, s.kv_len, s.key_dim});
   f.tensor("inputs.v", in.v, {s.batch, s.kv_heads, s.kv_len, s.value_dim});
+  const bool shaped = f.empty();
   for (auto& e : f.take()) out.push_back(std::move(e));
+  if (shaped && out.empty() && p.has_paged_kv()) {
+    for (const auto& [name, t] : {std::pair{"inputs.k", &in.k}, std::pair{"inputs.v", &in.v}}) {
+      const std::string conflict = shared_page_conflict(p.paged, *t);
+      if (!conflict.empty()) out.push_back({name, "one content per shared page", conflict});
+    }
+  }
   return out;
 }
 

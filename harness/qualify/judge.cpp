@@ -7,6 +7,7 @@
 
 #include "headroom/bundled_registry.h"
 #include "headroom/judge_backward.h"
+#include "headroom/judge_splits.h"
 #include "headroom/problem.h"
 
 namespace headroom {
@@ -256,6 +257,11 @@ Judgement judge_case(AttachedKernel& k, const Case& c, const JudgeOptions& opt, 
                                 " query rows (a deterministic sample); every row checked for faults");
   }
   j.faults = faults_of(k, rc, first, ref, detect);
+  if (ref.core && d.split_kv_len > 0 && !first.o_partials.values.empty()) {
+    const SplitJudgement split = judge_splits(first, rc, d.split_kv_len, d.output_format, detect.reference);
+    for (const auto& f : {split.partial, split.merge})
+      if (f) j.faults.faults.push_back(*f);
+  }
   // The backward needs the exact O of every row (it is fed them): not judged on a row-sampled case.
   if (d.backward && ref.core && detect.reference.rows.empty()) judge_backward(k, rc, c, first, *ref.core, opt, j);
   if (d.backward && ref.core && !detect.reference.rows.empty())

@@ -133,7 +133,9 @@ void rerun_detectors(CaseFaults& cf, AttachedKernel& kernel, const ReceivedCase&
   if (nd && opt.mask_leak) {
     cf.notes.push_back("mask_leak not probed: the kernel is nondeterministic");
   } else if (opt.mask_leak) {
-    if (auto leak = detect_mask_leak(kernel, c, first, opt, &cf.runs, &cf.notes)) {
+    std::optional<Fault> leak = detect_mask_leak(kernel, c, first, opt, &cf.runs, &cf.notes);
+    if (!leak) leak = detect_page_leak(kernel, c, first, opt.run, &cf.runs);
+    if (leak) {
       if (leak->kind != FaultClass::mask_leak) {
         merge_into(cf, std::move(*leak));  // nondeterminism or a wrong-head read the probe told apart
       } else if (alignment) {
@@ -163,6 +165,8 @@ std::string_view fault_class_name(FaultClass c) {
     case FaultClass::non_finite_gradient: return "non_finite_gradient";
     case FaultClass::masked_key_gradient: return "masked_key_gradient";
     case FaultClass::wrong_group_sum: return "wrong_group_sum";
+    case FaultClass::split_partial: return "split_partial";
+    case FaultClass::split_merge: return "split_merge";
   }
   return "unknown";
 }

@@ -18,6 +18,7 @@
 #include "headroom/fp8.h"
 #include "headroom/scores.h"
 #include "headroom/varlen.h"
+#include "leak_poison.h"
 
 namespace headroom {
 namespace {
@@ -78,15 +79,7 @@ std::vector<Group> build_groups(const ReceivedCase& c) {
   return groups;
 }
 
-// A power of two 2^8 above max|t| (so a leaked poison dominates what it
-// replaced), capped to stay finite in the input format.
-double poison_of(const Tensor& t, Format f) {
-  double m = 0;
-  for (double v : t.values) m = std::max(m, std::fabs(v));
-  const int e = m > 0 ? std::ilogb(m) + 1 : 0;
-  const int cap = f == Format::binary16 ? 15 : f == Format::float64 ? 900 : 100;  // 2^15 < 65504
-  return std::ldexp(1.0, std::min(e + 8, cap));
-}
+double poison_of(const Tensor& t, Format f) { return score_detail::leak_poison(t, f); }
 
 // int8: the code farthest from the zero point in the wanted direction;
 // e4m3/e5m2: ±the largest finite value (fp8.h).
@@ -112,6 +105,7 @@ class Poisoner {
       pk_ = poison_of(base.received.core_inputs.k, f);
       pv_ = poison_of(base.received.core_inputs.v, f);
     }
+    if (!block && base.received.core.paged.active()) shared_ = base.received.core.paged.sharers();
   }
 
   // Poisons keys `js` of group `gr` in `work` (a copy of the base case).
@@ -125,7 +119,12 @@ class Poisoner {
     }
     CoreInputs& in = work.received.core_inputs;
     const bool poison_k = var != Variant::v_only;
+    const PagedKv& paged = work.received.core.paged;
     for (std::int64_t j : js) {
+      // A page several sequences share holds one content for all of them:
+      // poisoning it for one would move the others' visible keys.
+      if (paged.active() && shared_[static_cast<std::size_t>(std::max(0, paged.page(gr.b, j / paged.page_size)))] > 1)
+        continue;
       for (std::int64_t d = 0; d < in.v.shape[3]; ++d) set(work, false, gr.b, gr.g, j, d, true);
       if (!poison_k) continue;
       for (std::int64_t d = 0; d < in.k.shape[3]; ++d) set(work, true, gr.b, gr.g, j, d, var == Variant::k_plus);
@@ -158,6 +157,7 @@ class Poisoner {
 
   const ReceivedCase& base_;
   double pk_ = 0, pv_ = 0, px_ = 0;
+  std::vector<int> shared_;  // paged: how many sequences name each page
 };
 
 bool same_or_zero(double a, double b) {
@@ -214,6 +214,16 @@ double leaked_mass(const ReceivedCase& base, const ReceivedCase& work, const Gro
     if (den > 0 && std::isfinite(delta)) mass = std::max(mass, delta / den);
   }
   return mass;
+}
+
+// Where a paged key lives: " (page P row r, past sequence b's length L)".
+std::string page_text(const ReceivedCase& c, std::int64_t b, std::int64_t j) {
+  const PagedKv& p = c.received.core.paged;
+  if (c.received.level != Level::core || !p.active()) return "";
+  const std::int32_t page = p.page(b, j / p.page_size);
+  const std::int64_t len = c.received.core.mask.kv_end(c.received.core.shape, b);
+  return " (page " + std::to_string(page) + " row " + std::to_string(j % p.page_size) +
+         (j >= len ? ", past sequence " + std::to_string(b) + "'s length " + std::to_string(len) : std::string()) + ")";
 }
 
 std::string variant_text(Variant v, bool block) {
@@ -392,7 +402,7 @@ std::optional<Fault> detect_mask_leak(AttachedKernel& kernel, const ReceivedCase
                    row_text + (other ? ", which must see only its own sequence's keys" : "");
       } else if (cand.size() == 1) {
         f.where.push_back(cand[0]);
-        f.detail = "masked key j=" + std::to_string(cand[0]) + " changes row " + row_text;
+        f.detail = "masked key j=" + std::to_string(cand[0]) + page_text(c, gr.b, cand[0]) + " changes row " + row_text;
       } else {
         f.detail = "masked keys (" + std::to_string(cand.size()) + " together) change row " + row_text;
       }

@@ -30,6 +30,12 @@ struct ReceivedCase {
   Case received;  ///< same problem, tensors replaced by the received values
   std::optional<QuantizedTensor> q8, k8, v8;  ///< int8 / e4m3 / e5m2 core inputs (codes and scales)
   Format input_format = Format::float32;      ///< the format the tensors were received in
+  /// Paged K/V (paged_kv.h): pages whose every K element is set to
+  /// page_poison_k and V element to page_poison_v when packed, so a detector
+  /// can tell whether a kernel reads them (pages in no block table hold 0
+  /// otherwise). Empty as received.
+  std::vector<std::int32_t> poisoned_pages{};
+  double page_poison_k = 0.0, page_poison_v = 0.0;
 };
 
 /// Returns: why kernel `d` cannot be given case `c` (level, mask kind,
@@ -103,6 +109,9 @@ struct KernelRun {
   Tensor out;          ///< core [B, Hq, Tq, Dv] or block [B, Tq, Dm], output-format values as doubles;
                        ///< filled only when status is ok (unwritten elements read as NaN)
   Tensor lse;          ///< [B, Hq, Tq] when ok and the kernel returns log-sum-exp, else empty
+  /// HR_FEATURE_SPLIT_PARTIALS, when ok: each split's output [S, B·Hq, Tq, Dv]
+  /// (output-format values) and log-sum-exp [S, B, Hq, Tq]; else empty.
+  Tensor o_partials, lse_partials;
   std::int64_t unwritten = 0;         ///< output elements still holding headroom's NaN fill (never written;
                                       ///< plug-ins only: an external program writes whole files)
   std::int64_t first_unwritten = -1;  ///< flat index into `out` of the first of them, −1 when none

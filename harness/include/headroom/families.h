@@ -203,6 +203,21 @@ inline constexpr FamilyInfo kFamilies[] = {
      "sequences lets a row see its neighbour's first key (mask_leak). Only kernels declaring the "
      "feature get these cases.",
      "", Level::core, "varlen"},
+    {"paged_decode", "decode queries (Tq 1 to 8) over a paged K/V cache: shuffled pages, shared prefixes, partial last pages",
+     "Gaussian Q, K, V with K and V in a page pool (kernel_abi.h version 2, HR_FEATURE_PAGED_KV): page size "
+     "16, 8, 4, 32 or 5 (a requested Tk it does not divide takes its largest divisor below); Tk, the "
+     "table's capacity, one or two pages or up to 64 keys at the default size; up to 4 sequences ending "
+     "(knob + b) mod page size keys before Tk, so across sequences and seeds the last page ends on each "
+     "of its rows, with one sequence of a single key or of exactly one page. Pages in order, shuffled in "
+     "the pool, shuffled with the sequences sharing their first full pages (a common prompt prefix), or "
+     "that with two pages no table names. Tq 1 (decode) or 2, 4, 8 (speculated tokens; no sequence "
+     "shorter) under bottom-right causal alignment to each sequence's own end, or no mask. The rows of a "
+     "last page past its sequence's end hold stale keys: a kernel reading the page whole attends them (a "
+     "leak); one reading a page outside the table reads another sequence's keys or a freed page. Only "
+     "kernels declaring the feature get these cases.",
+     "Kwon et al. 2023, Efficient Memory Management for Large Language Model Serving with PagedAttention, "
+     "§4 (block tables over a page pool, shared prefix blocks; from memory)",
+     Level::core, "paged_kv"},
 };
 
 /// Returns: every family, in the order above.

@@ -17,6 +17,9 @@
 //                         finite and within the output format's range
 //   masked_key_gradient   a dK or dV element of a key no query sees that is not exactly 0
 //   wrong_group_sum       grouped-query dK, dV equal to one query head's share, not the group's sum
+// and, for a kernel writing split-KV partials (HR_FEATURE_SPLIT_PARTIALS, judge_splits.h):
+//   split_partial         a split's output or log-sum-exp off the exact attention over its own keys
+//   split_merge           every partial within budget, the merged output not their log-sum-exp merge
 // (a backward whose repeated calls differ is `nondeterministic`, its detail says "backward").
 // RunStatus unsupported and bad_output are not faults of the numerics: they are
 // counted separately (CaseFaults::unsupported_runs, bad_output_runs).
@@ -46,6 +49,8 @@ enum class FaultClass : unsigned char {
   non_finite_gradient,
   masked_key_gradient,
   wrong_group_sum,
+  split_partial,
+  split_merge,
 };
 
 /// Every fault class, in the order above.
@@ -53,7 +58,7 @@ inline constexpr FaultClass kAllFaultClasses[] = {
     FaultClass::non_finite, FaultClass::mask_leak,        FaultClass::oob_read, FaultClass::oob_write,
     FaultClass::convention, FaultClass::nondeterministic, FaultClass::crash,    FaultClass::timeout,
     FaultClass::stray_process, FaultClass::non_finite_gradient, FaultClass::masked_key_gradient,
-    FaultClass::wrong_group_sum,
+    FaultClass::wrong_group_sum, FaultClass::split_partial, FaultClass::split_merge,
 };
 
 /// Returns: the JSON name ("non_finite", "mask_leak", ...).
@@ -139,6 +144,16 @@ std::optional<Fault> detect_causal_alignment(const KernelRun& run, const Receive
 /// poisoned reads another head's K/V: a convention fault (head order), not a leak.
 /// `runs` (if non-null) is increased by the kernel calls made.
 /// Preconditions: baseline = kernel.run(c) with status ok.
+/// Returns: a mask_leak fault when, on a paged core case, poisoning the pages
+/// outside a sequence's block table (other sequences' pages and pages in no
+/// table; K to ±P_K, V to P_V, powers of two 2^8 above the largest |K|, |V|)
+/// changes any bit of that sequence's output rows (±0 equal); the detail
+/// names one such page, found by bisection. Nothing for other cases (and for
+/// int8 and 8-bit float inputs, which paged cases do not reach).
+/// `runs` (if non-null) is increased by the kernel calls made.
+std::optional<Fault> detect_page_leak(AttachedKernel& kernel, const ReceivedCase& c, const KernelRun& baseline,
+                                      const RunOptions& run_opt, int* runs);
+
 std::optional<Fault> detect_mask_leak(AttachedKernel& kernel, const ReceivedCase& c, const KernelRun& baseline,
                                       const DetectorOptions& opt, int* runs = nullptr,
                                       std::vector<std::string>* notes = nullptr);

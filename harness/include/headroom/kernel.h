@@ -61,6 +61,9 @@ struct KernelDeclaration {
   std::int64_t max_q_len = 0;             ///< 0 = no limit
   std::int64_t max_batch = 0;             ///< 0 = no limit
   std::uint32_t features = 0;             ///< HR_FEATURE_* bits (kernel_abi.h version 2)
+  /// HR_FEATURE_SPLIT_PARTIALS: keys per split; split s covers keys
+  /// [s·split_kv_len, (s+1)·split_kv_len) of each sequence. 0 otherwise.
+  std::int64_t split_kv_len = 0;
   // Version 2: 8-bit floats. Block sizes live in the schemes (QuantScheme::block).
   bool fp8_saturating = false;            ///< the kernel's own 8-bit conversions saturate
   std::optional<Format> p_quant;          ///< e4m3/e5m2: P rounded to it before P·V; empty: not rounded

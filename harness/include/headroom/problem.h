@@ -17,6 +17,7 @@
 #include <string_view>
 #include <vector>
 
+#include "headroom/paged_kv.h"
 #include "headroom/tensor.h"
 
 namespace headroom {
@@ -58,10 +59,21 @@ struct Mask {
   /// Empty: a dense batch. docs/varlen.md.
   std::vector<std::int64_t> cu_q_lens, cu_kv_lens;
 
+  /// Keys present per sequence (a paged cache's sequence lengths, [B], each
+  /// in [1, Tk]); empty: every sequence has Tk. Key j of sequence b is hidden
+  /// when j ≥ kv_lens[b], and causal_bottom_right and windows align the last
+  /// query to that sequence's last key (i + kv_lens[b] − Tq), as a decoder
+  /// appending to its own cache does.
+  std::vector<std::int64_t> kv_lens{};
+
   /// Returns: whether a window restricts visibility.
   bool has_window() const { return window_left >= 0 || window_right >= 0; }
   /// Returns: whether the problem is a packed variable-length batch.
   bool is_varlen() const { return !cu_q_lens.empty(); }
+  /// Returns: the keys sequence b has: kv_lens[b], or Tk without lengths.
+  std::int64_t kv_end(const CoreShape& s, std::int64_t b) const {
+    return kv_lens.empty() ? s.kv_len : kv_lens[static_cast<std::size_t>(b)];
+  }
   /// Returns: whether key j is visible to query i of head h in batch b.
   bool visible(const CoreShape& s, std::int64_t b, std::int64_t h, std::int64_t i, std::int64_t j) const;
   /// Returns: the additive bias of (b, h, i, j) (0 unless kind is bias).
@@ -80,11 +92,17 @@ struct CoreProblem {
   /// exp(σ_h) to every row's normaliser of head h with no value row; empty =
   /// none. In the units of the capped, biased scores z.
   std::vector<float> sinks{};
+  /// Paged K/V (HR_FEATURE_PAGED_KV, paged_kv.h): the logical K/V of the
+  /// inputs live in these pages for the kernel; mask.kv_lens holds the
+  /// sequence lengths. Inactive (page_size 0) otherwise.
+  PagedKv paged{};
 
   /// Returns: whether the problem soft-caps its scores.
   bool has_softcap() const { return softcap != 0.0f; }
   /// Returns: whether the problem has sink logits.
   bool has_sinks() const { return !sinks.empty(); }
+  /// Returns: whether K/V are paged.
+  bool has_paged_kv() const { return paged.active(); }
 };
 
 /// Q [B, Hq, Tq, Dk], K [B, Hkv, Tk, Dk], V [B, Hkv, Tk, Dv].
@@ -125,9 +143,20 @@ struct ProblemError {
 /// Returns: every inconsistency of the shape, scale and mask (empty when valid):
 /// extents ≥ 1, Hq a multiple of Hkv, finite nonzero scale, mask tensors shaped
 /// as documented, key lengths in [0, Tk], window sides ≥ −1, a soft cap that is
-/// 0 or finite and > 0, sinks empty or Hq finite values.
+/// 0 or finite and > 0, sinks empty or Hq finite values, a paged layout
+/// consistent with the shape (paged_findings) and sequence lengths only with it.
 std::vector<ProblemError> validate(const CoreProblem& p);
-/// Returns: validate(p) plus the shapes of Q, K, V against p.shape.
+/// Returns: every inconsistency of layout `p` for `batch` sequences of
+/// lengths `kv_lens` over a logical K/V of `kv_len` keys, (empty when valid): page_size ≥ 1, P ≥ 1, kv_len =
+/// max_pages_per_seq · page_size, B · max_pages_per_seq table entries, lengths
+/// given and in [1, kv_len], each sequence's first ceil(len/page_size) slots
+/// naming distinct pages in [0, P) and the rest −1, and a page named by two
+/// sequences wholly inside both their lengths (a shared prefix page is full).
+std::vector<ProblemError> paged_findings(const PagedKv& p, std::int64_t batch, std::int64_t kv_len,
+                                         const std::vector<std::int64_t>& kv_lens);
+
+/// Returns: validate(p) plus the shapes of Q, K, V against p.shape, and for a
+/// paged case every shared page holding one content (shared_page_conflict).
 std::vector<ProblemError> validate(const CoreProblem& p, const CoreInputs& in);
 std::vector<ProblemError> validate(const BlockProblem& p);
 std::vector<ProblemError> validate(const BlockProblem& p, const BlockInputs& in);

@@ -80,7 +80,7 @@ struct SuiteCoverage {
   std::vector<std::int64_t> group_sizes; ///< Hq / Hkv, ascending
   std::vector<std::string> masks;        ///< mask kinds, in problem.h's order
   std::vector<std::string> families;     ///< in families.h's order
-  /// Cases per kernel_abi.h version-2 feature ("window", "softcap", "sinks"), in families.h's order.
+  /// Cases per kernel_abi.h version-2 feature ("window", "softcap", "sinks", "paged_kv"), in families.h's order.
   std::vector<std::pair<std::string, std::size_t>> features;
 };
 
