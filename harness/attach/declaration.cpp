@@ -307,6 +307,10 @@ void check_declaration(const KernelDeclaration& d, const std::string& origin) {
     refuse(origin, "field \"split_kv_len\"", who(d) + " sets split_kv_len without HR_FEATURE_SPLIT_PARTIALS",
            "declare HR_FEATURE_SPLIT_PARTIALS, or leave split_kv_len at 0");
   }
+  if ((d.features & HR_FEATURE_VARLEN) != 0 && (d.features & (HR_FEATURE_PAGED_KV | HR_FEATURE_SPLIT_PARTIALS)) != 0) {
+    refuse(origin, "field \"features\"", who(d) + " declares packed variable lengths with paged K/V or split partials",
+           "headroom does not judge them together yet: declare them on separate kernels");
+  }
   if (d.level != Level::core && (d.features & (HR_FEATURE_PAGED_KV | HR_FEATURE_SPLIT_PARTIALS)) != 0) {
     refuse(origin, "field \"features\"", who(d) + " is a block kernel declaring paged K/V or split partials",
            "declare them on a core kernel");
