@@ -54,7 +54,7 @@ std::int32_t varlen_prefill(const hr_core_problem* p, std::int64_t key_overrun) 
         load_row(p->q, s.tensor_b, h, s.q0 + i, dk, q.data());
         float m = kNegInf, l = 0.0f;
         std::fill(acc.begin(), acc.end(), 0.0f);
-        const std::int64_t begin = mask.key_begin(i), end = mask.key_end(s.mask_b, i);
+        const std::int64_t begin = mask.key_begin(s.mask_b, i), end = mask.key_end(s.mask_b, i);
         for (std::int64_t j0 = begin; j0 < end; j0 += kKeyTile) {
           const std::int64_t cols = std::min(kKeyTile, end - j0);
           float tile_max = kNegInf;
