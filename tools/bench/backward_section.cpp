@@ -14,8 +14,8 @@
 #include <algorithm>
 #include <cmath>
 #include <cstdio>
-#include <random>
 
+#include "gaussian_problem.h"
 #include "headroom/reference_backward.h"
 #include "measure.h"
 #include "plain.h"
@@ -34,15 +34,8 @@ struct Problem {
 
 Problem make_problem(std::int64_t t, std::int64_t d, std::uint64_t seed) {
   Problem pr;
-  pr.p.shape = {1, 1, 1, t, t, d, d};
-  pr.p.scale = static_cast<float>(1.0 / std::sqrt(static_cast<double>(d)));
-  std::mt19937_64 rng(seed);
-  std::normal_distribution<double> dist(0.0, 1.0);
-  auto fill = [&](std::vector<std::int64_t> shape) {
-    Tensor x(std::move(shape));
-    for (double& v : x.values) v = static_cast<float>(dist(rng));
-    return x;
-  };
+  pr.p = one_head_problem(t, t, d);
+  GaussianTensors fill(seed);
   pr.in.q = fill({1, 1, t, d});
   pr.in.k = fill({1, 1, t, d});
   pr.in.v = fill({1, 1, t, d});
