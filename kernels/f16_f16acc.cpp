@@ -55,15 +55,17 @@ std::int32_t run(const hr_core_problem* p) {
         float l = 0.0f;
         for (std::int64_t j0 = 0; j0 < p->kv_len; j0 += 64) {
           float part = 0.0f;
-          for (std::int64_t j = j0; j < std::min<std::int64_t>(j0 + 64, p->kv_len); ++j) part += std::exp(z[j] - m);
+          for (std::int64_t j = j0; j < std::min<std::int64_t>(j0 + 64, p->kv_len); ++j) {
+            z[j] = std::exp(z[j] - m);  // z now holds the weights e_j
+            part += z[j];
+          }
           l += part;
         }
         // Pass 2: PV in binary16 on the normalised weights.
         std::fill(acc.begin(), acc.end(), 0.0f);
         for (std::int64_t j = 0; j < p->kv_len; ++j) {
-          const float e = std::exp(z[j] - m);
-          if (e == 0.0f) continue;
-          const float p16 = round_binary16(e / l);
+          if (z[j] == 0.0f) continue;  // masked (or underflowed): V row not read
+          const float p16 = round_binary16(z[j] / l);
           load_row(p->v, b, g, j, p->value_dim, v.data());
           for (std::int64_t d = 0; d < p->value_dim; ++d) acc[d] = round_binary16(acc[d] + round_binary16(p16 * v[d]));
         }
