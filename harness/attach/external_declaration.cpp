@@ -23,11 +23,16 @@ const std::set<std::string> kFields = {"protocol",  "name",       "description",
 // its 8-bit float conversions (block sizes travel inside q_quant, k_quant, v_quant).
 const std::set<std::string> kFieldsV2 = {"key_dims",  "value_dims", "head_dim_multiple", "kv_len_multiple",
                                          "max_q_len", "max_batch",  "serve",             "features",
-                                         "fp8_saturating", "p_quant", "p_scale"};
+                                         "fp8_saturating", "p_quant", "p_scale", "backward",
+                                         "backward_flags"};
 // The protocol-2 names of kernel_abi.h's HR_FEATURE_* bits this build judges.
 const std::pair<const char*, std::uint32_t> kFeatureNames[] = {
     {"window", HR_FEATURE_WINDOW}, {"softcap", HR_FEATURE_SOFTCAP}, {"sinks", HR_FEATURE_SINKS},
     {"varlen", HR_FEATURE_VARLEN}};
+// The protocol-2 names of kernel_abi.h's HR_BACKWARD_* bits.
+const std::pair<const char*, std::uint32_t> kBackwardFlagNames[] = {{"recomputes", HR_BACKWARD_RECOMPUTES},
+                                                                    {"nondeterministic", HR_BACKWARD_NONDETERMINISTIC},
+                                                                    {"bias_grad", HR_BACKWARD_BIAS_GRAD}};
 
 std::string place(const std::string& field) { return "describe output, field \"" + field + "\""; }
 
@@ -261,6 +266,31 @@ KernelDeclaration declaration_from_json(const std::string& text, const std::stri
       refuse(origin, "p_scale", it->dump() + " is not a float32 value", "give a value exactly representable in float32, e.g. 448");
     }
   }
+  // The backward entry (kernel_abi.h run_backward, backward_flags): `CMD run-backward DIR`.
+  if (auto it = j.find("backward"); it != j.end()) {
+    if (!it->is_boolean()) refuse(origin, "backward", "expected true or false, found " + it->dump(), "give a JSON boolean");
+    d.backward = it->get<bool>();
+  }
+  if (auto it = j.find("backward_flags"); it != j.end()) {
+    if (!it->is_array())
+      refuse(origin, "backward_flags", "expected an array of flag names, found " + it->dump(), "e.g. [\"recomputes\"]");
+    for (const json& f : *it) {
+      const std::string name = string_field(f, "backward_flags", origin);
+      bool known = false;
+      for (const auto& [n, bit] : kBackwardFlagNames) {
+        if (name == n) d.backward_flags |= bit, known = true;
+      }
+      if (!known)
+        refuse(origin, "backward_flags", "unknown flag \"" + name + "\"",
+               "use \"recomputes\", \"nondeterministic\" or \"bias_grad\"");
+    }
+  }
+  if (!d.backward && d.backward_flags != 0)
+    refuse(origin, "backward_flags", "given but the program declares no backward",
+           "declare \"backward\": true and answer `CMD run-backward DIR`, or remove \"backward_flags\"");
+  if (d.backward && (d.level != Level::core || is_quantised(d.input_format)))
+    refuse(origin, "backward", "a backward is judged for core kernels with float inputs only",
+           "declare \"backward\": false (or leave it out) on a block or int8/e4m3/e5m2 kernel");
   check_declaration(d, origin);
   return d;
 }
@@ -295,6 +325,14 @@ std::string declaration_to_json(const KernelDeclaration& d) {
   if (!features.empty()) j["features"] = features;
   if (!d.value_dims.empty()) j["value_dims"] = d.value_dims;
   if (is_fp8(d.input_format) || d.p_quant) j["fp8_saturating"] = d.fp8_saturating;
+  if (d.backward) {
+    j["backward"] = true;
+    json flags = json::array();
+    for (const auto& [n, bit] : kBackwardFlagNames) {
+      if (d.backward_flags & bit) flags.push_back(n);
+    }
+    j["backward_flags"] = flags;
+  }
   if (d.p_quant) {
     j["p_quant"] = std::string(format_name(*d.p_quant));
     j["p_scale"] = d.p_scale;

@@ -10,6 +10,7 @@
 
 #include <nlohmann/json.hpp>
 
+#include "attach/exchange_files.h"
 #include "attach/exchange_folder.h"
 #include "attach/packing.h"
 #include "attach/process.h"
@@ -19,7 +20,8 @@
 #include "headroom/varlen.h"
 
 namespace headroom {
-namespace {
+
+namespace attach_detail {
 
 namespace fs = std::filesystem;
 using nlohmann::json;
@@ -34,6 +36,47 @@ void put(const fs::path& dir, const std::string& file, const NpyArray& a) {
   f.close();
   if (!f) throw std::runtime_error("cannot write " + (dir / file).string());
 }
+
+std::optional<Tensor> read_output(const fs::path& dir, const std::string& file, const std::string& descr,
+                                  const std::vector<std::int64_t>& shape, const char* meaning, std::string& bad) {
+  const fs::path path = dir / file;
+  std::error_code ec;
+  if (!fs::exists(path, ec)) {
+    bad = file + ": not written (the program must write " + meaning + ")";
+    return std::nullopt;
+  }
+  try {
+    NpyArray a = read_npy(path);
+    if (a.descr != descr) {
+      bad = file + ": dtype '" + a.descr + "', expected '" + descr + "'";
+      return std::nullopt;
+    }
+    if (a.shape != shape) {
+      bad = file + ": shape " + json(a.shape).dump() + ", expected " + json(shape).dump();
+      return std::nullopt;
+    }
+    return npy_to_tensor(a, path);
+  } catch (const InputError& e) {
+    bad = file + ": " + e.place() + ": " + e.problem();
+    return std::nullopt;
+  }
+}
+
+void write_problem(const fs::path& dir, const json& problem) {
+  std::ofstream f(dir / "problem.json");
+  f << problem.dump(2) << '\n';
+  if (!f) throw std::runtime_error("cannot write " + (dir / "problem.json").string());
+}
+
+}  // namespace attach_detail
+
+namespace {
+
+using attach_detail::put;
+using attach_detail::read_output;
+
+namespace fs = std::filesystem;
+using nlohmann::json;
 
 NpyArray raw_array(std::vector<std::int64_t> shape, const char* descr, const void* data, std::size_t bytes) {
   NpyArray a;
@@ -93,32 +136,6 @@ double float_decimal(float x) {
   return std::strtod(buf, nullptr);
 }
 
-// Reads one output file strictly; on any defect fills `bad` and returns nothing.
-std::optional<Tensor> read_output(const fs::path& dir, const std::string& file, const std::string& descr,
-                                  const std::vector<std::int64_t>& shape, const char* meaning, std::string& bad) {
-  const fs::path path = dir / file;
-  std::error_code ec;
-  if (!fs::exists(path, ec)) {
-    bad = file + ": not written (the program must write " + meaning + ")";
-    return std::nullopt;
-  }
-  try {
-    NpyArray a = read_npy(path);
-    if (a.descr != descr) {
-      bad = file + ": dtype '" + a.descr + "', expected '" + descr + "'";
-      return std::nullopt;
-    }
-    if (a.shape != shape) {
-      bad = file + ": shape " + json(a.shape).dump() + ", expected " + json(shape).dump();
-      return std::nullopt;
-    }
-    return npy_to_tensor(a, path);
-  } catch (const InputError& e) {
-    bad = file + ": " + e.place() + ": " + e.problem();
-    return std::nullopt;
-  }
-}
-
 class ProgramKernel final : public AttachedKernel {
  public:
   ProgramKernel(std::string command, KernelDeclaration d) : command_(std::move(command)), declaration_(std::move(d)) {}
@@ -128,38 +145,53 @@ class ProgramKernel final : public AttachedKernel {
     attach_detail::check_received(c, declaration_);
     attach_detail::ExchangeFolder dir;
     write_exchange(dir.path(), c, declaration_);
-    const std::string line = command_ + " run " + attach_detail::shell_quote(dir.path().string());
+    KernelRun r;
+    if (!call("run", dir.path(), opt, r.status, r.detail)) return r;
+    return read_exchange(dir.path(), c, declaration_);
+  }
+
+  BackwardRun run_backward(const ReceivedCase& c, const Tensor& o, const Tensor& lse, const RunOptions& opt) override {
+    attach_detail::ExchangeFolder dir;
+    write_backward_exchange(dir.path(), c, declaration_, o, lse);  // checks the preconditions
+    BackwardRun r;
+    if (!call("run-backward", dir.path(), opt, r.status, r.detail)) return r;
+    return read_backward_exchange(dir.path(), c, declaration_);
+  }
+
+ private:
+  // Runs `CMD verb DIR` under the time limit. Returns: true when the program
+  // exited 0 (read its files); else false with the status and detail set.
+  bool call(const char* verb, const fs::path& dir, const RunOptions& opt, RunStatus& status, std::string& detail) {
+    const std::string line = command_ + " " + verb + " " + attach_detail::shell_quote(dir.string());
     // No address-space limit here: GPU runtimes and sanitizer builds reserve
     // terabytes of address space they never touch, and the program's memory
     // cannot corrupt headroom's. The time limit still applies.
     attach_detail::ProcessResult p = attach_detail::run_shell(line, opt.time_limit_s, 0);
-    KernelRun r;
     if (p.timed_out) {
-      r.status = RunStatus::timeout;
-      r.detail = "`" + command_ + " run`: " + attach_detail::describe_end(p, opt.time_limit_s);
-      return r;
+      status = RunStatus::timeout;
+      detail = "`" + command_ + " " + verb + "`: " + attach_detail::describe_end(p, opt.time_limit_s);
+      return false;
     }
     if (!p.started || p.signaled || (p.exit_code != 0 && p.exit_code != kExternalExitUnsupported)) {
-      r.status = RunStatus::crash;
-      r.detail = "`" + command_ + " run`: " + attach_detail::describe_end(p, opt.time_limit_s);
-      return r;
+      status = RunStatus::crash;
+      detail = "`" + command_ + " " + verb + "`: " + attach_detail::describe_end(p, opt.time_limit_s);
+      return false;
     }
     if (p.exit_code == kExternalExitUnsupported) {
-      r.status = RunStatus::unsupported;
-      r.detail = "the program exited " + std::to_string(kExternalExitUnsupported) + " (declines the problem)";
-      return r;
+      status = RunStatus::unsupported;
+      detail = "the program exited " + std::to_string(kExternalExitUnsupported) + " (declines the problem)";
+      return false;
     }
-    return read_exchange(dir.path(), c, declaration_);
+    return true;
   }
 
- private:
   std::string command_;
   KernelDeclaration declaration_;
 };
 
 }  // namespace
 
-void write_exchange(const fs::path& dir, const ReceivedCase& c, const KernelDeclaration& d) {
+json attach_detail::exchange_problem(const fs::path& dir, const ReceivedCase& c, const KernelDeclaration& d) {
   const Case& k = c.received;
   json problem = {{"protocol", d.interface_version},
                   {"kernel", d.name},
@@ -235,9 +267,11 @@ void write_exchange(const fs::path& dir, const ReceivedCase& c, const KernelDecl
     problem["outputs"] = {{"y", {{"file", "y.npy"}, {"dtype", out_descr}, {"shape", {s.batch, s.q_len, s.model_dim}}}}};
   }
   problem["inputs"] = inputs;
-  std::ofstream f(dir / "problem.json");
-  f << problem.dump(2) << '\n';
-  if (!f) throw std::runtime_error("cannot write " + (dir / "problem.json").string());
+  return problem;
+}
+
+void write_exchange(const fs::path& dir, const ReceivedCase& c, const KernelDeclaration& d) {
+  attach_detail::write_problem(dir, attach_detail::exchange_problem(dir, c, d));
 }
 
 KernelRun read_exchange(const fs::path& dir, const ReceivedCase& c, const KernelDeclaration& d) {

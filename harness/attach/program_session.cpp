@@ -206,7 +206,7 @@ SessionReply ProgramSession::start(double time_limit_s) {
   return r;
 }
 
-SessionReply ProgramSession::call(const std::filesystem::path& dir, double time_limit_s) {
+SessionReply ProgramSession::call(const std::filesystem::path& dir, double time_limit_s, const char* verb) {
   if (pid_ == 0) {
     SessionReply s = start(time_limit_s);
     if (s.how != SessionReply::How::ok) {
@@ -217,7 +217,7 @@ SessionReply ProgramSession::call(const std::filesystem::path& dir, double time_
   drain_stderr();
   err_tail_.clear();  // a call's message carries its own stderr
   const long long n = ++calls_;
-  const std::string request = json{{"call", n}, {"run", dir.string()}}.dump() + "\n";
+  const std::string request = json{{"call", n}, {verb, dir.string()}}.dump() + "\n";
   SessionReply r;
   for (std::size_t sent = 0; sent < request.size();) {
     const ssize_t k = send(in_, request.data() + sent, request.size() - sent, MSG_NOSIGNAL);

@@ -11,6 +11,7 @@
 //
 //   program → headroom, once when ready:   {"serve": 1}
 //   headroom → program, per call:          {"call": N, "run": "DIR"}
+//                         a backward call: {"call": N, "run-backward": "DIR"}
 //   program → headroom, per call:          {"call": N, "status": "ok" | "unsupported" | "error", "detail": "..."}
 //
 // DIR holds the same exchange as `CMD run DIR` (external_program.h). Closing
@@ -56,10 +57,11 @@ class ProgramSession {
   /// Closes stdin, waits up to kQuitGrace_s, then kills the group and reaps it.
   ~ProgramSession();
 
-  /// Returns: how the program answered one request naming `dir`, within
+  /// Returns: how the program answered one request naming `dir` under the key
+  /// `verb` ("run", or "run-backward" for a backward call), within
   /// time_limit_s seconds (≤ 0: none) from the request; a (re)start first
   /// waits for the ready line under the same limit, counted separately.
-  SessionReply call(const std::filesystem::path& dir, double time_limit_s);
+  SessionReply call(const std::filesystem::path& dir, double time_limit_s, const char* verb = "run");
 
   /// Returns: how many times the program was started (tests).
   int starts() const { return starts_; }

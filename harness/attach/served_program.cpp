@@ -22,32 +22,48 @@ class ServedProgram final : public AttachedKernel {
     check_received(c, declaration_);
     ExchangeFolder dir;
     write_exchange(dir.path(), c, declaration_);
-    const SessionReply s = session_.call(dir.path(), opt.time_limit_s);
     KernelRun r;
-    r.detail = s.detail;
-    switch (s.how) {
-      case SessionReply::How::ok:
-        return read_exchange(dir.path(), c, declaration_);
-      case SessionReply::How::unsupported:
-        r.status = RunStatus::unsupported;
-        r.detail = "the program replied \"unsupported\" (declines the problem)";
-        return r;
-      case SessionReply::How::timeout:
-        r.status = RunStatus::timeout;
-        return r;
-      case SessionReply::How::broken:
-        r.status = RunStatus::bad_output;
-        return r;
-      case SessionReply::How::error:
-      case SessionReply::How::ended:
-        r.status = RunStatus::crash;
-        return r;
-    }
-    r.status = RunStatus::crash;
-    return r;
+    if (!call("run", dir.path(), opt, r.status, r.detail)) return r;
+    return read_exchange(dir.path(), c, declaration_);
+  }
+
+  BackwardRun run_backward(const ReceivedCase& c, const Tensor& o, const Tensor& lse, const RunOptions& opt) override {
+    ExchangeFolder dir;
+    write_backward_exchange(dir.path(), c, declaration_, o, lse);  // checks the preconditions
+    BackwardRun r;
+    if (!call("run-backward", dir.path(), opt, r.status, r.detail)) return r;
+    return read_backward_exchange(dir.path(), c, declaration_);
   }
 
  private:
+  // One request. Returns: true when the program replied "ok" (read its files);
+  // else false with the status and detail set.
+  bool call(const char* verb, const std::filesystem::path& dir, const RunOptions& opt, RunStatus& status,
+            std::string& detail) {
+    const SessionReply s = session_.call(dir, opt.time_limit_s, verb);
+    detail = s.detail;
+    switch (s.how) {
+      case SessionReply::How::ok:
+        return true;
+      case SessionReply::How::unsupported:
+        status = RunStatus::unsupported;
+        detail = "the program replied \"unsupported\" (declines the problem)";
+        return false;
+      case SessionReply::How::timeout:
+        status = RunStatus::timeout;
+        return false;
+      case SessionReply::How::broken:
+        status = RunStatus::bad_output;
+        return false;
+      case SessionReply::How::error:
+      case SessionReply::How::ended:
+        status = RunStatus::crash;
+        return false;
+    }
+    status = RunStatus::crash;
+    return false;
+  }
+
   KernelDeclaration declaration_;
   ProgramSession session_;
 };

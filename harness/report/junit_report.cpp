@@ -7,6 +7,7 @@
 #include <fmt/format.h>
 
 #include "escape.h"
+#include "sections.h"
 #include "headroom/run_summary.h"
 #include "headroom/terminal_report.h"
 
@@ -21,6 +22,19 @@ struct TestCase {
   std::string skipped_message;
 };
 
+// "gradients (N cases): d_q worst scaled error fed the exact O and lse X, end to
+// end Y; d_k …; d_v …" for the cases of `r` whose backward was judged; "" when none.
+std::string gradient_text(const RunRecord& r) {
+  const GradientSummary g = summarise_gradients(r);
+  if (g.cases == 0) return "";
+  std::string s = fmt::format("gradients ({} case{}, {} end to end):", g.cases, g.cases == 1 ? "" : "s", g.end_to_end_cases);
+  for (std::size_t t = 0; t < 3; ++t)
+    s += fmt::format("{} {} worst scaled error fed the exact O and lse {}, end to end {}", t ? ";" : "",
+                     kGradientNames[t], figure_text(g.worst_fed_exact[t]),
+                     g.end_to_end_cases > 0 ? figure_text(g.worst_end_to_end[t]) : "—");
+  return s + "\n";
+}
+
 }  // namespace
 
 std::string junit_report(const RunRecord& r) {
@@ -34,6 +48,11 @@ std::string junit_report(const RunRecord& r) {
                         g.cases, margin_text(g.margin), g.margin_figure.empty() ? "" : " on " + g.margin_figure,
                         figure_text(g.worst_ulp), g.worst_ulp_case, figure_text(g.worst_scaled_error),
                         g.worst_scaled_case, figure_text(g.worst_rmse), g.fault_count());
+    RunRecord group = r;  // the group's cases only, for its gradient figures
+    group.cases.clear();
+    for (const auto& c : r.cases)
+      if (c.family == g.family && c.format == g.format) group.cases.push_back(c);
+    t.out += gradient_text(group);
     if (g.failing > 0) {
       t.failure_message = fmt::format("{} of {} cases outside budget", g.failing, g.cases);
       for (const auto& c : r.cases) {
@@ -80,6 +99,20 @@ std::string junit_report(const RunRecord& r) {
       {"verdict", r.verdict()}, {"verdict_line", r.verdict_line()}, {"tool", r.tool}};
   for (const auto& [name, value] : props)
     x += fmt::format("      <property name=\"{}\" value=\"{}\"/>\n", name, xml_escape(value));
+  // The backward (docs/backward.md): which gradients were judged, as the coverage section says it, and the
+  // worst scaled error of each gradient tensor both ways ("—" where none was judged that way).
+  for (const auto& line : report_detail::coverage_lines(coverage(r)))
+    if (line.label == "Gradients judged")
+      x += fmt::format("      <property name=\"gradients_judged\" value=\"{}\"/>\n", xml_escape(line.text));
+  const GradientSummary grads = summarise_gradients(r);
+  if (grads.cases > 0) {
+    for (std::size_t t = 0; t < 3; ++t) {
+      x += fmt::format("      <property name=\"{}.fed_exact.max_scaled_error\" value=\"{}\"/>\n", kGradientNames[t],
+                       xml_escape(figure_text(grads.worst_fed_exact[t])));
+      x += fmt::format("      <property name=\"{}.end_to_end.max_scaled_error\" value=\"{}\"/>\n", kGradientNames[t],
+                       xml_escape(grads.end_to_end_cases > 0 ? figure_text(grads.worst_end_to_end[t]) : "—"));
+    }
+  }
   x += "    </properties>\n";
   for (const auto& t : tests) {
     x += fmt::format("    <testcase classname=\"{}\" name=\"{}\">\n", xml_escape(t.classname), xml_escape(t.name));

@@ -9,8 +9,14 @@
     if __name__ == "__main__":
         my_attention.main()
 
+    @my_attention.backward(recomputes=False)
+    def my_attention_backward(q, k, v, o, lse, d_o, scale, mask):
+        ...
+        return d_q, d_k, d_v
+
 headroom runs `SCRIPT describe`, then `SCRIPT serve` once per run (persistent
-mode, docs/external-program.md), or `SCRIPT run DIR` per call with serve=False.
+mode, docs/external-program.md), or `SCRIPT run DIR` (and `SCRIPT run-backward
+DIR` for a kernel with a backward) per call with serve=False.
 """
 import inspect
 import json
@@ -20,6 +26,7 @@ import traceback
 
 import numpy as np
 
+from . import formats
 from .problem import Problem, Unsupported, Weights
 
 MASK_KINDS = ("none", "causal_top_left", "causal_bottom_right", "key_padding", "dense", "bias")
@@ -61,6 +68,34 @@ class Kernel:
         if level == "core":
             self.declaration["returns_lse"] = bool(returns_lse)
         self.declaration.update(extra)
+        self.backward_fn = None
+
+    def backward(self, recomputes=False, nondeterministic=False, bias_grad=False):
+        """Returns: a decorator making a function this kernel's backward (docs/backward.md):
+        fn(q, k, v, o, lse, d_o, scale, mask[, problem]) -> (d_q, d_k, d_v) or, with
+        bias_grad, (d_q, d_k, d_v, d_bias). q, k, v, mask as for the forward (k, v
+        with Hq heads when expand_groups: the d_k, d_v returned for them, [B, Hq,
+        Tk, D], are summed over each group here); o [B, Hq, Tq, Dv] in the output
+        format, lse float32 [B, Hq, Tq] (-inf or NaN on rows with no visible key),
+        d_o [B, Hq, Tq, Dv] in the input format. Declares what kernel_abi.h's
+        HR_BACKWARD_* bits say: recomputes (o and lse ignored), nondeterministic
+        (judged on spread), bias_grad (d_bias [B, 1|Hq, Tq, Tk] = dS, summed over
+        heads when the bias is shared; only asked for with a bias mask, which needs
+        mask_as="bias")."""
+        if self.declaration["level"] != "core":
+            raise ValueError("a backward is judged for core kernels only")
+        if bias_grad and self.mask_as != "bias":
+            raise ValueError("bias_grad needs mask_as='bias' (the gradient is taken with respect to the bias)")
+
+        def wrap(fn):
+            self.backward_fn = fn
+            self.takes_problem_backward = "problem" in inspect.signature(fn).parameters
+            self.declaration["backward"] = True
+            flags = [("recomputes", recomputes), ("nondeterministic", nondeterministic), ("bias_grad", bias_grad)]
+            self.declaration["backward_flags"] = [name for name, on in flags if on]
+            return fn
+
+        return wrap
 
     def __call__(self, *args, **kwargs):
         return self.fn(*args, **kwargs)
@@ -119,6 +154,46 @@ class Kernel:
             x_kv = self._array(p.tensor("x_kv"), fmt)
             p.save("y", self._numpy(self.fn(x_q, x_kv, w, **kwargs)), p.output_format)
 
+    def solve_backward(self, folder):
+        """Runs the backward function on the backward problem in `folder` and writes
+        d_q, d_k, d_v (and d_bias) there. Raises Unsupported when it declines."""
+        if self.backward_fn is None:
+            raise ValueError("this kernel declares no backward (decorate one with @kernel_object.backward())")
+        p = Problem(folder)
+        fmt = p.input_format
+        mask = p.visible() if self.mask_as == "bool" else p.additive()
+        q, k, v = p.tensor("q"), p.tensor("k"), p.tensor("v")
+        group = p.shape["q_heads"] // p.shape["kv_heads"]
+        if self.expand_groups:
+            k, v = np.repeat(k, group, axis=1), np.repeat(v, group, axis=1)
+        o = formats.decode(p.load("o.npy"), p.output_format)
+        lse = p.load("lse.npy").astype(np.float32)
+        d_o = p.tensor("d_o")
+        kwargs = {"scale": p.scale, "mask": self._array(mask, None)}
+        if self.takes_problem_backward:
+            kwargs["problem"] = p
+        result = self.backward_fn(self._array(q, fmt), self._array(k, fmt), self._array(v, fmt),
+                                  self._array(o, p.output_format), self._array(lse, None), self._array(d_o, fmt),
+                                  **kwargs)
+        result = tuple(result)
+        wants_bias = "d_bias" in p.json["outputs"]
+        if len(result) not in (3, 4):
+            raise ValueError("a backward returns (d_q, d_k, d_v) or (d_q, d_k, d_v, d_bias), not %d values" % len(result))
+        d_q, d_k, d_v = (self._numpy(x) for x in result[:3])
+        if self.expand_groups and group > 1:
+            # k and v were repeated per query head: their gradients sum over each group.
+            def summed(g):
+                b, h, t, d = g.shape
+                return g.astype(np.float64).reshape(b, h // group, group, t, d).sum(axis=2)
+            d_k, d_v = summed(d_k), summed(d_v)
+        p.save("d_q", d_q, p.output_format)
+        p.save("d_k", d_k, p.output_format)
+        p.save("d_v", d_v, p.output_format)
+        if wants_bias:
+            if len(result) < 4 or result[3] is None:
+                raise ValueError("the kernel declares bias_grad but its backward returned no d_bias")
+            p.save("d_bias", self._numpy(result[3]), "float32")
+
     # ---- the two modes ----------------------------------------------------
 
     def serve(self, stdin=None, stdout_fd=1):
@@ -134,7 +209,10 @@ class Kernel:
             request = json.loads(line)
             reply = {"call": request["call"], "status": "ok"}
             try:
-                self.solve(request["run"])
+                if "run-backward" in request:
+                    self.solve_backward(request["run-backward"])
+                else:
+                    self.solve(request["run"])
             except Unsupported as e:
                 reply = {"call": request["call"], "status": "unsupported", "detail": str(e)}
             except Exception as e:  # the call failed; the process serves on
@@ -146,20 +224,20 @@ class Kernel:
 
     def main(self, argv=None):
         """Speaks the protocol named by the last words of argv (default sys.argv):
-        `describe`, `run DIR` or `serve`; exits with the protocol's status."""
+        `describe`, `run DIR`, `run-backward DIR` or `serve`; exits with the protocol's status."""
         argv = list(sys.argv if argv is None else argv)
         if argv and argv[-1] == "describe":
             print(json.dumps(self.declaration))
             sys.exit(0)
         if argv and argv[-1] == "serve":
             sys.exit(self.serve())
-        if len(argv) >= 2 and argv[-2] == "run":
+        if len(argv) >= 2 and argv[-2] in ("run", "run-backward"):
             try:
-                self.solve(argv[-1])
+                (self.solve if argv[-2] == "run" else self.solve_backward)(argv[-1])
             except Unsupported:
                 sys.exit(EXIT_UNSUPPORTED)
             sys.exit(0)
-        print("usage: %s [ARGS] describe | run DIR | serve" % (argv[0] if argv else "kernel"), file=sys.stderr)
+        print("usage: %s [ARGS] describe | run DIR | run-backward DIR | serve" % (argv[0] if argv else "kernel"), file=sys.stderr)
         sys.exit(2)
 
 
@@ -184,6 +262,7 @@ def kernel(name, input_format, output_format, masks=("none",), level="core", mas
     variable-length batch arrives as batch 1 with a block-diagonal mask (each
     sequence sees only its own keys); problem.cu_lens() gives the offsets. `extra` holds further declaration fields (max_kv_len,
     key_dims, ...: docs/external-program.md). serve=False: one-shot mode only.
+    A core kernel may add a backward with @the_kernel.backward(...) (Kernel.backward).
     """
 
     def wrap(fn):

@@ -199,3 +199,111 @@ def test_window_softcap_and_sinks_reach_the_function(tmp_path):
     attend.solve(str(tmp_path))
     assert got["softcap"] == 12.5 and got["sinks"].tolist() == [0.5, -2.0]
     assert attend.declaration["features"] == ["varlen", "softcap", "sinks"]
+
+
+def backward_exchange(folder, mask="none", bias_grad=False, b=2):
+    """A backward problem as write_backward_exchange lays it out: the forward's
+    folder (batch b, Hq 4 on Hkv 2, Tq 3, Tk 5, D 4) plus o, lse and d_o."""
+    p = exchange(folder, mask, b=b)
+    rng = np.random.default_rng(2)
+    j = p.json
+    hq, hkv, tq, tk, d = 4, 2, 3, 5, 4
+    for name, shape in (("o", (b, hq, tq, d)), ("lse", (b, hq, tq)), ("d_o", (b, hq, tq, d))):
+        np.save(os.path.join(folder, name + ".npy"), rng.standard_normal(shape).astype("<f4"))
+        j["inputs"][name] = name + ".npy"
+    j["pass"] = "backward"
+    del j["returns_lse"]
+    j["outputs"] = {"d_q": {"file": "d_q.npy", "dtype": "<f4", "shape": [b, hq, tq, d]},
+                    "d_k": {"file": "d_k.npy", "dtype": "<f4", "shape": [b, hkv, tk, d]},
+                    "d_v": {"file": "d_v.npy", "dtype": "<f4", "shape": [b, hkv, tk, d]}}
+    if bias_grad:
+        j["outputs"]["d_bias"] = {"file": "d_bias.npy", "dtype": "<f4", "shape": [b, 1, tq, tk]}
+    with open(os.path.join(folder, "problem.json"), "w") as f:
+        json.dump(j, f)
+    return Problem(folder)
+
+
+def test_backward_gets_its_inputs_and_sums_expanded_gradients_over_each_group(tmp_path):
+    p = backward_exchange(str(tmp_path), "bias", bias_grad=True)
+    got = {}
+
+    @kernel(name="k", input_format="float32", output_format="float32", masks=["bias"], mask_as="bias",
+            expand_groups=True, returns_lse=True)
+    def attend(q, k, v, scale, mask):
+        return q
+
+    @attend.backward(bias_grad=True)
+    def attend_backward(q, k, v, o, lse, d_o, scale, mask):
+        got.update(k=k, o=o, lse=lse, d_o=d_o, scale=scale, mask=mask)
+        heads = np.array([1, 2, 4, 8], np.float32)[None, :, None, None]  # query head h weighs 2^h (exact products)
+        return q * 2, k * heads, v * heads, np.full(mask.shape, 0.25, np.float32)
+
+    assert attend.declaration["backward"] is True and attend.declaration["backward_flags"] == ["bias_grad"]
+    attend.solve_backward(p.folder)
+    for name in ("o", "lse", "d_o"):
+        assert np.array_equal(got[name], p.load(name + ".npy"))
+    assert got["scale"] == 0.5 and np.array_equal(got["mask"], p.additive())
+    assert got["k"].shape == (2, 4, 5, 4)  # expanded to the query heads
+    k, v = p.load("k.npy"), p.load("v.npy")
+    # kv head g serves query heads 2g and 2g + 1: the sum weighs kv head 0 by 1 + 2, kv head 1 by 4 + 8.
+    want_k = k * np.array([3, 12], np.float32)[None, :, None, None]
+    assert np.array_equal(np.load(os.path.join(p.folder, "d_k.npy")), want_k)
+    assert np.array_equal(np.load(os.path.join(p.folder, "d_v.npy")), v * np.array([3, 12], np.float32)[None, :, None, None])
+    assert np.array_equal(np.load(os.path.join(p.folder, "d_q.npy")), p.load("q.npy") * 2)
+    assert np.load(os.path.join(p.folder, "d_bias.npy")).shape == (2, 1, 3, 5)
+
+
+def test_backward_declaring_bias_grad_must_return_it_and_take_the_bias(tmp_path):
+    p = backward_exchange(str(tmp_path), "bias", bias_grad=True)
+    attend = kernel(name="k", input_format="float32", output_format="float32", masks=["bias"], mask_as="bias",
+                    returns_lse=True)(lambda q, k, v, scale, mask: q)
+    attend.backward(bias_grad=True)(lambda q, k, v, o, lse, d_o, scale, mask: (q, k, v))
+    with pytest.raises(ValueError, match="d_bias"):
+        attend.solve_backward(p.folder)
+    boolean = kernel(name="k", input_format="float32", output_format="float32")(lambda q, k, v, scale, mask: q)
+    with pytest.raises(ValueError, match="mask_as"):
+        boolean.backward(bias_grad=True)
+    with pytest.raises(ValueError, match="no backward"):
+        boolean.solve_backward(p.folder)
+
+
+BACKWARD_SCRIPT = textwrap.dedent("""
+    import sys
+    sys.path.insert(0, %r)
+    import numpy as np
+    from headroom_kernel import Unsupported, kernel
+
+    @kernel(name="scripted_backward", input_format="float32", output_format="float32", returns_lse=True)
+    def attend(q, k, v, scale, mask):
+        return q
+
+    @attend.backward(recomputes=True, nondeterministic=True)
+    def attend_backward(q, k, v, o, lse, d_o, scale, mask):
+        if q.shape[0] == 1:
+            raise Unsupported("batch 1")
+        return q + 1, k + 1, v + 1
+
+    attend.main()
+""") % os.path.join(HERE, "..")
+
+
+def test_run_backward_one_shot_and_served(tmp_path):
+    script = tmp_path / "k.py"
+    script.write_text(BACKWARD_SCRIPT)
+    d = json.loads(subprocess.run([PYTHON, str(script), "describe"], capture_output=True, text=True, check=True).stdout)
+    assert d["backward"] is True and d["backward_flags"] == ["recomputes", "nondeterministic"]
+    one_shot, served, declined = tmp_path / "a", tmp_path / "b", tmp_path / "c"
+    for f in (one_shot, served, declined):
+        f.mkdir()
+    for f in (one_shot, served):
+        backward_exchange(str(f))
+    backward_exchange(str(declined), b=1)
+    assert subprocess.run([PYTHON, str(script), "run-backward", str(one_shot)]).returncode == 0
+    assert np.array_equal(np.load(one_shot / "d_k.npy"), np.load(one_shot / "k.npy") + 1)
+    requests = (json.dumps({"call": 1, "run-backward": str(served)}) + "\n" +
+                json.dumps({"call": 2, "run-backward": str(declined)}) + "\n")
+    done = subprocess.run([PYTHON, str(script), "serve"], input=requests, capture_output=True, text=True, timeout=60)
+    lines = [json.loads(line) for line in done.stdout.splitlines()]
+    assert [(r["call"], r["status"]) for r in lines[1:]] == [(1, "ok"), (2, "unsupported")]
+    assert np.array_equal(np.load(served / "d_v.npy"), np.load(served / "v.npy") + 1)
+    assert not (served / "d_bias.npy").exists() and not (declined / "d_q.npy").exists()

@@ -9,6 +9,10 @@
 //                   or DIR/y.npy (block), and DIR/lse.npy when it declares
 //                   returns_lse, then exits 0 — or exits 77 to decline the
 //                   problem (reported as unsupported).
+//   CMD run-backward DIR  (a program declaring "backward": true) DIR holds the
+//                   forward's inputs plus o.npy, lse.npy and d_o.npy; the
+//                   program writes d_q.npy, d_k.npy, d_v.npy (and d_bias.npy
+//                   when it declares "bias_grad" and the mask is a bias).
 //
 // Inputs (C-order, little-endian; the logical [B, H, T, D] order whatever the
 // plug-in layouts): q.npy [B, Hq, Tq, Dk], k.npy, v.npy [B, Hkv, Tk, Dk|Dv];
@@ -72,6 +76,23 @@ void write_exchange(const std::filesystem::path& dir, const ReceivedCase& c, con
 /// Returns: the outputs read back from `dir`: status ok with out (and lse),
 /// or bad_output with a detail naming the file and what is wrong with it.
 KernelRun read_exchange(const std::filesystem::path& dir, const ReceivedCase& c, const KernelDeclaration& d);
+
+/// Writes problem.json ("pass": "backward") and the inputs of one backward
+/// call into `dir` (existing): those of write_exchange, plus o.npy (the output
+/// format's dtype, [B, Hq, Tq, Dv]: `o` rounded to the output format), lse.npy
+/// ('<f4' [B, Hq, Tq]: `lse` rounded to float32) and d_o.npy (the input
+/// format's dtype, [B, Hq, Tq, Dv]: the case's received dO). problem.json's
+/// "outputs" name d_q, d_k, d_v (output format, the shapes of q, k, v) and
+/// d_bias ('<f4', the bias's shape) when d declares HR_BACKWARD_BIAS_GRAD and
+/// the mask is a bias. Preconditions: as AttachedKernel::run_backward; throws
+/// std::invalid_argument otherwise.
+void write_backward_exchange(const std::filesystem::path& dir, const ReceivedCase& c, const KernelDeclaration& d,
+                             const Tensor& o, const Tensor& lse);
+
+/// Returns: the gradients read back from `dir` after a backward call: status
+/// ok with d_q, d_k, d_v (and d_bias), or bad_output naming the first file
+/// missing, mistyped, mis-shaped or malformed.
+BackwardRun read_backward_exchange(const std::filesystem::path& dir, const ReceivedCase& c, const KernelDeclaration& d);
 
 /// SIGKILLs the process group of every external kernel program now running.
 /// Async-signal-safe: meant for the handler of a signal that ends headroom,
