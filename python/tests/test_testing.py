@@ -56,3 +56,21 @@ def test_a_wrong_kernel_fails_the_test_with_the_summary_and_the_markdown_path(tm
 def test_bad_input_fails_with_headrooms_message(tmp_path):
     with pytest.raises(pytest.fail.Exception, match="exit 2"):
         qualify(os.path.join(ROOT, "examples/python/numpy_core.py"), suite="nonesuch", report_dir=tmp_path)
+
+
+@needs_headroom
+def test_a_backward_is_judged_through_run_backward_and_a_flawed_one_fails(tmp_path):
+    program = os.path.join(ROOT, "examples/external/numpy_backward.py")
+    q = qualify(program, suite="quick", report_dir=tmp_path / "sound", args=["--shard", "1/6"])
+    judged = [c for c in q.record["cases"] if "backward" in c]
+    assert judged, "no case had its gradients judged"
+    for c in judged:  # both ways (the forward returns lse), every tensor within the case's limit
+        for way, limit in (("fed_exact", "max_gradient_scaled_error"),
+                           ("end_to_end", "max_gradient_scaled_error_end_to_end")):
+            for g in ("d_q", "d_k", "d_v"):
+                assert float(c["backward"][way][g]["max_scaled_error"]) <= float(c["limits"][limit]), (c["name"], way, g)
+    with pytest.raises(pytest.fail.Exception) as failed:
+        qualify(program + " drop_d", suite="quick", report_dir=tmp_path / "flawed", args=["--shard", "1/6"])
+    assert "numpy_backward_drop_d" in str(failed.value)
+    md = str(failed.value).rsplit("Markdown report: ", 1)[1].strip()
+    assert "max_gradient_scaled_error" in open(md).read()

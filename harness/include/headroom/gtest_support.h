@@ -9,7 +9,9 @@
 // The case is judged as `headroom replay --kernel <spec> <case_dir>` judges it:
 // isolated run, determinism check, certified reference, the ratio to the
 // bundled plain kernel of the same formats, then the budget (a budget file, or
-// the built-in defaults). A failure message carries every reason, the fault
+// the built-in defaults); a kernel with a backward entry has its dQ, dK, dV
+// judged too, and the message gives each one's max scaled error fed the exact
+// O and lse and end to end. A failure message carries every reason, the fault
 // details and the one command that replays the case.
 #pragma once
 
@@ -71,6 +73,19 @@ inline ::testing::AssertionResult WithinBudget(const std::string& kernel_spec, c
     auto result = ok ? ::testing::AssertionSuccess() : ::testing::AssertionFailure();
     result << kernel_spec << " on " << c.name << (ok ? " is within " : " is NOT within ") << "budget ("
            << budget.source << "), max scaled error " << c.figures.max_scaled_error;
+    if (c.backward) {  // a backward kernel: each gradient's max scaled error, both ways (docs/backward.md)
+      result << "; gradients judged, max scaled error fed the exact O and lse / end to end:";
+      for (std::size_t t = 0; t < 3; ++t) {
+        result << (t ? "," : "") << " " << kGradientNames[t] << " " << c.backward->fed_exact[t].max_scaled_error << " / ";
+        if (c.backward->end_to_end_judged) {
+          result << c.backward->end_to_end[t].max_scaled_error;
+        } else {
+          result << "not judged";
+        }
+      }
+    } else if (kernel->declaration().backward) {
+      result << "; gradients not judged on this case";
+    }
     for (const auto& r : c.reasons) result << "\n  reason: " << r;
     for (const auto& f : c.fault_details) result << "\n  fault: " << f;
     result << "\n  replay: " << c.replay;
