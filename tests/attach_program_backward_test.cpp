@@ -81,11 +81,12 @@ TEST(ProgramBackward, NumpyExampleGivesThePlainGradientsForEveryMask) {
       const BackwardRun g = k->run_backward(r, fwd.out, fwd.lse, opt);
       ASSERT_EQ(g.status, RunStatus::ok) << g.detail;
       const testing::Grads want = testing::plain_backward(r.received);
-      // float32 files: O and lse rounded to float32 (relative 2^-24) feed D_i and P, each gradient
-      // rounded to float32 once; 1e-5 relative to 1 + |g| is far above that and far below a misplaced tensor.
-      EXPECT_LT(worst_gap(g.d_q, want.d_q), 1e-5);
-      EXPECT_LT(worst_gap(g.d_k, want.d_k), 1e-5);
-      EXPECT_LT(worst_gap(g.d_v, want.d_v), 1e-5);
+      // float32 arithmetic over sums of at most 14 terms of magnitude ≲ 10 (about 14 · 2^-24 · 10 ≈ 1e-5
+      // at worst, a few 1e-7 in practice; Higham 2002 §3.1): 1e-4 relative to 1 + |g| is above that and far
+      // below a misplaced or unsummed tensor.
+      EXPECT_LT(worst_gap(g.d_q, want.d_q), 1e-4);
+      EXPECT_LT(worst_gap(g.d_k, want.d_k), 1e-4);
+      EXPECT_LT(worst_gap(g.d_v, want.d_v), 1e-4);
       if (m != MaskKind::bias) {
         EXPECT_TRUE(g.d_bias.values.empty());
         continue;
@@ -97,7 +98,7 @@ TEST(ProgramBackward, NumpyExampleGivesThePlainGradientsForEveryMask) {
         for (std::int64_t h = 0; h < s.q_heads; ++h)
           for (std::int64_t i = 0; i < s.q_len; ++i)
             for (std::int64_t j = 0; j < s.kv_len; ++j) d_bias.at(b, shared ? 0 : h, i, j) += want.d_s.at(b, h, i, j);
-      EXPECT_LT(worst_gap(g.d_bias, d_bias), 1e-5);
+      EXPECT_LT(worst_gap(g.d_bias, d_bias), 1e-4);
     }
   }
 }

@@ -6,7 +6,7 @@ forward: write DIR/o.npy and DIR/lse.npy) and, because the declaration says
 "backward": true, `numpy_backward.py run-backward DIR`: read Q, K, V, the mask,
 O, lse and dO from DIR, write DIR/d_q.npy, d_k.npy, d_v.npy (and d_bias.npy
 when problem.json lists it). The exchange is docs/external-program.md.
-float32 files, float64 arithmetic. The backward uses the O and lse it is given
+float32 throughout (NumPy's own summation order). The backward uses the O and lse it is given
 (Dao et al. 2022, Alg. 4): P = exp(S - lse), D_i = dO_i . O_i,
 dS = P (dO V^T - D), dQ = s dS K, dK = s dS^T Q, dV = P^T dO, d(bias) = dS.
 
@@ -24,7 +24,7 @@ import numpy as np
 DECLARATION = {
     "protocol": 2,
     "name": "numpy_backward",
-    "description": "attention and its backward in NumPy: float32 files, float64 arithmetic",
+    "description": "attention and its backward in NumPy, float32 throughout",
     "level": "core",
     "input_format": "float32",
     "output_format": "float32",
@@ -37,7 +37,7 @@ DECLARATION = {
 
 
 def load(folder, name):
-    return np.load(os.path.join(folder, name)).astype(np.float64)
+    return np.load(os.path.join(folder, name)).astype(np.float32)
 
 
 def visible(problem, folder, shape):
@@ -69,23 +69,23 @@ def scores(folder):
     q, k, v = load(folder, "q.npy"), load(folder, "k.npy"), load(folder, "v.npy")
     group = shape["q_heads"] // shape["kv_heads"]
     k, v = np.repeat(k, group, axis=1), np.repeat(v, group, axis=1)  # kv head g serves q heads g*group...
-    scale = float.fromhex(problem["scale_hex"])
+    scale = np.float32(float.fromhex(problem["scale_hex"]))
     z = scale * np.matmul(q, np.swapaxes(k, -1, -2))
     if problem["mask"]["kind"] == "bias":
         z = z + load(folder, "bias.npy")
     seen = np.broadcast_to(visible(problem, folder, shape), z.shape)
-    return problem, q, k, v, scale, np.where(seen, z, -np.inf), seen
+    return problem, q, k, v, scale, np.where(seen, z, np.float32(-np.inf)), seen
 
 
 def forward(folder):
     _, _, _, v, _, z, seen = scores(folder)
     any_seen = seen.any(axis=-1, keepdims=True)
-    m = np.where(any_seen, z.max(axis=-1, keepdims=True), 0.0)
-    p = np.where(seen, np.exp(z - m), 0.0)
-    s = np.where(any_seen, p.sum(axis=-1, keepdims=True), 1.0)
-    o = np.where(any_seen, np.matmul(p / s, v), 0.0)
+    m = np.where(any_seen, z.max(axis=-1, keepdims=True), np.float32(0))
+    p = np.where(seen, np.exp(z - m), np.float32(0))
+    s = np.where(any_seen, p.sum(axis=-1, keepdims=True), np.float32(1))
+    o = np.where(any_seen, np.matmul(p / s, v), np.float32(0))
     with np.errstate(divide="ignore"):
-        lse = np.where(any_seen, m + np.log(s), -np.inf)[..., 0]
+        lse = np.where(any_seen, m + np.log(s), np.float32(-np.inf))[..., 0]
     np.save(os.path.join(folder, "o.npy"), o.astype("<f4"))
     np.save(os.path.join(folder, "lse.npy"), lse.astype("<f4"))
 
@@ -95,10 +95,10 @@ def backward(folder, drop_d=False):
     o, lse, d_o = load(folder, "o.npy"), load(folder, "lse.npy"), load(folder, "d_o.npy")
     shape = problem["shape"]
     # Rows with no visible key have lse -inf (or NaN): their P is all zeros.
-    lse = np.where(np.isfinite(lse), lse, 0.0)[..., None]
-    p = np.where(seen, np.exp(z - lse), 0.0)
+    lse = np.where(np.isfinite(lse), lse, np.float32(0))[..., None]
+    p = np.where(seen, np.exp(z - lse), np.float32(0))
     d_p = np.matmul(d_o, np.swapaxes(v, -1, -2))
-    d = 0.0 if drop_d else (d_o * o).sum(axis=-1, keepdims=True)
+    d = np.float32(0) if drop_d else (d_o * o).sum(axis=-1, keepdims=True)
     d_s = p * (d_p - d)
     d_q = scale * np.matmul(d_s, k)
     group = shape["q_heads"] // shape["kv_heads"]
