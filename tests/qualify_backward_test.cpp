@@ -28,6 +28,13 @@ CaseScore forward_score() {
 CaseRecord judged(const BackwardFigures& b) {
   CaseRecord c;
   c.name = "gaussian-s1";
+  c.family = "gaussian";
+  c.level = "core";
+  c.shape = "1,4,2,16,24,8,8";
+  c.kv_len = 24;
+  c.mask = "none";
+  c.format = "float32";
+  c.replay = "headroom replay --kernel f32_backward_tiled corpus/gaussian-s1";
   c.backward = b;
   return c;
 }
