@@ -184,6 +184,44 @@ TEST_F(Served, CrashingCallsLeakNothing) {
   for (pid_t p : starts()) EXPECT_TRUE(ends_within(p, 2.0)) << p;
 }
 
+TEST_F(Served, ProcessesItStartsMayLiveBetweenCallsAndEndWithTheProgram) {
+  // "strays" leaves a setsid child and a double-forked grandchild sleeping:
+  // helpers a persistent program may keep. They end when the program is
+  // killed (here at a call's time limit) and when the session ends.
+  const fs::path strays = log_.string() + ".strays";
+  fs::remove(strays);
+  auto pids = [&] {
+    std::vector<pid_t> v;
+    std::ifstream f(strays);
+    for (long p; f >> p;) v.push_back(static_cast<pid_t>(p));
+    return v;
+  };
+  setenv("HEADROOM_SERVE_SCRIPT", "strays,hang,strays", 1);
+  {
+    auto k = attach_program(kServing, 20.0);
+    auto call = [&](std::uint32_t seed, double limit_s) {
+      const Case c = core_case({1, 2, 1, 3, 4, 5, 5}, MaskKind::none, seed);
+      return k->run(receive(c, k->declaration()), RunOptions{true, limit_s, 0});
+    };
+    EXPECT_STATUS(call(600, 10.0), RunStatus::ok, "");
+    const std::vector<pid_t> first = pids();
+    ASSERT_EQ(first.size(), 2u);
+    for (pid_t p : first) EXPECT_FALSE(ends_within(p, 0.0)) << p << " ended between calls";
+    EXPECT_STATUS(call(601, 1.0), RunStatus::timeout, "time limit of 1 s");
+    for (pid_t p : first) EXPECT_TRUE(ends_within(p, 0.0)) << p << " outlived its program, killed at the time limit";
+    EXPECT_STATUS(call(602, 10.0), RunStatus::ok, "");
+    ASSERT_EQ(pids().size(), 4u);
+  }
+  std::vector<pid_t> outlived;
+  for (pid_t p : pids()) {
+    if (ends_within(p, 0.0)) continue;
+    outlived.push_back(p);
+    kill(p, SIGKILL);  // a failing run leaves nothing either
+  }
+  EXPECT_TRUE(outlived.empty()) << outlived.size() << " outlived the session, the first " << outlived.front();
+  fs::remove(strays);
+}
+
 TEST(ServedDeclaration, OnlyProtocol2AndAKnownServeVersion) {
   const std::string base =
       R"("name": "k", "level": "core", "input_format": "float32", "output_format": "float32",

@@ -7,11 +7,13 @@
 #include <unistd.h>
 
 #include <chrono>
+#include <cstdio>
 #include <cstdlib>
 #include <filesystem>
 #include <fstream>
 #include <string>
 #include <thread>
+#include <vector>
 
 #include "headroom/record.h"
 #include "leftovers.h"
@@ -92,7 +94,9 @@ TEST(Cli, KilledRunResumesToTheUninterruptedRecord) {
 TEST(Cli, CtrlCOrSigtermTakesTheRunningExternalProgramDown) {
   // The program runs in a process group of its own, so neither a terminal's
   // Ctrl-C nor a SIGTERM to headroom reaches it; headroom must end it itself,
-  // and remove the folder it exchanges files through.
+  // and remove the folder it exchanges files through. A SIGKILLed headroom
+  // can do neither: the program's supervisor ends it (the folder is swept by
+  // the next run, AbandonedExchangeFoldersAreSwept).
   const auto dir = fresh_dir("signals");
   std::ofstream(dir / "prog.sh") << R"(#!/bin/sh
 here=$(dirname "$0")
@@ -106,7 +110,7 @@ exec sleep 120
 )";
   fs::permissions(dir / "prog.sh", fs::perms::owner_all);
   const fs::path tmp = dir / "tmp";  // the exchange folders of this test's headroom only
-  for (const int sig : {SIGINT, SIGTERM, SIGHUP}) {
+  for (const int sig : {SIGINT, SIGTERM, SIGHUP, SIGKILL}) {
     fs::remove(dir / "program.pid");
     fs::remove_all(tmp);
     fs::create_directories(tmp);
@@ -131,10 +135,54 @@ exec sleep 120
     ASSERT_GT(program, 0) << "the program never ran";
     EXPECT_TRUE(WIFSIGNALED(status) && WTERMSIG(status) == sig) << "headroom should end of signal " << sig;
     EXPECT_TRUE(testing::ends_within(program, 5.0)) << "the program outlived headroom after signal " << sig;
-    EXPECT_TRUE(fs::is_empty(tmp)) << "an exchange folder outlived headroom after signal " << sig << ": "
-                                   << fs::directory_iterator(tmp)->path();
+    if (sig != SIGKILL)
+      EXPECT_TRUE(fs::is_empty(tmp)) << "an exchange folder outlived headroom after signal " << sig << ": "
+                                     << fs::directory_iterator(tmp)->path();
     if (!testing::ends_within(program, 0.0)) ::kill(program, SIGKILL);  // a failing run leaves nothing either
   }
+}
+
+TEST(Cli, ProcessesAnExternalProgramLeavesRunningAreStrayProcessesAndEndWithTheCall) {
+  // tests/hostile/bad_program.py "strays" writes the right answer, then leaves
+  // a child in a session of its own and a double-forked grandchild, both named
+  // "hr-stray", sleeping 60 s: neither is in the program's process group, and
+  // the second is not even its descendant once its parent has exited.
+  const auto dir = fresh_dir("strays");
+  const fs::path pids = dir / "strays.pids";
+  const std::string program = "/usr/bin/python3 " + kSource + "/tests/hostile/bad_program.py";
+  const std::string line = "HEADROOM_HOSTILE_PROGRAM=strays HEADROOM_HOSTILE_PROGRAM_PIDS=" + pids.string() + " " +
+                           kTool + " replay --kernel-cmd '" + program + "' --determinism-runs 1 --time-limit 30 " +
+                           kSource + "/corpora/no_max_shift/large_logits-s18-z49-1x1x1x1x1x1x1-none-p0.0.0.0.0.0.0" +
+                           " --json " + (dir / "run.json").string() + " >/dev/null 2>&1";
+  const auto start = std::chrono::steady_clock::now();
+  const int status = std::system(line.c_str());
+  const double seconds = std::chrono::duration<double>(std::chrono::steady_clock::now() - start).count();
+  std::vector<pid_t> strays, outlived;
+  std::ifstream in(pids);
+  for (long p; in >> p;) strays.push_back(static_cast<pid_t>(p));
+  for (pid_t p : strays) {
+    if (testing::ends_within(p, 0.0)) continue;
+    outlived.push_back(p);
+    ::kill(p, SIGKILL);  // a failing run leaves nothing either
+  }
+  ASSERT_GE(strays.size(), 2u) << "the program left no process";
+  EXPECT_EQ(strays.size() % 2, 0u);
+  EXPECT_TRUE(outlived.empty()) << outlived.size() << " of " << strays.size() << " outlived headroom, the first "
+                                << outlived.front();
+  EXPECT_LT(seconds, 30.0) << "headroom waited for the sleepers";
+  // Exit 1: the fault is outside the default budget (no fault class tolerated).
+  EXPECT_TRUE(WIFEXITED(status) && WEXITSTATUS(status) == 1) << status;
+  const RunRecord r = read_run_record(dir / "run.json");
+  ASSERT_EQ(r.cases.size(), 1u);
+  const CaseRecord& c = r.cases[0];
+  EXPECT_GE(c.faults.count("stray_process") ? c.faults.at("stray_process") : 0, 1);
+  bool named = false;
+  for (const auto& d : c.fault_details) {
+    named = named || (d.rfind("stray_process: ", 0) == 0 && d.find("left 2 process(es)") != std::string::npos &&
+                      d.find("\"hr-stray\"") != std::string::npos);
+  }
+  EXPECT_TRUE(named) << "no stray_process detail naming 2 processes and \"hr-stray\" among " << c.fault_details.size();
+  for (const auto& d : c.fault_details) std::printf("%s\n", d.c_str());
 }
 
 TEST(Cli, ThreeShardsMergeToTheUnshardedRecord) {

@@ -107,11 +107,6 @@ std::string timeout_text(const CallOutcome& out, const CallLimits& limits) {
   return buf;
 }
 
-std::string strays_text(const CallOutcome& out) {
-  return "left " + std::to_string(out.strays) + " process(es) it started running after the call returned, the first \"" +
-         out.stray_name + "\" (killed)";
-}
-
 // The call's status and detail; its outputs are the caller's to unpack when ok.
 KernelRun classify(const CallOutcome& out, const GuardedArena& arena, const RunOptions& opt, const CallLimits& limits) {
   using How = CallOutcome::How;
@@ -172,7 +167,7 @@ KernelRun classify(const CallOutcome& out, const GuardedArena& arena, const RunO
   }
   if (out.strays > 0) {
     r.status = RunStatus::stray_process;
-    r.detail = strays_text(out);
+    r.detail = strays_text(out.strays, out.stray_name);
     return r;
   }
   return r;

@@ -12,6 +12,7 @@
 
 #include "attach/exchange_files.h"
 #include "attach/exchange_folder.h"
+#include "attach/isolation.h"
 #include "attach/packing.h"
 #include "attach/process.h"
 #include "attach/served_program.h"
@@ -180,6 +181,12 @@ class ProgramKernel final : public AttachedKernel {
     if (p.exit_code == kExternalExitUnsupported) {
       status = RunStatus::unsupported;
       detail = "the program exited " + std::to_string(kExternalExitUnsupported) + " (declines the problem)";
+      return false;
+    }
+    // As for an isolated plug-in call: what it left running is the fault, whatever its files.
+    if (p.strays > 0) {
+      status = RunStatus::stray_process;
+      detail = "`" + command_ + " " + verb + "`: " + attach_detail::strays_text(p.strays, p.stray_name);
       return false;
     }
     return true;

@@ -65,6 +65,11 @@ std::string signal_text(int signo) {
   return s;
 }
 
+std::string strays_text(int strays, const std::string& first_name) {
+  return "left " + std::to_string(strays) + " process(es) it started running after the call returned, the first \"" +
+         first_name + "\" (killed)";
+}
+
 Ended await_child(pid_t pid, const CallLimits& limits) {
   using Clock = std::chrono::steady_clock;
   Ended e;

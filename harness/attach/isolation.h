@@ -78,4 +78,8 @@ CallOutcome call_in_process(const std::function<int()>& call);
 /// Returns: e.g. "SIGSEGV (Segmentation fault)".
 std::string signal_text(int signo);
 
+/// Returns: the detail of a `stray_process` fault, plug-in or external program:
+/// "left 2 process(es) it started running after the call returned, the first "NAME" (killed)".
+std::string strays_text(int strays, const std::string& first_name);
+
 }  // namespace headroom::attach_detail

@@ -17,6 +17,7 @@
 #include <cstring>
 
 #include "attach/isolation.h"
+#include "attach/program_supervisor.h"
 #include "headroom/external_program.h"
 
 namespace headroom::attach_detail {
@@ -28,12 +29,12 @@ constexpr double kDrainGrace_s = 0.2;
 
 using Clock = std::chrono::steady_clock;
 
-// The groups of the programs now running, for kill_running_programs() in a
-// signal handler: lock-free atomics, so reading them there is safe. A group is
-// listed from fork until just before its leader is reaped (after which its id
-// could be reused). More programs at once than slots go unlisted.
+// The supervisors of the programs now running, for kill_running_programs() in
+// a signal handler: lock-free atomics, so reading them there is safe. A
+// supervisor is listed from fork until just before it is reaped (after which
+// its id could be reused). More programs at once than slots go unlisted.
 constexpr int kListedGroups = 16;
-std::atomic<pid_t> g_running_groups[kListedGroups];
+std::atomic<pid_t> g_running_supervisors[kListedGroups];
 static_assert(std::atomic<pid_t>::is_always_lock_free);
 
 }  // namespace
@@ -42,16 +43,16 @@ static_assert(std::atomic<pid_t>::is_always_lock_free);
 // call directly (Linux ≥ 5.3; −1 elsewhere, and the callers fall back to polling).
 int open_pidfd(pid_t pid) { return static_cast<int>(syscall(SYS_pidfd_open, pid, 0)); }
 
-int list_group(pid_t group) {
+int list_supervisor(pid_t supervisor) {
   for (int i = 0; i < kListedGroups; ++i) {
     pid_t empty = 0;
-    if (g_running_groups[i].compare_exchange_strong(empty, group)) return i;
+    if (g_running_supervisors[i].compare_exchange_strong(empty, supervisor)) return i;
   }
   return -1;
 }
 
-void unlist_group(int slot) {
-  if (slot >= 0 && slot < kListedGroups) g_running_groups[slot].store(0);
+void unlist_supervisor(int slot) {
+  if (slot >= 0 && slot < kListedGroups) g_running_supervisors[slot].store(0);
 }
 
 [[noreturn]] void exec_child(const char* line, int in, int out_w, int err_w, std::uint64_t as_limit) {
@@ -96,6 +97,20 @@ bool drain(int fd, std::string& into, std::size_t cap, bool keep_tail, bool& tru
 
 }  // namespace
 
+void set_end(ProcessResult& r, const SupervisedEnd& end) {
+  if (!end.reported) r.supervisor_lost = true;
+  if (WIFSIGNALED(end.status)) {
+    r.signaled = true;
+    r.signo = WTERMSIG(end.status);
+  } else if (WIFEXITED(end.status)) {
+    r.exit_code = WEXITSTATUS(end.status);
+  }
+  if (end.reported && !end.ended_on_request) {
+    r.strays = end.strays;
+    r.stray_name = end.stray_name;
+  }
+}
+
 std::string shell_quote(const std::string& s) {
   std::string q = "'";
   for (char c : s) {
@@ -124,20 +139,20 @@ ProcessResult run_shell(const std::string& line, double time_limit_s, std::uint6
   }
   std::fflush(nullptr);
   const auto start = Clock::now();
-  const pid_t pid = fork();
-  if (pid == 0) exec_child(line.c_str(), devnull, out_pipe[1], err_pipe[1], memory_limit_bytes);
+  Supervised supervisor = start_supervised(line.c_str(), devnull, out_pipe[1], err_pipe[1], memory_limit_bytes);
+  const pid_t pid = supervisor.pid;
+  const int fork_errno = errno;
   close(devnull);
   close(out_pipe[1]);
   close(err_pipe[1]);
   if (pid < 0) {
     r.started = false;
-    r.error = std::string("fork failed: ") + std::strerror(errno);
+    r.error = std::string("fork failed: ") + std::strerror(fork_errno);
     close(out_pipe[0]);
     close(err_pipe[0]);
     return r;
   }
-  setpgid(pid, pid);  // also in the child: whichever runs first, the group exists before any kill
-  const int listed = list_group(pid);
+  const int listed = list_supervisor(pid);
   const int pidfd = open_pidfd(pid);
   const auto deadline = start + std::chrono::duration_cast<Clock::duration>(std::chrono::duration<double>(time_limit_s));
   bool out_open = true, err_open = true, ended = false, err_truncated = false;
@@ -181,24 +196,16 @@ ProcessResult run_shell(const std::string& line, double time_limit_s, std::uint6
       drain_deadline = Clock::now() + std::chrono::duration_cast<Clock::duration>(std::chrono::duration<double>(kDrainGrace_s));
     }
   }
-  // The leader is not reaped yet, so its group id cannot have been reused.
-  kill(-pid, SIGKILL);
-  unlist_group(listed);
-  int status = 0;
-  while (waitpid(pid, &status, 0) < 0 && errno == EINTR) {
-  }
+  // The supervisor ends by itself once the program has and it has killed
+  // what the program left; past the time limit it is told to end everything.
+  if (!ended) end_supervised(pid);
+  unlist_supervisor(listed);
+  const SupervisedEnd end = reap_supervised(supervisor);
   if (pidfd >= 0) close(pidfd);
   close(out_pipe[0]);
   close(err_pipe[0]);
   r.seconds = std::chrono::duration<double>(Clock::now() - start).count();
-  if (!r.timed_out) {
-    if (WIFSIGNALED(status)) {
-      r.signaled = true;
-      r.signo = WTERMSIG(status);
-    } else if (WIFEXITED(status)) {
-      r.exit_code = WEXITSTATUS(status);
-    }
-  }
+  if (!r.timed_out) set_end(r, end);
   return r;
 }
 
@@ -208,8 +215,12 @@ std::string describe_end(const ProcessResult& r, double time_limit_s) {
     s = r.error;
   } else if (r.timed_out) {
     char buf[80];
-    std::snprintf(buf, sizeof buf, "over the time limit of %g s (process group killed)", time_limit_s);
+    std::snprintf(buf, sizeof buf, "over the time limit of %g s (killed, with every process it started)", time_limit_s);
     s = buf;
+  } else if (r.supervisor_lost) {
+    s = "its supervisor (hr-program) ended without a report (" +
+        (r.signaled ? "killed by " + signal_text(r.signo) : "exit code " + std::to_string(r.exit_code)) +
+        "; did the program kill it?), so only the program's process group was killed";
   } else if (r.signaled) {
     s = "killed by " + signal_text(r.signo);
   } else {
@@ -235,9 +246,8 @@ std::string describe_end(const ProcessResult& r, double time_limit_s) {
 namespace headroom {
 
 void kill_running_programs() noexcept {
-  for (auto& group : attach_detail::g_running_groups) {
-    const pid_t g = group.load();
-    if (g > 0) kill(-g, SIGKILL);
+  for (auto& supervisor : attach_detail::g_running_supervisors) {
+    attach_detail::end_supervised(supervisor.load());
   }
 }
 

@@ -1,11 +1,13 @@
-// headroom — running a shell command line under a time limit, in its own process group.
+// headroom — running a shell command line under a time limit, and ending all it starts.
 //
 // Internal to the attach stage (external programs). The command runs as
-// `/bin/sh -c LINE` with stdin from /dev/null, stdout captured (up to a cap),
+// `/bin/sh -c LINE` under a supervisor (program_supervisor.h), in a process
+// group of its own, with stdin from /dev/null, stdout captured (up to a cap),
 // the tail of stderr kept for error messages, every other descriptor closed,
-// no core dumps and RLIMIT_AS when asked. Past the time limit the whole
-// process group is SIGKILLed; after the leader ends, stragglers in its group
-// are killed too. The leader is always reaped.
+// no core dumps and RLIMIT_AS when asked. Past the time limit the program and
+// every process it started are SIGKILLed; when it ends by itself, those of its
+// processes still running are killed and counted (`strays`). The supervisor
+// is always reaped.
 #pragma once
 
 #include <cstddef>
@@ -27,6 +29,9 @@ struct ProcessResult {
   bool out_truncated = false;
   std::string err_tail;     ///< the last ≤ 2000 bytes of stderr
   double seconds = 0;
+  int strays = 0;           ///< processes it started and left running when it exited by itself (killed)
+  std::string stray_name;   ///< the first one's command name (/proc/PID/comm)
+  bool supervisor_lost = false;  ///< its supervisor died without a report (signaled/exit_code are the supervisor's)
 };
 
 /// Returns: how `/bin/sh -c line` ended. time_limit_s ≤ 0: no limit;
@@ -43,11 +48,15 @@ ProcessResult run_shell(const std::string& line, double time_limit_s, std::uint6
 /// Returns: a pidfd for `pid` (Linux ≥ 5.3), or −1 (callers then poll waitid).
 int open_pidfd(pid_t pid);
 
-/// Lists process group `group` for kill_running_programs() (external_program.h).
-/// Returns: the slot to pass to unlist_group, or −1 when every slot is taken.
-/// Unlist before reaping the leader, whose id could then be reused.
-int list_group(pid_t group);
-void unlist_group(int slot);
+/// Lists a program's supervisor for kill_running_programs() (external_program.h).
+/// Returns: the slot to pass to unlist_supervisor, or −1 when every slot is
+/// taken. Unlist before reaping the supervisor, whose id could then be reused.
+int list_supervisor(pid_t supervisor);
+void unlist_supervisor(int slot);
+
+struct SupervisedEnd;
+/// Sets how the program ended in `r` (exit code or signal, strays) from its supervisor's report.
+void set_end(ProcessResult& r, const SupervisedEnd& end);
 
 /// Returns: `s` quoted for /bin/sh (single quotes; a ' inside becomes '\'').
 std::string shell_quote(const std::string& s);

@@ -17,6 +17,7 @@
 #include <nlohmann/json.hpp>
 
 #include "attach/process.h"
+#include "attach/program_supervisor.h"
 
 namespace headroom::attach_detail {
 namespace {
@@ -87,20 +88,16 @@ std::string ProgramSession::stop(bool kill_now) {
     }
   }
   drain_stderr();
-  // The leader is not reaped yet, so its group id cannot have been reused.
-  kill(-pid_, SIGKILL);
-  unlist_group(slot_);
+  // Not reaped yet, so its id cannot have been reused; one that has ended
+  // already (with its program and all it started) ignores this.
+  end_supervised(pid_);
+  unlist_supervisor(slot_);
   slot_ = -1;
-  int status = 0;
-  while (waitpid(pid_, &status, 0) < 0 && errno == EINTR) {
-  }
+  Supervised supervisor{pid_, report_};
+  const SupervisedEnd end = reap_supervised(supervisor);
+  report_ = -1;
   ProcessResult r;
-  if (WIFSIGNALED(status)) {
-    r.signaled = true;
-    r.signo = WTERMSIG(status);
-  } else if (WIFEXITED(status)) {
-    r.exit_code = WEXITSTATUS(status);
-  }
+  set_end(r, end);
   r.err_tail = err_tail_;
   for (int* fd : {&pidfd_, &in_, &out_, &err_}) close_fd(*fd);
   pid_ = 0;
@@ -157,20 +154,21 @@ SessionReply ProgramSession::start(double time_limit_s) {
   }
   const std::string line = command_ + " serve";
   std::fflush(nullptr);
-  const pid_t pid = fork();
-  if (pid == 0) exec_child(line.c_str(), sv[1], out_pipe[1], err_pipe[1], 0);
+  const Supervised supervisor = start_supervised(line.c_str(), sv[1], out_pipe[1], err_pipe[1], 0);
+  const pid_t pid = supervisor.pid;
+  const int fork_errno = errno;
   close(sv[1]);
   close(out_pipe[1]);
   close(err_pipe[1]);
   if (pid < 0) {
     r.how = SessionReply::How::ended;
-    r.detail = std::string("fork failed: ") + std::strerror(errno);
+    r.detail = std::string("fork failed: ") + std::strerror(fork_errno);
     for (int fd : {sv[0], out_pipe[0], err_pipe[0]}) close(fd);
     return r;
   }
-  setpgid(pid, pid);  // also in the child: whichever runs first, the group exists before any kill
   pid_ = pid;
-  slot_ = list_group(pid);
+  report_ = supervisor.report;
+  slot_ = list_supervisor(pid);
   pidfd_ = open_pidfd(pid);
   in_ = sv[0];
   out_ = out_pipe[0];
@@ -184,7 +182,8 @@ SessionReply ProgramSession::start(double time_limit_s) {
     stop(true);
     r.how = SessionReply::How::timeout;
     char buf[96];
-    std::snprintf(buf, sizeof buf, "no ready line within the time limit of %g s (process group killed)", time_limit_s);
+    std::snprintf(buf, sizeof buf, "no ready line within the time limit of %g s (killed, with every process it started)",
+                  time_limit_s);
     r.detail = buf;
     return r;
   }
@@ -201,7 +200,7 @@ SessionReply ProgramSession::start(double time_limit_s) {
   }
   if (!problem.empty()) {
     r.how = SessionReply::How::broken;
-    r.detail = problem + " (process group killed; " + stop(true) + ")";
+    r.detail = problem + " (killed, with every process it started; " + stop(true) + ")";
   }
   return r;
 }
@@ -233,7 +232,7 @@ SessionReply ProgramSession::call(const std::filesystem::path& dir, double time_
   const std::string got = read_line(line, time_limit_s);
   if (got == "timeout") {
     char buf[96];
-    std::snprintf(buf, sizeof buf, "over the time limit of %g s (process group killed)", time_limit_s);
+    std::snprintf(buf, sizeof buf, "over the time limit of %g s (killed, with every process it started)", time_limit_s);
     r.how = SessionReply::How::timeout;
     r.detail = "`" + command_ + " serve`: " + buf;
     const std::string end = stop(true);
@@ -262,7 +261,7 @@ SessionReply ProgramSession::call(const std::filesystem::path& dir, double time_
   }
   if (!problem.empty()) {
     r.how = SessionReply::How::broken;
-    r.detail = "`" + command_ + " serve` broke the protocol: " + problem + " (process group killed)";
+    r.detail = "`" + command_ + " serve` broke the protocol: " + problem + " (killed, with every process it started)";
     stop(true);
     return r;
   }

@@ -3,7 +3,8 @@
 // Internal to the attach stage; the protocol is docs/external-program.md,
 // "Persistent mode". A program opts in by declaring "serve": 1 in `CMD
 // describe` (protocol 2). headroom then starts `CMD serve` once, through
-// /bin/sh, in its own process group (listed for kill_running_programs), with
+// /bin/sh, under a supervisor (program_supervisor.h: listed for
+// kill_running_programs; what the program starts ends when it does), with
 // stdin a socket headroom writes requests into, stdout a pipe it reads replies
 // from and stderr a pipe whose last 2000 bytes are kept for messages; every
 // other descriptor closed, no core dumps, no address-space limit. Lines, one
@@ -15,10 +16,12 @@
 //   program → headroom, per call:          {"call": N, "status": "ok" | "unsupported" | "error", "detail": "..."}
 //
 // DIR holds the same exchange as `CMD run DIR` (external_program.h). Closing
-// stdin asks the program to exit; it gets kQuitGrace_s before its group is
-// SIGKILLed. A program that dies, overruns the time limit of a call or breaks
-// the protocol is SIGKILLed (its whole group) and reaped, the call gets the
-// fault, and the next call starts it afresh. Calls are sequential.
+// stdin asks the program to exit; it gets kQuitGrace_s before it is
+// SIGKILLed. Processes it starts may live between calls; they end with the
+// session (killed, not counted as faults). A program that dies, overruns the
+// time limit of a call or breaks the protocol is SIGKILLed with every process
+// it started, the call gets the fault, and the next call starts it afresh.
+// Calls are sequential.
 #pragma once
 
 #include <filesystem>
@@ -54,7 +57,7 @@ class ProgramSession {
   explicit ProgramSession(std::string command) : command_(std::move(command)) {}
   ProgramSession(const ProgramSession&) = delete;
   ProgramSession& operator=(const ProgramSession&) = delete;
-  /// Closes stdin, waits up to kQuitGrace_s, then kills the group and reaps it.
+  /// Closes stdin, waits up to kQuitGrace_s, then kills the program and all it started.
   ~ProgramSession();
 
   /// Returns: how the program answered one request naming `dir` under the key
@@ -65,7 +68,7 @@ class ProgramSession {
 
   /// Returns: how many times the program was started (tests).
   int starts() const { return starts_; }
-  /// Returns: the pid of the running program's shell, or 0 when none runs (tests).
+  /// Returns: the pid of the running program's supervisor, or 0 when none runs (tests).
   pid_t pid() const { return pid_; }
 
  private:
@@ -74,12 +77,12 @@ class ProgramSession {
   // "timeout", "ended" or a protocol problem.
   std::string read_line(std::string& line, double time_limit_s);
   void drain_stderr();
-  // Kills the group, reaps the leader, closes every descriptor. Returns how it ended.
+  // Ends the program and all it started, reaps the supervisor, closes every descriptor. Returns how it ended.
   std::string stop(bool kill_now);
 
   std::string command_;
   pid_t pid_ = 0;
-  int pidfd_ = -1, in_ = -1, out_ = -1, err_ = -1, slot_ = -1;
+  int pidfd_ = -1, in_ = -1, out_ = -1, err_ = -1, slot_ = -1, report_ = -1;
   std::string pending_, err_tail_;
   long long calls_ = 0;
   int starts_ = 0;

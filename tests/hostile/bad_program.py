@@ -19,6 +19,9 @@ log-sum-exp); `bad_program.py run DIR` writes DIR/o.npy — or not, as the mode
   never_exits        ignores SIGTERM and SIGINT, spins forever
   straggler          the right answer, leaving a grandchild in its own session
                      that holds stdout and stderr open for 3 s
+  strays             the right answer, leaving a setsid child and a double-forked
+                     grandchild named "hr-stray" sleeping (leave_strays.py; their
+                     pids appended to $HEADROOM_HOSTILE_PROGRAM_PIDS when set)
   describe_garbage   `describe` prints something that is not JSON
   describe_huge      `describe` prints JSON with a number beyond double (1e400)
   describe_hangs     `describe` never returns
@@ -117,6 +120,9 @@ def run(folder):
         time.sleep(3)
         os._exit(0)
     np.save(out, attention(folder, problem))
+    if MODE == "strays":
+        from leave_strays import leave_strays
+        leave_strays(os.environ.get("HEADROOM_HOSTILE_PROGRAM_PIDS"))
     return 0
 
 

@@ -16,6 +16,9 @@ in $HEADROOM_SERVE_LOG.calls):
   unsupported  replies unsupported
   garbage      replies with a line that is not JSON
   wrong_call   replies to another call number
+  strays       the right answer, leaving a setsid child and a double-forked
+               grandchild named "hr-stray" sleeping (leave_strays.py; their
+               pids appended to $HEADROOM_SERVE_LOG.strays), reply ok
 Before the ready line, $HEADROOM_SERVE_START may say: no_ready (exit 4
 without it), bad_ready ({"serve": 9}), slow (sleep 30).
 """
@@ -82,6 +85,9 @@ def serve():
             reply({"call": request["call"], "status": mode, "detail": "boom"})
         else:
             attention(request["run"])
+            if mode == "strays":
+                from leave_strays import leave_strays
+                leave_strays(log + ".strays")
             reply({"call": request["call"], "status": "ok"})
 
 

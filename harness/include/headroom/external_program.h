@@ -1,6 +1,7 @@
 // headroom — the exchange with a kernel that is an external program (docs/external-program.md).
 //
-// headroom runs a command line CMD (through /bin/sh, in its own process group):
+// headroom runs a command line CMD (through /bin/sh, in its own process group,
+// under a subreaper that ends every process CMD starts when CMD ends):
 //
 //   CMD describe    prints the kernel's declaration as one JSON object on stdout
 //                   and exits 0 (declaration_from_json says what it may hold);
@@ -24,7 +25,9 @@
 // w_k.npy, w_v.npy, w_o.npy [Hq·Dv, Dm], b_*.npy [n] when present.
 // Outputs: o.npy [B, Hq, Tq, Dv] / y.npy [B, Tq, Dm] with the dtype of the
 // output format, lse.npy '<f4' [B, Hq, Tq]. Anything else — missing,
-// truncated, another dtype or shape — is bad_output naming the file.
+// truncated, another dtype or shape — is bad_output naming the file. A `run`
+// that exits leaving a process it started running (forked, setsid,
+// double-forked) is stray_process naming the process (which is killed).
 // The exchange folder is created under the temp directory and always removed.
 #pragma once
 
@@ -94,10 +97,12 @@ void write_backward_exchange(const std::filesystem::path& dir, const ReceivedCas
 /// missing, mistyped, mis-shaped or malformed.
 BackwardRun read_backward_exchange(const std::filesystem::path& dir, const ReceivedCase& c, const KernelDeclaration& d);
 
-/// SIGKILLs the process group of every external kernel program now running.
+/// Ends every external kernel program now running, with every process it
+/// started (their supervisors SIGKILL and reap them, and exit on their own).
 /// Async-signal-safe: meant for the handler of a signal that ends headroom,
 /// since the programs run in groups of their own and Ctrl-C at a terminal
-/// does not reach them. (A SIGKILLed headroom cannot call it; see docs/reliability.md.)
+/// does not reach them. (A SIGKILLed headroom cannot call it; the supervisors
+/// then end their programs by themselves: docs/reliability.md.)
 void kill_running_programs() noexcept;
 
 /// Removes the exchange folder of every external-program call now in progress
