@@ -135,9 +135,10 @@ exec sleep 120
     ASSERT_GT(program, 0) << "the program never ran";
     EXPECT_TRUE(WIFSIGNALED(status) && WTERMSIG(status) == sig) << "headroom should end of signal " << sig;
     EXPECT_TRUE(testing::ends_within(program, 5.0)) << "the program outlived headroom after signal " << sig;
-    if (sig != SIGKILL)
+    if (sig != SIGKILL) {
       EXPECT_TRUE(fs::is_empty(tmp)) << "an exchange folder outlived headroom after signal " << sig << ": "
                                      << fs::directory_iterator(tmp)->path();
+    }
     if (!testing::ends_within(program, 0.0)) ::kill(program, SIGKILL);  // a failing run leaves nothing either
   }
 }

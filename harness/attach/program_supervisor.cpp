@@ -95,15 +95,8 @@ void write_note(int fd, const Note& n) {
     _exit(0);
   }
   bool done = false;
-  for (;;) {
-    siginfo_t info{};
-    const int sig = sigwaitinfo(&ending, &info);
-    if (sig < 0) continue;  // EINTR
-    if (sig != SIGCHLD) {
-      end.requested = 1;
-      break;
-    }
-    // Reaps the program, and whatever it left that has ended meanwhile.
+  // Reaps the program, and whatever it left that has ended meanwhile.
+  auto reap_ended = [&] {
     for (int status = 0;;) {
       const pid_t w = waitpid(-1, &status, WNOHANG);
       if (w <= 0) break;
@@ -112,11 +105,25 @@ void write_note(int fd, const Note& n) {
         done = true;
       }
     }
-    if (done) break;
+  };
+  while (!done) {
+    siginfo_t info{};
+    const int sig = sigwaitinfo(&ending, &info);
+    if (sig < 0) continue;  // EINTR
+    // A request may come after the program has ended on its own (headroom
+    // saw its pipes close first): how it ended is still what it did.
+    reap_ended();
+    if (sig != SIGCHLD) {
+      end.requested = done ? 0 : 1;
+      break;
+    }
   }
   if (!done) {
     kill(-program, SIGKILL);  // not reaped yet: its id still names its group
-    end.status = SIGKILL;     // a wait status: killed by SIGKILL
+    // Its status says SIGKILL, unless it was already exiting (its pipes closed
+    // before it became a zombie): then the status it exited with.
+    while (waitpid(program, &end.status, 0) < 0 && errno == EINTR) {
+    }
   }
   end.program = program;
   end.strays = end_all_children(end.stray_name, sizeof end.stray_name);
