@@ -88,6 +88,33 @@ TEST(ScoreConditioning, TermIsTwiceTheScoreErrorBoundInOutputUnits) {
   EXPECT_GT(b.score_conditioning(s, 4.0), 1000 * 2 * gamma_tilde_n(4.0, 9, us) / std::ldexp(1.0, -11));
 }
 
+// The 8-bit float defaults are fixed (2^21 E4M3), yet each row adds the
+// worst-case cost of forming its scores from codes in float32: 2·γ_{m+2}(2^-24)·Z_r
+// in scaled units (m = score_terms = Dk + 1, two more roundings for the scales).
+// A fixed limit set in a budget file stays as given.
+TEST(ScoreConditioning, EightBitDefaultsAddTheWorstCaseTermAFileLimitDoesNot) {
+  const KernelBudget b = default_budget(Format::e4m3);
+  CaseScore s = two_rows(0, 800, 0, 0);  // score_terms 9
+  const double term = 2 * gamma_n(11, 0x1p-24) / 0x1p-24 * 800;
+  EXPECT_DOUBLE_EQ(b.row_scaled_error_limit(10, s, 0), 0x1p21);
+  EXPECT_DOUBLE_EQ(b.row_scaled_error_limit(10, s, 1), 0x1p21 + term);
+  // A row over 2^21 by less than the term passes, and the note names the term.
+  s.row_max_scaled = {1, 0x1p21 + term / 2};
+  s.max_scaled_error = s.row_max_scaled[1];
+  const Verdict v = judge(&s, CaseFaults{}, b, 10);
+  EXPECT_TRUE(v.pass);
+  bool said = false;
+  for (const auto& n : v.notes) said |= n.find("for score conditioning: scores in this row reach |z| = 800") != std::string::npos;
+  EXPECT_TRUE(said);
+  s.row_max_scaled = {1, 0x1p21 + 2 * term};
+  s.max_scaled_error = s.row_max_scaled[1];
+  const Verdict over = judge(&s, CaseFaults{}, b, 10);
+  ASSERT_FALSE(over.pass);
+  EXPECT_NE(over.reasons.front().text.find("plus score conditioning at Z = 800"), std::string::npos) << over.reasons.front().text;
+  const Budget file = parse_budget("version = 1\n[kernel.k]\nmax_scaled_error = 2097152\n", "b.toml");
+  EXPECT_DOUBLE_EQ(file.for_kernel("k", Format::e4m3).row_scaled_error_limit(10, s, 1), 0x1p21);
+}
+
 TEST(ScoreConditioning, BudgetFileSetsScoreBits) {
   const Budget b = parse_budget("version = 1\n[kernel.k]\nscore_bits = 11\n", "b.toml");
   EXPECT_EQ(b.for_kernel("k", Format::binary16).score_bits, 11);

@@ -57,13 +57,16 @@ TEST(PRounding, FloorIsTheUnderflowBoundInScaledUnits) {
   CaseScore s = score_core(ref.out, nullptr, ref, Format::float32);
   condition_on_p_rounding(s, c, Format::e4m3, 448.0f);
   ASSERT_EQ(s.row_p_floor.size(), 2u);
-  // (2^-10/448)·(Σ|v| + 3·Σp|v|) / (2^-24·Σp|v|), Σ|v| = 2, Σp|v| = o* (values ≥ 0).
-  for (std::int64_t i = 0; i < 2; ++i) {
-    const double o = ref.out.at(0, 0, i, 0);
-    EXPECT_NEAR(s.row_p_floor[static_cast<std::size_t>(i)], 0x1p-10 / 448 * (2 + 3 * o) / (0x1p-24 * o),
-                1e-9 * s.row_p_floor[static_cast<std::size_t>(i)]);
-  }
-  EXPECT_TRUE(std::isfinite(s.row_p_floor[0]));
+  // Row 0: keys 1 and 2 weigh p ≈ 1.4e-6 each, below 2^-6/448 ≈ 3.5e-5 (subnormal
+  // once scaled) and below 2^-10/448 ≈ 2.2e-6 (they flush): a_j = p_j, so the
+  // floor is (Σ a_j|v_j| + Σ a_j·Σ p|v|) / (2^-24·Σ p|v|) = (1 + o*)·2^24 with
+  // Σ p|v| = p_1 + p_2 = o*: at most the whole output (and its normaliser share).
+  const double o0 = ref.out.at(0, 0, 0, 0);
+  EXPECT_NEAR(s.row_p_floor[0], (1 + o0) * 0x1p24, 1e-9 * s.row_p_floor[0]);
+  // Row 1: p ≈ 1e-4, normal once multiplied by 448: no allowance beyond the
+  // relative 2·u_P. (The former allowance charged 2^-10/448 to every key:
+  // (2 + 3·o*)·2^-10/448/(2^-24·o*) ≈ 3.7e5 here, and ≈ 2.7e7 on row 0.)
+  EXPECT_EQ(s.row_p_floor[1], 0.0);
   // Not filled: no allowance.
   const CaseScore bare = score_core(ref.out, nullptr, ref, Format::float32);
   EXPECT_EQ(KernelBudget::p_floor(bare, 0), 0.0);
@@ -85,8 +88,8 @@ TEST(PRounding, UnderflowOfADeclaredScaleIsWithinBudgetAForgottenScaleIsNot) {
   // Row 1 flushes only without the scale: the floor (set for p_scale 448) does not cover it.
   const Verdict u = verdict_of(unscaled, c, ref, true);
   ASSERT_FALSE(u.pass);
-  // The binding limit is row 1's (2^21 plus a floor of about 3.7e5), not row 0's (about 2.6e7).
-  EXPECT_LT(u.reasons.front().limit, 0x1p22) << u.reasons.front().text;
+  // The binding limit is row 1's (2^21, no floor), not row 0's (2^21 + about 1.7e7).
+  EXPECT_EQ(u.reasons.front().limit, 0x1p21) << u.reasons.front().text;
 }
 
 }  // namespace

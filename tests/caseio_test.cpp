@@ -229,6 +229,24 @@ TEST(CaseFolder, RoundTripsASoftCapAndSinksExactly) {
   EXPECT_EQ(plain.find("sinks"), std::string::npos);
 }
 
+TEST(CaseFolder, RoundTripsDelayedFp8ScalesExactly) {
+  TempDir tmp;
+  Case c = core_case(Format::float32, MaskKind::none);
+  c.core.fp8_delayed.k = 0x1.000002p-5f;  // not a short decimal
+  c.core.fp8_delayed.v = 1.0f;
+  write_case(c, tmp.path() / "d");
+  const Case back = read_case(tmp.path() / "d");
+  EXPECT_EQ(back.core.fp8_delayed.q, 0.0f);
+  EXPECT_EQ(back.core.fp8_delayed.k, c.core.fp8_delayed.k);
+  EXPECT_EQ(back.core.fp8_delayed.v, 1.0f);
+  const std::string manifest = slurp(tmp.path() / "d" / "manifest.json");
+  EXPECT_NE(manifest.find("\"k\": \"0x1.000002p-5\""), std::string::npos) << manifest;
+  EXPECT_EQ(manifest.find("\"q\":"), std::string::npos) << "a fresh (0) scale writes no entry: " << manifest;
+  // A case without them writes no key.
+  write_case(core_case(Format::float32, MaskKind::none), tmp.path() / "plain");
+  EXPECT_EQ(slurp(tmp.path() / "plain" / "manifest.json").find("fp8_delayed"), std::string::npos);
+}
+
 TEST(CaseFolder, RoundTripsABlockCaseWithSomeBiases) {
   TempDir tmp;
   const Case c = block_case();
@@ -433,6 +451,10 @@ TEST(CaseFolder, RefusesBadManifests) {
       {[](json& j) { j["softcap_hex"] = "-0x1p+4"; }, "field \"softcap_hex\"", "must be > 0"},
       {[](json& j) { j["softcap_hex"] = "0x1.0000001p+4"; }, "field \"softcap_hex\"", "not a float32 value"},
       {[](json& j) { j["sinks_hex"] = json::array(); }, "field \"sinks_hex\"", "non-empty array"},
+      {[](json& j) { j["fp8_delayed_scales_hex"] = "0x1p+0"; }, "field \"fp8_delayed_scales_hex\"", "at least one entry"},
+      {[](json& j) { j["fp8_delayed_scales_hex"] = {{"o", "0x1p+0"}}; }, "field \"fp8_delayed_scales_hex.o\"", "unknown key"},
+      {[](json& j) { j["fp8_delayed_scales_hex"] = {{"k", "0x0p+0"}}; }, "field \"fp8_delayed_scales_hex.k\"", "must be > 0"},
+      {[](json& j) { j["fp8_delayed_scales_hex"] = {{"v", "1"}}; }, "field \"fp8_delayed_scales_hex.v\"", "is not a hex float"},
       {[](json& j) { j["sinks_hex"] = {"0x1p+0", 2}; }, "field \"sinks_hex[1]\"", "hex float string"},
       {[](json& j) { j["source_format"] = "int8"; }, "field \"source_format\"", "unknown source format"},
       {[](json& j) { j["level"] = "layer"; }, "field \"level\"", "unknown level"},

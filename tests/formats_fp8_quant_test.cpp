@@ -1,5 +1,6 @@
-// headroom — tests of 8-bit float quantisation (quant.h, quantize_fp8): scale
-// groups per tensor, head, token, channel and block, the amax scale rule, the
+// headroom — tests of 8-bit float quantisation (quant.h, quantize_fp8,
+// quantize_fp8_delayed): scale groups per tensor, head, token, channel and
+// block, the amax scale rule, delayed scales that saturate or overflow, the
 // error bound stated in quant.h, exact dequantisation, and bad input.
 #include <gtest/gtest.h>
 #include <rapidcheck/gtest.h>
@@ -7,6 +8,7 @@
 #include <cmath>
 #include <cstdint>
 #include <cstdio>
+#include <limits>
 #include <stdexcept>
 
 #include "headroom/fp8.h"
@@ -144,6 +146,48 @@ TEST(Fp8Quant, RefusesWhatItCannotHold) {
   QuantizedTensor q = quantize_fp8(x, {}, Format::e4m3);
   q.codes[0] = static_cast<std::int8_t>(0x7F);  // E4M3 NaN
   EXPECT_THROW(dequantize(q), std::invalid_argument);
+}
+
+// Delayed scales (quantize_fp8_delayed): every group takes the given scale,
+// each code is the conversion of x/s in the requested saturation mode, so
+// values past M·s reach the format's edge: 464·s ties to 448 (even), 465·s
+// and 480·s become 448 saturating and NaN (0x7F) otherwise in E4M3; in E5M2
+// 61440·s becomes 57344 or +infinity (0x7C). The amax rule would have
+// scaled them all into range.
+TEST(Fp8Quant, DelayedScaleSaturatesOrOverflowsAsDeclared) {
+  const float s = 0x1p-5f;
+  Tensor x({1, 2, 3, 2});
+  x.values = {448 * 0x1p-5, 464 * 0x1p-5, 465 * 0x1p-5, -480 * 0x1p-5, 1.0, 0.0,
+              57344 * 0x1p-5, 61440 * 0x1p-5, -1000.0, 0x1p-20, 2.0, -3.0};
+  for (const QuantScheme scheme : {QuantScheme{}, QuantScheme{Granularity::per_block, false, 2},
+                                   QuantScheme{Granularity::per_head, false, 0}}) {
+    for (const Format f : {Format::e4m3, Format::e5m2})
+      for (const bool sat : {true, false}) {
+        const QuantizedTensor q = quantize_fp8_delayed(x, scheme, f, s, sat);
+        for (float sc : q.scales) EXPECT_EQ(sc, s);
+        for (std::size_t i = 0; i < x.values.size(); ++i)
+          EXPECT_EQ(static_cast<std::uint8_t>(q.codes[i]), double_to_fp8(x.values[i] / s, kind_of(f), sat)) << i;
+      }
+  }
+  const auto code = [&](Format f, bool sat, std::size_t i) {
+    return static_cast<std::uint8_t>(quantize_fp8_delayed(x, {}, f, s, sat).codes[i]);
+  };
+  EXPECT_EQ(code(Format::e4m3, false, 0), 0x7E);  // 448 exactly
+  EXPECT_EQ(code(Format::e4m3, false, 1), 0x7E);  // the tie 464 rounds to 448
+  EXPECT_EQ(code(Format::e4m3, true, 2), 0x7E);
+  EXPECT_EQ(code(Format::e4m3, false, 2), 0x7F);  // NaN
+  EXPECT_EQ(code(Format::e4m3, true, 3), 0xFE);   // −448
+  EXPECT_EQ(code(Format::e4m3, false, 3), 0xFF);
+  EXPECT_EQ(code(Format::e5m2, true, 6), 0x7B);   // 57344
+  EXPECT_EQ(code(Format::e5m2, true, 7), 0x7B);
+  EXPECT_EQ(code(Format::e5m2, false, 7), 0x7C);  // +infinity
+  // Saturated codes dequantise to ±M·s; overflowed ones are refused.
+  EXPECT_EQ(dequantize(quantize_fp8_delayed(x, {}, Format::e4m3, s, true)).values[8], -448 * 0x1p-5);
+  EXPECT_THROW(dequantize(quantize_fp8_delayed(x, {}, Format::e4m3, s, false)), std::invalid_argument);
+  // The amax rule on the same tensor keeps every code finite.
+  for (std::int8_t c : quantize_fp8(x, {}, Format::e4m3).codes) EXPECT_TRUE(std::isfinite(fp8_to_double(static_cast<std::uint8_t>(c), Fp8Kind::e4m3)));
+  for (const float bad : {0.0f, -1.0f, std::numeric_limits<float>::infinity()})
+    EXPECT_THROW(quantize_fp8_delayed(x, {}, Format::e4m3, bad, true), std::invalid_argument);
 }
 
 // Every granularity, both formats, random shapes and magnitudes (1e-6 … 1e6):

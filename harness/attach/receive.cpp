@@ -65,9 +65,15 @@ std::string problems_text(const std::vector<ProblemError>& errors) {
   return text;
 }
 
-QuantizedTensor quantized(const Case& c, const Tensor& t, const QuantScheme& scheme, Format f, const char* which) {
+// `delayed`: the case's delayed scale for this tensor (0: none; read by
+// 8-bit float kernels only), converted with the kernel's saturation mode —
+// saturating, since why_unfit keeps delayed cases from the others.
+QuantizedTensor quantized(const Case& c, const Tensor& t, const QuantScheme& scheme, const KernelDeclaration& d,
+                          float delayed, const char* which) {
+  const Format f = d.input_format;
   try {
-    return f == Format::int8 ? quantize(t, scheme) : quantize_fp8(t, scheme, f);
+    if (f == Format::int8) return quantize(t, scheme);
+    return delayed > 0.0f ? quantize_fp8_delayed(t, scheme, f, delayed, d.fp8_saturating) : quantize_fp8(t, scheme, f);
   } catch (const std::invalid_argument& e) {
     throw InputError(c.name, std::string("tensor ") + which,
                      std::string("cannot be quantised as ") + scheme_name(scheme) + ": " + e.what(),
@@ -109,6 +115,13 @@ std::optional<std::string> why_unfit(const Case& c, const KernelDeclaration& d) 
       return "Tk " + std::to_string(tk) + " of sequence " + std::to_string(n) + " not a multiple of the declared " +
              std::to_string(d.kv_len_multiple);
   }
+  // Delayed scales let values pass the format's largest finite value; a
+  // non-saturating conversion turns them into NaN or infinite codes, whose
+  // attention no reference defines.
+  if (c.level == Level::core && c.core.fp8_delayed.any() && is_fp8(d.input_format) && !d.fp8_saturating) {
+    return "delayed 8-bit scales (fp8_delayed_scales_hex) with kernel \"" + d.name +
+           "\", which declares non-saturating conversions (fp8_saturating 0): values past the format's range would be NaN or infinite";
+  }
   if (c.level == Level::block && is_quantised(d.input_format)) {
     return std::string(format_name(d.input_format)) + " input at block level is not supported (only Q, K, V are quantised)";
   }
@@ -139,9 +152,10 @@ ReceivedCase receive(const Case& c, const KernelDeclaration& d) {
   if (c.level == Level::core) {
     r.received.core.mask = received_mask(c.core.mask);
     if (is_quantised(d.input_format)) {
-      r.q8 = quantized(c, c.core_inputs.q, d.q_quant, d.input_format, "q");
-      r.k8 = quantized(c, c.core_inputs.k, d.k_quant, d.input_format, "k");
-      r.v8 = quantized(c, c.core_inputs.v, d.v_quant, d.input_format, "v");
+      const CoreProblem::DelayedScales& ds = c.core.fp8_delayed;
+      r.q8 = quantized(c, c.core_inputs.q, d.q_quant, d, ds.q, "q");
+      r.k8 = quantized(c, c.core_inputs.k, d.k_quant, d, ds.k, "k");
+      r.v8 = quantized(c, c.core_inputs.v, d.v_quant, d, ds.v, "v");
       r.received.core_inputs.q = dequantize(*r.q8);
       r.received.core_inputs.k = dequantize(*r.k8);
       r.received.core_inputs.v = dequantize(*r.v8);

@@ -104,7 +104,9 @@ std::string Limit::describe(std::int64_t n, double u_output) const {
   char buf[160];
   switch (kind) {
     case Kind::none: return "none";
-    case Kind::fixed: std::snprintf(buf, sizeof buf, "%.6g", value); return buf;
+    case Kind::fixed:
+      std::snprintf(buf, sizeof buf, "%.6g%s", value, score_conditioned ? " plus worst-case score conditioning" : "");
+      return buf;
     case Kind::probabilistic: {
       const int bits = working_bits > 0 ? working_bits : output_bits(u_output);
       const double u = std::ldexp(1.0, -bits);
@@ -134,6 +136,11 @@ double KernelBudget::score_conditioning(const CaseScore& s, double lambda) const
   return 2.0 * std::min(gamma_tilde_n(lambda, s.score_terms, us), gamma_n(s.score_terms, us)) / s.unit_roundoff;
 }
 
+double KernelBudget::fp8_score_conditioning(const CaseScore& s) const {
+  if (s.score_terms <= 0) return 0.0;
+  return 2.0 * gamma_n(s.score_terms + 2, std::ldexp(1.0, -score_bits)) / s.unit_roundoff;
+}
+
 double KernelBudget::p_floor(const CaseScore& s, std::size_t r) {
   // A none limit stays +inf; a finite one may not be relaxed by an infinite floor.
   return r < s.row_p_floor.size() && std::isfinite(s.row_p_floor[r]) ? s.row_p_floor[r] : 0.0;
@@ -141,8 +148,12 @@ double KernelBudget::p_floor(const CaseScore& s, std::size_t r) {
 
 double KernelBudget::row_scaled_error_limit(std::int64_t n, const CaseScore& s, std::size_t r) const {
   const double base = scaled_error_limit(n, s.format) + p_floor(s, r);
-  if (max_scaled_error.kind != Limit::Kind::probabilistic || r >= s.row_score_magnitude.size()) return base;
-  return base + score_conditioning(s, max_scaled_error.lambda) * s.row_score_magnitude[r];
+  if (r >= s.row_score_magnitude.size()) return base;
+  if (max_scaled_error.kind == Limit::Kind::probabilistic)
+    return base + score_conditioning(s, max_scaled_error.lambda) * s.row_score_magnitude[r];
+  if (max_scaled_error.kind == Limit::Kind::fixed && max_scaled_error.score_conditioned)
+    return base + fp8_score_conditioning(s) * s.row_score_magnitude[r];
+  return base;
 }
 
 double KernelBudget::rel_rmse_limit(std::int64_t n, const CaseScore& s) const {
@@ -216,9 +227,27 @@ KernelBudget default_budget(Format input) {
     // 2·u_P / 2^-24 = 2^21 (E4M3) or 2^22 (E5M2). The per-element figure is
     // the right one here (it holds under cancellation); the relative RMSE has
     // no default. Kernels that keep P in float32 should set tighter limits.
+    // Each row adds what forming its scores in float32 may cost (score
+    // conditioning; scores.h row_score_magnitude, docs/budget-format.md). The
+    // E4M3/E5M2 rounding of Q and K is not in it: the reference judges the
+    // received (decoded) values, so that rounding is the input's error, shown
+    // by the quantisation split. What the kernel adds: a score z_j =
+    // s·sq·sk·Σ_d c_qd·c_kjd (+ bias) from codes c; each code product is exact
+    // (4 + 4 ≤ 24 bits, 3 + 3 for E5M2), the float32 sum of Dk of them costs
+    // γ_{Dk−1}(u_s)·Σ_d |c_qd c_kjd|, and the products s·sq·sk·dot and the bias
+    // add four roundings: |δz_j| ≤ γ_{Dk+3}(u_s)·Z_r = γ_{m+2}(u_s)·Z_r with
+    // m = Dk + 1 (scores.h score_terms) and Z_r = max_j |s|·Σ_d|q_d||k_jd| +
+    // |bias_j| over the decoded values (Higham 2002, §3.1 and Lemma 3.3). An
+    // absolute error δ in every score moves each weight by a relative e^{±2δ}−1
+    // and the row by up to 2δ·Σ_j p_j|v_j| (score_magnitude.cpp), so the row's
+    // limit grows by 2·γ_{m+2}(u_s)·Z_r / u_F: worst-case γ, like the fixed
+    // 2·u_P it sits beside. It matters where Z_r is large: an outlier key of
+    // 5000 against N(0,1) queries at Dk = 128 gives Z ≈ 1300 and a term of
+    // 2·131·1300 ≈ 3.4e5 ≈ 2^18.4, a sixth of 2^21 (fp8_scales, outlier_tensor).
     case Format::e4m3:
     case Format::e5m2:
       b.max_scaled_error = fixed(input == Format::e4m3 ? 0x1p21 : 0x1p22, origin);
+      b.max_scaled_error.score_conditioned = true;
       b.max_rel_rmse = none(origin);
       break;
   }

@@ -113,7 +113,8 @@ Verdict judge(const CaseScore* score, const CaseFaults& faults, const KernelBudg
   }
   if (s.row_max_scaled.empty() ? s.max_scaled_error > worst_limit : worst_excess > 1.0) {
     std::string how = budget.max_scaled_error.describe(n, s.unit_roundoff);
-    if (worst_row < s.row_score_magnitude.size() && budget.max_scaled_error.kind == Limit::Kind::probabilistic)
+    if (worst_row < s.row_score_magnitude.size() && (budget.max_scaled_error.kind == Limit::Kind::probabilistic ||
+                                                     budget.max_scaled_error.score_conditioned))
       how += ", plus score conditioning at Z = " + number(s.row_score_magnitude[worst_row]) + ", u_s = 2^-" +
              std::to_string(budget.score_bits) + " (" + budget.score_bits_origin + ")";
     v.reasons.push_back(over_limit("max_scaled_error", worst_value, worst_limit, how, budget.max_scaled_error.origin,

@@ -8,6 +8,7 @@
 #include <limits>
 #include <nlohmann/json.hpp>
 #include <set>
+#include <utility>
 #include <vector>
 
 #include "headroom/case_folder.h"
@@ -157,6 +158,24 @@ void read_score_features(const json& root, const Reader& r, CoreProblem& p) {
   }
 }
 
+// Delayed 8-bit float scales (problem.h, CoreProblem::fp8_delayed):
+// "fp8_delayed_scales_hex": {"q": hex, "k": hex, "v": hex}, each optional, > 0.
+void read_delayed_scales(const json& root, const Reader& r, CoreProblem& p) {
+  auto it = root.find("fp8_delayed_scales_hex");
+  if (it == root.end()) return;
+  if (!it->is_object() || it->empty())
+    r.fail("fp8_delayed_scales_hex", Reader::type_problem("an object {\"q\": hex, \"k\": hex, \"v\": hex} with at least one entry", *it));
+  r.only_keys(*it, {"q", "k", "v"}, "fp8_delayed_scales_hex");
+  const std::pair<const char*, float*> fields[] = {{"q", &p.fp8_delayed.q}, {"k", &p.fp8_delayed.k}, {"v", &p.fp8_delayed.v}};
+  for (const auto& [key, out] : fields) {
+    auto e = it->find(key);
+    if (e == it->end()) continue;
+    const std::string field = std::string("fp8_delayed_scales_hex.") + key;
+    *out = read_hex_float32(*e, field, r);
+    if (!(*out > 0.0f)) r.fail(field, "a delayed scale must be > 0", "give a scale such as \"0x1p+0\" (1), or remove the entry");
+  }
+}
+
 // A packed variable-length batch (kernel_abi.h version 2, HR_FEATURE_VARLEN):
 // "varlen": {"q_lens": [...], "kv_lens": [...]}, one entry per sequence.
 void read_varlen(const json& root, const Reader& r, CoreProblem& p) {
@@ -239,7 +258,7 @@ Case parse_manifest(std::string_view text, const std::string& file) {
   const json root = parse_json(text, file);
   const Reader r(file);
   r.only_keys(root, {"headroom_case", "name", "level", "shape", "scale", "scale_hex", "softcap_hex", "sinks_hex",
-                     "varlen", "paged", "source_format", "mask", "provenance"},
+                     "fp8_delayed_scales_hex", "varlen", "paged", "source_format", "mask", "provenance"},
               "");
 
   const std::int64_t version = r.int_at(root, "headroom_case", "");
@@ -316,10 +335,11 @@ Case parse_manifest(std::string_view text, const std::string& file) {
     c.core.scale = scale;
     c.core.mask = std::move(mask);
     read_score_features(root, r, c.core);
+    read_delayed_scales(root, r, c.core);
     read_varlen(root, r, c.core);
     read_paged(root, r, c.core);
   } else {
-    for (const char* key : {"softcap_hex", "sinks_hex", "varlen", "paged"})
+    for (const char* key : {"softcap_hex", "sinks_hex", "fp8_delayed_scales_hex", "varlen", "paged"})
       if (root.contains(key)) r.fail(key, std::string(key) + " given for a block case", "remove it: only core cases soft-cap, sink, pack variable lengths or page K/V");
     c.block.shape = BlockShape{cs.batch, cs.q_len, cs.kv_len, extent("model_dim"), cs.q_heads, cs.kv_heads, cs.key_dim, cs.value_dim};
     c.block.scale = scale;
@@ -358,6 +378,13 @@ std::string format_manifest(const Case& c) {
     ordered sinks = ordered::array();
     for (float x : c.core.sinks) sinks.push_back(float_text(x, "%a"));
     j["sinks_hex"] = sinks;
+  }
+  if (core && c.core.fp8_delayed.any()) {
+    ordered delayed;
+    const std::pair<const char*, float> fields[] = {{"q", c.core.fp8_delayed.q}, {"k", c.core.fp8_delayed.k}, {"v", c.core.fp8_delayed.v}};
+    for (const auto& [key, value] : fields)
+      if (value != 0.0f) delayed[key] = float_text(value, "%a");
+    j["fp8_delayed_scales_hex"] = delayed;
   }
   if (core && mask.is_varlen())
     j["varlen"] = ordered{{"q_lens", lengths_of(mask.cu_q_lens)}, {"kv_lens", lengths_of(mask.cu_kv_lens)}};

@@ -1,4 +1,5 @@
-// headroom — quantising to 8-bit floats with amax scales per tensor, head, token, channel or block (quant.h).
+// headroom — quantising to 8-bit floats with amax scales per tensor, head, token, channel or block,
+// or with a delayed scale fixed beforehand (quant.h).
 //
 // The scale of a group is the smallest float32 s with M·s ≥ max|x| (M the
 // format's largest finite value), so x/s never exceeds M and no code
@@ -36,9 +37,10 @@ float amax_scale(double max_abs, double format_max) {
   throw std::logic_error("quantize_fp8: scale search did not converge");
 }
 
-}  // namespace
-
-QuantizedTensor quantize_fp8(const Tensor& x, QuantScheme scheme, Format format) {
+// Both rules: `delayed` = 0 gives each group its amax scale and converts
+// without saturation (nothing can overflow); `delayed` > 0 fixes every scale
+// and converts with `saturating`.
+QuantizedTensor quantize_fp8_with(const Tensor& x, QuantScheme scheme, Format format, float delayed, bool saturating) {
   if (!is_fp8(format)) {
     throw std::invalid_argument("quantize_fp8: " + std::string(format_name(format)) + " is not an 8-bit float format");
   }
@@ -71,7 +73,7 @@ QuantizedTensor quantize_fp8(const Tensor& x, QuantScheme scheme, Format format)
           m = std::fmax(m, std::fabs(v));
         }
   q.scales.resize(groups);
-  for (std::size_t g = 0; g < groups; ++g) q.scales[g] = amax_scale(amax[g], fp8_max(kind));
+  for (std::size_t g = 0; g < groups; ++g) q.scales[g] = delayed > 0.0f ? delayed : amax_scale(amax[g], fp8_max(kind));
 
   q.codes.resize(static_cast<std::size_t>(x.size()));
   for (std::int64_t b = 0; b < nb; ++b)
@@ -79,13 +81,27 @@ QuantizedTensor quantize_fp8(const Tensor& x, QuantScheme scheme, Format format)
       for (std::int64_t t = 0; t < nt; ++t)
         for (std::int64_t d = 0; d < nd; ++d) {
           const double s = q.scales[static_cast<std::size_t>(q.group(b, h, t, d))];
-          // |x/s| ≤ M by the scale's choice, so the non-saturating conversion
-          // cannot overflow; a non-finite code here would be a bug, reported.
-          const std::uint8_t c = double_to_fp8(x.at(b, h, t, d) / s, kind, /*saturating=*/false);
-          if (!std::isfinite(fp8_to_double(c, kind))) throw std::logic_error("quantize_fp8: a code overflowed");
+          // Amax scales: |x/s| ≤ M by the scale's choice, so the
+          // non-saturating conversion cannot overflow; a non-finite code
+          // there would be a bug, reported. Delayed scales: x/s may pass M.
+          const std::uint8_t c = double_to_fp8(x.at(b, h, t, d) / s, kind, saturating);
+          if (delayed == 0.0f && !std::isfinite(fp8_to_double(c, kind))) throw std::logic_error("quantize_fp8: a code overflowed");
           q.codes[static_cast<std::size_t>(x.offset(b, h, t, d))] = static_cast<std::int8_t>(c);
         }
   return q;
+}
+
+}  // namespace
+
+QuantizedTensor quantize_fp8(const Tensor& x, QuantScheme scheme, Format format) {
+  return quantize_fp8_with(x, scheme, format, 0.0f, false);
+}
+
+QuantizedTensor quantize_fp8_delayed(const Tensor& x, QuantScheme scheme, Format format, float delayed, bool saturating) {
+  if (!(delayed > 0.0f) || std::isinf(delayed)) {
+    throw std::invalid_argument("quantize_fp8_delayed: the delayed scale " + std::to_string(delayed) + " is not finite and > 0");
+  }
+  return quantize_fp8_with(x, scheme, format, delayed, saturating);
 }
 
 }  // namespace headroom

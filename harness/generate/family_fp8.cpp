@@ -1,7 +1,8 @@
 // headroom — the 8-bit float family: fp8_scales. Documented in families.h.
 //
-// Five kinds (knob 0), each aimed at one way 8-bit float inputs with amax
-// scales (quant.h, quantize_fp8) or 8-bit probabilities go wrong. Limits from
+// Six kinds (knob 0), each aimed at one way 8-bit float inputs with amax or
+// delayed scales (quant.h, quantize_fp8, quantize_fp8_delayed) or 8-bit
+// probabilities go wrong. Limits from
 // the OCP 8-bit Floating Point Specification rev 1.0 (fp8.h): E4M3 largest
 // finite 448, smallest normal 2^-6, smallest subnormal 2^-9; E5M2 57344.
 #include <algorithm>
@@ -12,7 +13,19 @@
 namespace headroom::generate_internal {
 namespace {
 
-enum Kind { kSaturation = 0, kOutlierTensor = 1, kBlockSpike = 2, kSubnormalBlock = 3, kSmallWeights = 4 };
+enum Kind { kSaturation = 0, kOutlierTensor = 1, kBlockSpike = 2, kSubnormalBlock = 3, kSmallWeights = 4, kDelayedScale = 5 };
+
+// kDelayedScale: K's and V's delayed scale 2^-5 (an earlier step's amax of
+// 14 = 448·2^-5, a few × the N(0,1) entries), the first token of each
+// (batch, kv head) far beyond it, so its codes saturate to ±448 (E4M3; ±57344·2^-5 = ±1792 is
+// in range for E5M2, whose edges kSaturation reaches).
+constexpr float kDelayedScaleKV = 0x1p-5f;
+constexpr double kDelayedSpike = 1000.0;
+// The query channel aligned with the spike: the clipped key still leads every
+// other score by about 16·14·s − (a few σ), s = 1/√Dk, σ ≈ s·√(16² + Dk):
+// ≥ 14 − 4 at Dk = 256, more at smaller Dk, so the spike holds more than
+// 1 − 128·e^-9 ≈ 98% of each row (Tk ≤ 129 here), past 464/480 ≈ 96.7%.
+constexpr double kDelayedQueryChannel = 16.0;
 
 // The E4M3 and E5M2 maxima, the ties just above them (464 rounds to 448,
 // 61440 overflows E5M2), and a step past each.
@@ -20,12 +33,13 @@ constexpr double kEdges[] = {448.0, 464.0, 465.0, 480.0, 57344.0, 61440.0, 61441
 
 void fp8_sample(Draw& d, int size, Recipe& r) {
   r.shape = sample_core_shape(d, size);
-  r.knobs[0] = d.uniform_int(0, 4);
+  r.knobs[0] = d.uniform_int(0, 5);
   r.knobs[1] = d.uniform_int(0, 1);
   // Block kinds need keys in more than one 64-token block; small weights need
   // many keys. Few queries keep the exact reference quick.
   if (r.knobs[0] == kBlockSpike || r.knobs[0] == kSubnormalBlock) r.shape.kv_len = d.uniform(65, 129);
   if (r.knobs[0] == kSmallWeights) r.shape.kv_len = d.uniform(100, 129);
+  if (r.knobs[0] == kDelayedScale) r.shape.kv_len = std::min<std::int64_t>(r.shape.kv_len, 129);
   if (r.shape.kv_len > 64) r.shape.q_len = std::min<std::int64_t>(r.shape.q_len, 8);
 }
 
@@ -36,7 +50,12 @@ void fp8_realize(const Recipe& r, Case& c) {
   c.core_inputs = gaussian_inputs(r, 1.0);
   CoreInputs& in = c.core_inputs;
   switch (r.knobs[0]) {
-    case kSaturation:  // V entries on the formats' overflow edges, both signs
+    case kSaturation:
+      // V entries on the formats' overflow edges, both signs. V's delayed
+      // scale 1 hands them to the conversion as they are (an amax scale would
+      // map the largest to M whatever it is), so 464 ties to 448, 465 and
+      // 480 saturate in E4M3, and 61440 and 61441 saturate in E5M2.
+      c.core.fp8_delayed.v = 1.0f;
       for (std::int64_t b = 0; b < s.batch; ++b)
         for (std::int64_t g = 0; g < s.kv_heads; ++g)
           for (std::int64_t j = 0; j < s.kv_len; ++j) {
@@ -108,6 +127,22 @@ void fp8_realize(const Recipe& r, Case& c) {
             if (j == 0)
               for (std::int64_t d = 0; d < s.value_dim; ++d) in.v.at(b, g, j, d) = to_float32(in.v.at(b, g, j, d) * 1e-3);
           }
+      break;
+    }
+    case kDelayedScale: {
+      c.core.fp8_delayed.k = kDelayedScaleKV;
+      c.core.fp8_delayed.v = kDelayedScaleKV;
+      const std::int64_t ch = n.index(s.key_dim, Stream::plan, -2);
+      for (std::int64_t b = 0; b < s.batch; ++b)
+        for (std::int64_t h = 0; h < s.q_heads; ++h)
+          for (std::int64_t i = 0; i < s.q_len; ++i) in.q.at(b, h, i, ch) = kDelayedQueryChannel;
+      for (std::int64_t b = 0; b < s.batch; ++b)
+        for (std::int64_t g = 0; g < s.kv_heads; ++g) {
+          const std::int64_t j = 0;  // the first key: visible to every row under causal masks and key padding
+          in.k.at(b, g, j, ch) = kDelayedSpike;
+          const double sign = (n.bits(Stream::plan, b, g, 11) & 1) ? -1.0 : 1.0;
+          in.v.at(b, g, j, n.index(s.value_dim, Stream::plan, b, g, 12)) = sign * kDelayedSpike;
+        }
       break;
     }
     default: break;

@@ -291,6 +291,10 @@ void check_score_features(const CoreProblem& p, Findings& f) {
           std::to_string(p.sinks.size()) + " entries");
   for (std::size_t h = 0; h < p.sinks.size(); ++h)
     if (!std::isfinite(p.sinks[h])) f.add("sinks[" + std::to_string(h) + "]", "a finite logit", std::to_string(p.sinks[h]));
+  const std::pair<const char*, float> delayed[] = {{"fp8_delayed.q", p.fp8_delayed.q}, {"fp8_delayed.k", p.fp8_delayed.k},
+                                                   {"fp8_delayed.v", p.fp8_delayed.v}};
+  for (const auto& [field, s] : delayed)
+    if (!(s >= 0.0f) || std::isinf(s)) f.add(field, "0 (the fresh amax scale) or a finite scale > 0", std::to_string(s));
 }
 
 }  // namespace

@@ -66,6 +66,10 @@ struct Limit {
   double lambda = 0;        ///< probabilistic: λ > 0
   int working_bits = 0;     ///< probabilistic: u_w = 2^-working_bits; 0 = the output format's p
   bool ceiling = true;      ///< probabilistic: cap at γ_n(u_w)
+  /// fixed max_scaled_error: each row's limit adds the worst-case score
+  /// conditioning 2·γ_{m+2}(u_s)·Z_r / u_F (KernelBudget::row_scaled_error_limit;
+  /// set by the 8-bit float defaults, whose scores carry two scale roundings more).
+  bool score_conditioned = false;
   std::string origin;       ///< where it was set: "default for float32", "budget.toml line 12"
 
   /// Returns: the limit for a case of accumulation length n, output unit
@@ -97,7 +101,8 @@ struct KernelBudget {
   double scaled_error_limit(std::int64_t n, Format output_format) const;
   /// Returns: the scaled-error limit of output row r: scaled_error_limit(n, F)
   /// plus p_floor(s, r), plus, for a probabilistic max_scaled_error,
-  /// score_conditioning(s, λ)·Z_r (Z_r = s.row_score_magnitude[r], 0 when not filled).
+  /// score_conditioning(s, λ)·Z_r (Z_r = s.row_score_magnitude[r], 0 when not
+  /// filled), or for a fixed one marked score_conditioned, fp8_score_conditioning(s)·Z_r.
   double row_scaled_error_limit(std::int64_t n, const CaseScore& s, std::size_t r) const;
   /// Returns: s.row_p_floor[r], what the underflow of P rounded to 8 bits may
   /// cost in row r (scores.h, condition_on_p_rounding); 0 when not filled.
@@ -105,6 +110,10 @@ struct KernelBudget {
   /// Returns: 2·min(γ̃_m(λ, u_s), γ_m(u_s)) / u_F, m = s.score_terms: the scaled
   /// error per unit of score magnitude that forming the scores may cost.
   double score_conditioning(const CaseScore& s, double lambda) const;
+  /// Returns: 2·γ_{m+2}(u_s) / u_F, m = s.score_terms: the worst-case scaled
+  /// error per unit of score magnitude for a kernel forming each score from
+  /// 8-bit codes as s·sq·sk·(codes dot product) (defaults.cpp).
+  double fp8_score_conditioning(const CaseScore& s) const;
   /// Returns: the max_rel_rmse limit: fixed as given; probabilistic
   /// relative_at(n, u_F) · κ with κ = RMS(Σp|v|)/RMS(o*) ≥ 1 the case's
   /// cancellation factor (+inf when RMS(o*) = 0), so that on cancelling rows the

@@ -141,14 +141,17 @@ inline constexpr FamilyInfo kFamilies[] = {
      "Qiu & Yao 2025, on low-precision flash attention failing with repeated row maxima under "
      "bfloat16 (from memory)",
      Level::core},
-    {"fp8_scales", "8-bit float scale hazards: values at 448/57344, outliers, block spikes, subnormal blocks, small P",
-     "Five kinds (knob 0), Q, K, V otherwise N(0,1). saturation: a quarter of the V rows carry one entry "
+    {"fp8_scales", "8-bit float scale hazards: values at 448/57344, delayed scales, outliers, block spikes, subnormal blocks, small P",
+     "Six kinds (knob 0), Q, K, V otherwise N(0,1). saturation: a quarter of the V rows carry one entry "
      "among ±448, 464, 465, 480, 57344, 61440, 61441 (the E4M3 and E5M2 maxima, the ties above them and "
-     "a step past). outlier_tensor: one K and one V entry per kv head 10^3 or 10^4 times typical, which "
+     "a step past), and V's delayed scale is 1, so they reach the conversion as they are and saturate. "
+     "delayed_scale: K's and V's delayed scale 2^-5 (an earlier amax of 14), the first key of each kv head with "
+     "K 1000 in a channel where every query holds 16 and one V entry ±1000: its codes saturate to ±448 "
+     "(E4M3) and the clipped key still holds over 96.7% of each row (Tk ≤ 129). outlier_tensor: one K and one V entry per kv head 10^3 or 10^4 times typical, which "
      "sets a per-tensor scale and pushes the other entries towards E4M3's subnormals. block_spike: "
      "Tk 65-129, one token of a later 64-token block holds K 300 and V 1000 in one channel, so that "
      "block's scale is 100s of times its neighbours' (a kernel using the wrong block's scale is far off). "
-     "subnormal_block: Tk 65-129, the first block (up to 64 keys) of K and V is 2^-10 of typical, E4M3 "
+     "subnormal_block: Tk 65-129, the first block (up to 64 keys) of K and V is 2^-13 or 2^-15 of typical, E4M3 "
      "subnormals under one per-tensor scale, normal under per-block scales. small_weights: Tk 100-129, "
      "key 0 leads every score by 7 to 7.5 with a value 10^-3 of typical, so the other keys' weights "
      "(≈ e^-7 each, below 2^-10 where E4M3 without a P scale flushes to zero) carry most of the output.",

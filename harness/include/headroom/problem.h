@@ -96,6 +96,16 @@ struct CoreProblem {
   /// inputs live in these pages for the kernel; mask.kv_lens holds the
   /// sequence lengths. Inactive (page_size 0) otherwise.
   PagedKv paged{};
+  /// Delayed 8-bit float scales (quant.h, quantize_fp8): one float32 scale
+  /// each for Q, K and V fixed by an earlier step's amax, as training stacks
+  /// with delayed scaling use, in place of the amax of these values; 0 = the
+  /// fresh amax scale. A value beyond M·s (M = 448 E4M3, 57344 E5M2) reaches
+  /// the conversion and saturates to ±M, so only kernels declaring saturating
+  /// conversions are given such a case (why_unfit). Read by E4M3/E5M2 kernels only.
+  struct DelayedScales {
+    float q = 0.0f, k = 0.0f, v = 0.0f;
+    bool any() const { return q != 0.0f || k != 0.0f || v != 0.0f; }
+  } fp8_delayed{};
 
   /// Returns: whether the problem soft-caps its scores.
   bool has_softcap() const { return softcap != 0.0f; }

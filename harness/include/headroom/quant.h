@@ -99,6 +99,18 @@ QuantizedTensor quantize(const Tensor& x, QuantScheme scheme);
 /// without a block size, or a scale leaves float32's range.
 QuantizedTensor quantize_fp8(const Tensor& x, QuantScheme scheme, Format format);
 
+/// Returns: `x` as quantize_fp8 does, but with every group's scale `delayed`
+/// (a float32 > 0 fixed beforehand, as delayed scaling takes it from an
+/// earlier step's amax: Micikevicius et al. 2022 §4.3 and NVIDIA Transformer
+/// Engine's DelayedScaling recipe, from memory) instead of its amax scale, and
+/// codes converted with `saturating` (fp8.h): an element with |x/s| beyond the
+/// format's largest finite M becomes ±M when saturating, and NaN (E4M3) or
+/// ±infinity (E5M2) otherwise.
+/// Such non-finite codes are kept (dequantize refuses them).
+/// Throws std::invalid_argument as quantize_fp8 does, and for a delayed scale
+/// that is not finite and > 0.
+QuantizedTensor quantize_fp8_delayed(const Tensor& x, QuantScheme scheme, Format format, float delayed, bool saturating);
+
 /// Returns: the exact dequantised values (c − z) · s, or decode(c) · s for
 /// e4m3/e5m2 codes (|c − z| ≤ 255, a decoded 8-bit float has ≤ 4 significant
 /// bits, and s has 24 bits, so each is exact in double). Throws

@@ -203,13 +203,13 @@ QuantSplit split_quantisation(const Tensor& out, const BlockReference& of_receiv
 /// Preconditions: validate(p, in) is empty.
 /// Fills s.row_p_floor for a kernel rounding the probabilities to `p_format`
 /// (e4m3 or e5m2) after multiplying by `p_scale`. Rounding to nearest moves a
-/// weight w by at most max(u_P·w, η/p_scale), η half the format's smallest
-/// subnormal (2^-10 E4M3, 2^-17 E5M2; OFP8 rev 1.0): the relative part is in
-/// the default budget (2·u_P, defaults.cpp); the absolute part, summed over
-/// the visible keys, moves element d of row r by at most
-/// (η/p_scale)·(Σ_j |v_jd| + n_r·Σ_j p_j|v_jd|), the second term for a kernel
-/// normalising by the sum of the rounded weights (n_r visible keys, each off by
-/// η/p_scale relative to a normaliser ≥ 1). row_p_floor[r] is the largest over
+/// weight p_j by at most u_P·p_j when p_j·p_scale is normal (≥ 2^-6 E4M3,
+/// 2^-14 E5M2), in the default budget (2·u_P, defaults.cpp), and by at most
+/// a_j = min(η/p_scale, p_j) below that, η half the format's smallest
+/// subnormal (2^-10 E4M3, 2^-17 E5M2; OFP8 rev 1.0; derivation in
+/// p_rounding.cpp). Element d of row r then moves by at most
+/// Σ_j a_j|v_jd| + (Σ_j a_j)·Σ_j p_j|v_jd|, the second term for a kernel
+/// normalising by the sum of the rounded weights. row_p_floor[r] is the largest over
 /// d of that bound in units of u_F·Σ_j p_j|v_jd| (scores.h), computed in double
 /// from the values the kernel received (a budget coordinate, relative error
 /// ≤ 2^-50; elements whose Σ_j p_j|v_jd| is 0 are left out: their exact value
