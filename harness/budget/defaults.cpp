@@ -241,9 +241,10 @@ KernelBudget default_budget(Format input) {
     // absolute error δ in every score moves each weight by a relative e^{±2δ}−1
     // and the row by up to 2δ·Σ_j p_j|v_j| (score_magnitude.cpp), so the row's
     // limit grows by 2·γ_{m+2}(u_s)·Z_r / u_F: worst-case γ, like the fixed
-    // 2·u_P it sits beside. It matters where Z_r is large: an outlier key of
-    // 5000 against N(0,1) queries at Dk = 128 gives Z ≈ 1300 and a term of
-    // 2·131·1300 ≈ 3.4e5 ≈ 2^18.4, a sixth of 2^21 (fp8_scales, outlier_tensor).
+    // 2·u_P it sits beside. It matters where Z_r is large: a key entry of
+    // 5000 (fp8_scales, outlier_tensor) met by a query entry of 3 at Dk = 128
+    // gives Z ≈ 5000·3/√128 ≈ 1300 and a term of 2·131·1300 ≈ 3.4e5 ≈ 2^18.4,
+    // a sixth of 2^21 (computed from the formula, not measured).
     case Format::e4m3:
     case Format::e5m2:
       b.max_scaled_error = fixed(input == Format::e4m3 ? 0x1p21 : 0x1p22, origin);
