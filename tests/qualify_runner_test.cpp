@@ -5,12 +5,17 @@
 #include <unistd.h>
 
 #include <filesystem>
+#include <map>
+#include <memory>
 #include <string>
 #include <vector>
 
+#include "headroom/bundled_registry.h"
 #include "headroom/case_folder.h"
 #include "headroom/generate.h"
+#include "headroom/judge.h"
 #include "headroom/qualify.h"
+#include "headroom/record.h"
 
 namespace headroom {
 namespace {
@@ -89,6 +94,84 @@ TEST(Runner, AFolderIsReadWhenItsTurnComesNotWhenPlanned) {
   ASSERT_EQ(r.skipped.size(), 1u);
   EXPECT_EQ(r.skipped[0].rfind(p.case_name() + ": ", 0), 0u) << "named as planned: " << r.skipped[0];
   EXPECT_EQ(k.seen_q, later.core_inputs.q.values);
+  std::filesystem::remove_all(dir);
+}
+
+AttachedKernel& bundled(const std::string& name) {
+  static std::map<std::string, std::unique_ptr<AttachedKernel>> cache;
+  auto& k = cache[name];
+  if (!k) k = attach_in_process(find_bundled(name)->kernel);
+  return *k;
+}
+
+Case small_case(const std::string& family, std::uint64_t seed, Level level) {
+  CaseRequest req;
+  req.family = family;
+  req.seed = seed;
+  req.size = 12;
+  req.level = level;
+  return make_case(req);
+}
+
+// judge_case may take a case's tensors (the runner hands it every case it
+// makes or reads, so a production case is held once): the record must be the
+// one a copied case gives, bit for bit, whatever the kernel's formats (taken
+// when the kernel receives the source values unrounded; copied when the
+// input-quantisation split needs them again).
+TEST(Runner, TakingACaseChangesNoFigure) {
+  struct Trial {
+    const char* kernel;
+    Level level;
+    bool taken;
+  };
+  const Trial trials[] = {{"f32_tiled_16", Level::core, true},
+                          {"f16_f32acc", Level::core, false},
+                          {"i8_tokenwise", Level::core, false},
+                          {"f32_backward_tiled", Level::core, true},
+                          {"block_f32", Level::block, true}};
+  JudgeOptions opt;
+  opt.detect.run.isolate = false;
+  for (const Trial& t : trials) {
+    AttachedKernel& k = bundled(t.kernel);
+    for (const char* family : {"gaussian", "large_logits", "outlier_channels"}) {
+      for (std::uint64_t seed : {1u, 2u}) {
+        const Case c = small_case(t.level == Level::block ? "block_gaussian" : family, seed, t.level);
+        const Judgement copied = judge_case(k, c, opt, "r");
+        Case handed = c;
+        const Judgement taken = judge_case(k, std::move(handed), opt, "r");
+        EXPECT_EQ(to_json(copied.record).dump(), to_json(taken.record).dump()) << t.kernel << " " << c.name;
+        EXPECT_EQ(copied.unfit.has_value(), taken.unfit.has_value()) << t.kernel << " " << c.name;
+        const bool emptied = t.level == Level::core ? handed.core_inputs.k.values.empty()
+                                                    : handed.block_inputs.w_o.values.empty();
+        if (!copied.unfit) EXPECT_EQ(emptied, t.taken) << t.kernel << " " << c.name;
+        EXPECT_EQ(handed.name, c.name);
+      }
+    }
+  }
+}
+
+// The runner hands its case to judge_case; a failure saved afterwards must
+// still hold the whole case (made again), tensors and all.
+TEST(Runner, ASavedFailureHoldsTheWholeCase) {
+  CaseRequest req;
+  req.family = "large_logits";
+  req.seed = 3;
+  req.size = 12;
+  req.level = Level::core;
+  const auto dir = std::filesystem::temp_directory_path() / ("headroom_runner_saved_" + std::to_string(getpid()));
+  std::filesystem::remove_all(dir);
+  RunnerOptions opt;
+  opt.judge.detect.run.isolate = false;
+  opt.apply_budget = budget_applier(default_budget(Format::float32));
+  opt.save_failures = dir;
+  const RunRecord r = run_cases(bundled("no_max_shift"), {planned(req)}, opt);
+  ASSERT_EQ(r.cases.size(), 1u);
+  ASSERT_FALSE(r.cases[0].within_budget) << "no_max_shift must fail on large logits";
+  const Case made = make_case(req);
+  const Case saved = read_case(dir / case_folder_name(made.name));
+  EXPECT_TRUE(bit_identical(saved.core_inputs.q, made.core_inputs.q));
+  EXPECT_TRUE(bit_identical(saved.core_inputs.k, made.core_inputs.k));
+  EXPECT_TRUE(bit_identical(saved.core_inputs.v, made.core_inputs.v));
   std::filesystem::remove_all(dir);
 }
 

@@ -28,9 +28,14 @@ double received_value(double x, Format f) {
   throw std::logic_error("received_value: int8 and 8-bit floats are quantised with scales, not rounded per value");
 }
 
+void round_in_place(Tensor& t, Format f) {
+  if (f == Format::float64) return;
+  for (double& v : t.values) v = received_value(v, f);
+}
+
 Tensor rounded(const Tensor& t, Format f) {
   Tensor out = t;
-  for (double& v : out.values) v = received_value(v, f);
+  round_in_place(out, f);
   return out;
 }
 
@@ -135,50 +140,51 @@ std::optional<std::string> why_unfit(const Case& c, const KernelDeclaration& d) 
   return std::nullopt;
 }
 
-ReceivedCase receive(const Case& c, const KernelDeclaration& d) {
-  const std::vector<ProblemError> errors =
-      c.level == Level::core ? validate(c.core, c.core_inputs) : validate(c.block, c.block_inputs);
+ReceivedCase receive(const Case& c, const KernelDeclaration& d) { return receive(Case(c), d); }
+
+// The source case is moved in and each tensor rounded where it lies, so the
+// case is held once (not source, copy and rounded copy side by side).
+ReceivedCase receive(Case&& source, const KernelDeclaration& d) {
+  const std::vector<ProblemError> errors = source.level == Level::core ? validate(source.core, source.core_inputs)
+                                                                       : validate(source.block, source.block_inputs);
   if (!errors.empty()) {
-    throw InputError(c.name, "problem", "the case is inconsistent: " + problems_text(errors),
+    throw InputError(source.name, "problem", "the case is inconsistent: " + problems_text(errors),
                      "regenerate the case or correct its manifest and tensors");
   }
-  if (auto reason = why_unfit(c, d)) {
-    throw InputError(c.name, "kernel declaration", *reason,
+  if (auto reason = why_unfit(source, d)) {
+    throw InputError(source.name, "kernel declaration", *reason,
                      "choose a kernel that declares this case, or skip the case (why_unfit)");
   }
   ReceivedCase r;
-  r.received = c;
+  r.received = std::move(source);
+  Case& c = r.received;
   r.input_format = d.input_format;
   if (c.level == Level::core) {
-    r.received.core.mask = received_mask(c.core.mask);
+    c.core.mask = received_mask(c.core.mask);
     if (is_quantised(d.input_format)) {
       const CoreProblem::DelayedScales& ds = c.core.fp8_delayed;
       r.q8 = quantized(c, c.core_inputs.q, d.q_quant, d, ds.q, "q");
+      c.core_inputs.q = dequantize(*r.q8);
       r.k8 = quantized(c, c.core_inputs.k, d.k_quant, d, ds.k, "k");
+      c.core_inputs.k = dequantize(*r.k8);
       r.v8 = quantized(c, c.core_inputs.v, d.v_quant, d, ds.v, "v");
-      r.received.core_inputs.q = dequantize(*r.q8);
-      r.received.core_inputs.k = dequantize(*r.k8);
-      r.received.core_inputs.v = dequantize(*r.v8);
+      c.core_inputs.v = dequantize(*r.v8);
     } else {
-      r.received.core_inputs.q = rounded(c.core_inputs.q, d.input_format);
-      r.received.core_inputs.k = rounded(c.core_inputs.k, d.input_format);
-      r.received.core_inputs.v = rounded(c.core_inputs.v, d.input_format);
+      for (Tensor* t : {&c.core_inputs.q, &c.core_inputs.k, &c.core_inputs.v}) round_in_place(*t, d.input_format);
     }
     // dO, when the case carries one, in the input format like Q, K, V (int8
     // kernels, which have no backward, keep it float32).
     if (!c.d_o.values.empty())
-      r.received.d_o = rounded(c.d_o, d.input_format == Format::int8 ? Format::float32 : d.input_format);
+      round_in_place(c.d_o, d.input_format == Format::int8 ? Format::float32 : d.input_format);
   } else {
-    r.received.block.mask = received_mask(c.block.mask);
-    BlockInputs& in = r.received.block_inputs;
-    for (Tensor* t : {&in.x_q, &in.x_kv, &in.w_q, &in.w_k, &in.w_v, &in.w_o, &in.b_q, &in.b_k, &in.b_v, &in.b_o}) {
-      *t = rounded(*t, d.input_format);
-    }
+    c.block.mask = received_mask(c.block.mask);
+    BlockInputs& in = c.block_inputs;
+    for (Tensor* t : {&in.x_q, &in.x_kv, &in.w_q, &in.w_k, &in.w_v, &in.w_o, &in.b_q, &in.b_k, &in.b_v, &in.b_o})
+      round_in_place(*t, d.input_format);
   }
   // Rounding a bias to float32 can carry a huge finite value to +inf: say so
   // here rather than hand the kernel a problem the model does not define.
-  const std::vector<ProblemError> after = c.level == Level::core ? validate(r.received.core)
-                                                                 : validate(r.received.block);
+  const std::vector<ProblemError> after = c.level == Level::core ? validate(c.core) : validate(c.block);
   if (!after.empty()) {
     throw InputError(c.name, "mask", "after rounding to the kernel's formats: " + problems_text(after),
                      "keep bias values within float32 range");

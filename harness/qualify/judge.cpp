@@ -4,6 +4,7 @@
 #include <algorithm>
 #include <cmath>
 #include <limits>
+#include <utility>
 
 #include "headroom/bundled_registry.h"
 #include "headroom/judge_backward.h"
@@ -190,7 +191,23 @@ double logit_scale(const Case& c) {
   return worst;
 }
 
-Judgement judge_case(AttachedKernel& k, const Case& c, const JudgeOptions& opt, const std::string& replay) {
+namespace {
+
+// The case a kernel of declaration `d` is handed before rounding: `c` with
+// its upstream gradient (with_upstream_gradient), Q, K, V and the block
+// inputs moved out of `c` rather than copied (left empty there).
+Case taken_for_receive(Case& c, const KernelDeclaration& d) {
+  CoreInputs core = std::exchange(c.core_inputs, CoreInputs{});
+  BlockInputs block = std::exchange(c.block_inputs, BlockInputs{});
+  Case out = with_upstream_gradient(c, d);
+  out.core_inputs = std::move(core);
+  out.block_inputs = std::move(block);
+  return out;
+}
+
+// `owned`: the same case as `c` when the caller hands it over; its inputs are
+// then taken rather than copied where the source values are not needed again.
+Judgement judge(AttachedKernel& k, const Case& c, Case* owned, const JudgeOptions& opt, const std::string& replay) {
   const KernelDeclaration& d = k.declaration();
   Judgement j;
   CaseRecord& rec = j.record;
@@ -211,7 +228,11 @@ Judgement judge_case(AttachedKernel& k, const Case& c, const JudgeOptions& opt, 
     return j;
   }
   // A backward kernel is given dO: the case's own, else the generated one.
-  const ReceivedCase rc = receive(with_upstream_gradient(c, d), d);
+  // The source values are needed again only for the input-quantisation split.
+  const bool rounded = d.input_format != c.source_format && d.input_format != Format::float64;
+  const bool split = opt.quantisation_split && rounded;
+  const ReceivedCase rc =
+      owned != nullptr && !split ? receive(taken_for_receive(*owned, d), d) : receive(with_upstream_gradient(c, d), d);
   if (const auto bad = first_non_finite_input(rc.received); !bad.empty()) {
     j.unfit = bad + " overflows " + std::string(format_name(d.input_format)) + " when rounded";
     return j;
@@ -269,8 +290,7 @@ Judgement judge_case(AttachedKernel& k, const Case& c, const JudgeOptions& opt, 
   record_faults(rec, j.faults);
 
   // What rounding or quantising the inputs cost, apart from the kernel's arithmetic.
-  const bool rounded = d.input_format != c.source_format && d.input_format != Format::float64;
-  if (opt.quantisation_split && rounded) {
+  if (split) {
     const AnyReference src = reference_of(c, detect.reference);
     const QuantSplit split = ref.core ? split_quantisation(first.out, nullptr, *ref.core, *src.core, d.output_format)
                                       : split_quantisation(first.out, *ref.block, *src.block, d.output_format);
@@ -299,6 +319,16 @@ Judgement judge_case(AttachedKernel& k, const Case& c, const JudgeOptions& opt, 
     }
   }
   return j;
+}
+
+}  // namespace
+
+Judgement judge_case(AttachedKernel& k, const Case& c, const JudgeOptions& opt, const std::string& replay) {
+  return judge(k, c, nullptr, opt, replay);
+}
+
+Judgement judge_case(AttachedKernel& k, Case&& c, const JudgeOptions& opt, const std::string& replay) {
+  return judge(k, c, &c, opt, replay);
 }
 
 }  // namespace headroom

@@ -2,6 +2,8 @@
 #include <algorithm>
 #include <cctype>
 #include <cstdlib>
+#include <optional>
+#include <utility>
 
 #include "headroom/case_folder.h"
 #include "headroom/input_error.h"
@@ -139,17 +141,23 @@ RunRecord run_cases(AttachedKernel& k, const std::vector<PlannedCase>& cases, co
       }
     }
     // A planned case is made or read now, and freed when the next one is.
-    std::optional<Case> made;
-    if (p->c.name.empty() && p->request) made = make_case(*p->request);
-    if (p->c.name.empty() && !p->request && !p->folder.empty()) {
-      made = read_case(p->folder);
-      made->name = p->name;  // a corpus's duplicate names were made unique when planned
-    }
+    // A made or read case is handed to judge_case, which may take its input
+    // tensors (held once); saving a failure makes or reads it again.
+    const auto make = [p] {
+      std::optional<Case> c;
+      if (p->c.name.empty() && p->request) c = make_case(*p->request);
+      if (p->c.name.empty() && !p->request && !p->folder.empty()) {
+        c = read_case(p->folder);
+        c->name = p->name;  // a corpus's duplicate names were made unique when planned
+      }
+      return c;
+    };
+    std::optional<Case> made = make();
     const Case& c = made ? *made : p->c;
     const std::string replay = p->request
                                    ? make_and_replay_command(opt, d.name, *p->request, "case-" + case_folder_name(c.name))
                                    : replay_command(opt, d.name, p->folder.string());
-    Judgement j = judge_case(k, c, opt.judge, replay);
+    Judgement j = made ? judge_case(k, std::move(*made), opt.judge, replay) : judge_case(k, c, opt.judge, replay);
     if (p->request) j.record.size = p->request->size;
     if (j.unfit) {
       const std::string line = c.name + ": " + *j.unfit;
@@ -162,6 +170,7 @@ RunRecord run_cases(AttachedKernel& k, const std::vector<PlannedCase>& cases, co
     if (!j.record.within_budget && !opt.save_failures.empty()) {
       const auto folder = opt.save_failures / case_folder_name(c.name);
       std::filesystem::create_directories(opt.save_failures);
+      if (made) made = make();  // its tensors went to judge_case
       write_case(c, folder);
       j.record.replay = replay_command(opt, d.name, folder.string());
     }

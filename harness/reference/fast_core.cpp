@@ -90,10 +90,15 @@ FastCore::FastCore(const CoreProblem& p, const CoreInputs& in, const ReferenceOp
   score_floor_ = mul_up(3 * dk, 0x1p-1074);  // ≥ 3·Dk·2^-1075
   const std::int64_t heads = s.batch * s.kv_heads;
   kt_.assign(static_cast<std::size_t>(heads * blocks_ * s.key_dim * kLanes), 0.0);
-  vp_.assign(static_cast<std::size_t>(heads * s.kv_len * dv_pad_), 0.0);
+  // V rows already a whole number of lanes long are read where they lie (the
+  // layout [B, Hkv, Tk, Dv] is the padded one): no copy of V is held.
+  const bool v_in_place = dv_pad_ == s.value_dim;
+  if (!v_in_place) vp_.assign(static_cast<std::size_t>(heads * s.kv_len * dv_pad_), 0.0);
+  vp_at_ = v_in_place ? in.v.values.data() : vp_.data();
   if (wide_ != nullptr) {
     kt_lo_.assign(kt_.size(), 0.0);
-    vp_lo_.assign(vp_.size(), 0.0);
+    if (!v_in_place) vp_lo_.assign(vp_.size(), 0.0);
+    vp_lo_at_ = v_in_place ? wide_->v_lo.values.data() : vp_lo_.data();
   }
   k_norm_.assign(static_cast<std::size_t>(heads * s.kv_len), 0.0);
   v_max_.assign(static_cast<std::size_t>(heads * dv_pad_), 0.0);
@@ -102,14 +107,13 @@ FastCore::FastCore(const CoreProblem& p, const CoreInputs& in, const ReferenceOp
   parallel_for(heads, workers, [&](std::int64_t bg, unsigned) {
     const std::int64_t b = bg / s.kv_heads, g = bg % s.kv_heads;
     double* kt = &kt_[static_cast<std::size_t>(bg * blocks_ * s.key_dim * kLanes)];
-    double* vp = &vp_[static_cast<std::size_t>(bg * s.kv_len * dv_pad_)];
     for (std::int64_t j = 0; j < s.kv_len; ++j) {
       const double* k = &in.k.values[static_cast<std::size_t>(in.k.offset(b, g, j, 0))];
       for (std::int64_t c = 0; c < s.key_dim; ++c)
         kt[((j / kLanes) * s.key_dim + c) * kLanes + j % kLanes] = k[c];
       k_norm_[static_cast<std::size_t>(bg * s.kv_len + j)] = norm_up(k, s.key_dim);
       const double* v = &in.v.values[static_cast<std::size_t>(in.v.offset(b, g, j, 0))];
-      std::copy(v, v + s.value_dim, vp + j * dv_pad_);
+      if (!v_in_place) std::copy(v, v + s.value_dim, &vp_[static_cast<std::size_t>((bg * s.kv_len + j) * dv_pad_)]);
       double* v_max = &v_max_[static_cast<std::size_t>(bg * dv_pad_)];
       for (std::int64_t d = 0; d < s.value_dim; ++d) v_max[d] = std::max(v_max[d], std::fabs(v[d]));
       if (wide_ != nullptr) {
@@ -118,7 +122,8 @@ FastCore::FastCore(const CoreProblem& p, const CoreInputs& in, const ReferenceOp
         for (std::int64_t c = 0; c < s.key_dim; ++c)
           kt_lo_[at + static_cast<std::size_t>(((j / kLanes) * s.key_dim + c) * kLanes + j % kLanes)] = kl[c];
         const double* vl = &wide_->v_lo.values[static_cast<std::size_t>(in.v.offset(b, g, j, 0))];
-        std::copy(vl, vl + s.value_dim, &vp_lo_[static_cast<std::size_t>(bg * s.kv_len * dv_pad_ + j * dv_pad_)]);
+        if (!v_in_place)
+          std::copy(vl, vl + s.value_dim, &vp_lo_[static_cast<std::size_t>(bg * s.kv_len * dv_pad_ + j * dv_pad_)]);
       }
     }
   });
@@ -148,7 +153,7 @@ void FastCore::prepare_row(std::int64_t row, RowScratch& rs, FastRowArgs& a, Fas
   rs.want.assign(static_cast<std::size_t>(dv), 0);
   a.q = &in_.q.values[static_cast<std::size_t>(in_.q.offset(b, h, i, 0))];
   a.kt = &kt_[static_cast<std::size_t>(bg * blocks_ * s.key_dim * kLanes)];
-  a.vp = &vp_[static_cast<std::size_t>(bg * s.kv_len * dv_pad_)];
+  a.vp = vp_at_ + bg * s.kv_len * dv_pad_;
   a.k_norm = &k_norm_[static_cast<std::size_t>(bg * s.kv_len)];
   a.keys = rs.keys.data();
   a.bias = rs.bias.empty() ? nullptr : rs.bias.data();
@@ -169,7 +174,7 @@ void FastCore::prepare_row(std::int64_t row, RowScratch& rs, FastRowArgs& a, Fas
   if (wide_ != nullptr) {
     a.q_lo = &wide_->q_lo.values[static_cast<std::size_t>(in_.q.offset(b, h, i, 0))];
     a.kt_lo = &kt_lo_[static_cast<std::size_t>(bg * blocks_ * s.key_dim * kLanes)];
-    a.vp_lo = &vp_lo_[static_cast<std::size_t>(bg * s.kv_len * dv_pad_)];
+    a.vp_lo = vp_lo_at_ + bg * s.kv_len * dv_pad_;
     a.q_rad = wide_->q_rad[static_cast<std::size_t>(row)];
     a.k_rad = &wide_->k_rad[static_cast<std::size_t>(bg * s.kv_len)];
   }

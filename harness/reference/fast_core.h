@@ -24,7 +24,8 @@ struct WideCoreInputs {
 
 /// A core problem laid out for the fast kernel: keys in lane blocks and
 /// values in padded rows per (batch, kv head), and key norms. O((Tk)·D)
-/// doubles per kv head, the size of the inputs themselves.
+/// doubles per kv head, the size of the inputs themselves; V is read in place
+/// when Dv is a multiple of kLanes (then `in` must outlive the FastCore).
 class FastCore {
  public:
   /// `kernels`: null for the best the CPU runs (fast_kernels()); tests pass
@@ -76,14 +77,16 @@ class FastCore {
   /// range (escalate the row).
   static bool weight_bounds(const FastRowOut& o, std::int64_t n, bool wide, WeightBounds& wb);
 
- private:
-  void prepare_row(std::int64_t row, RowScratch& rs, FastRowArgs& a, FastRowOut& o) const;
-  /// |H + L − Σ_j ŵ_j v_jd| ≤ coef·σ_d + floor for a row of n keys whose sums ran on the grid.
+  /// |H + RN(L + Lc) − Σ_j ŵ_j v_jd| ≤ coef·σ_d + floor for n terms summed on the grid σ_d
+  /// (fast_row.inc, weighted_sums_grid); the block's output projection uses it too.
   struct GridError {
     double coef = 0, floor = 0;
     double at(double sigma) const;  ///< the bound for grid σ_d, rounded up
   };
   static GridError grid_error(std::int64_t n);
+
+ private:
+  void prepare_row(std::int64_t row, RowScratch& rs, FastRowArgs& a, FastRowOut& o) const;
   /// Returns: whether a grid row should be run again with the cascaded sums.
   bool grid_too_coarse(const RowScratch& rs, const FastRowOut& o, std::int64_t dv_pad) const;
   bool finish_row(std::int64_t row, RowScratch& rs, const FastRowOut& o, CoreReference& ref, RowRecompute& mp,
@@ -98,6 +101,8 @@ class FastCore {
   std::vector<double> kt_, vp_, k_norm_, v_max_;  // per (b, g), concatenated
   const WideCoreInputs* wide_ = nullptr;
   std::vector<double> kt_lo_, vp_lo_;     // wide: the low parts in the same layouts
+  const double* vp_at_ = nullptr;          // V in padded rows: vp_, or the input itself when Dv needs no padding
+  const double* vp_lo_at_ = nullptr;       // wide: the same for the low parts
 };
 
 }  // namespace headroom::detail

@@ -54,6 +54,9 @@ std::optional<std::string> why_unfit(const Case& c, const KernelDeclaration& d);
 /// Throws InputError naming the case when why_unfit says no, when the case is
 /// inconsistent (validate), or when int8 quantisation refuses the values.
 ReceivedCase receive(const Case& c, const KernelDeclaration& d);
+/// As above, taking the case's tensors instead of copying them: each is
+/// rounded where it lies, so a case is held once while it is received.
+ReceivedCase receive(Case&& c, const KernelDeclaration& d);
 
 enum class RunStatus : unsigned char {
   ok,

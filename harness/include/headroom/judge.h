@@ -46,6 +46,11 @@ struct Judgement {
 /// that reproduces the case (recorded as is). Never throws for kernel
 /// misbehaviour; throws InputError for a case inconsistent in itself.
 Judgement judge_case(AttachedKernel& k, const Case& c, const JudgeOptions& opt, const std::string& replay);
+/// As above, for a case the caller will not read again but for its name,
+/// shape, mask and provenance: its Q, K, V and block inputs may be moved into
+/// what the kernel receives instead of copied (left empty), so one case's
+/// tensors are held once. Verdicts and figures are the same either way.
+Judgement judge_case(AttachedKernel& k, Case&& c, const JudgeOptions& opt, const std::string& replay);
 
 /// Returns: whether kernels declared `a` and `b` receive a case identically
 /// (same level, formats and int8 schemes), so one's inputs and reference serve both.
