@@ -4,6 +4,7 @@
 
 #include <cmath>
 #include <cstdio>
+#include <random>
 
 #include "headroom/input_error.h"
 #include "headroom/reference.h"
@@ -237,6 +238,45 @@ TEST(ReferenceBlock, EscalatesWhereTheFastBoundMissesAndStaysCertified) {
                 static_cast<int>(stress), static_cast<long long>(f.stats.escalated_rows),
                 static_cast<long long>(f.stats.escalated_elements), static_cast<long long>(f.stats.redone_batches), worst);
   }
+}
+
+// The output projection sums on power-of-two grids (fast_block.cpp, stage
+// (3)). Two query heads built alike (head 1's W_q columns and b_q copy head
+// 0's; one shared kv head) give bit-identical head outputs, and W_o's rows for
+// head 1 are the negatives of head 0's, no b_o: every exact Y is 0 while its
+// magnitude Σ|O||W_o| is not. The fast Y is then nothing but the sums' own
+// error, far above its ulp, so the comparison with MPFR (Y = 0) tests the
+// stage's bound itself. A grid too narrow for its terms (σ_m below
+// 2·Σ_c|Õ_c·W_o,cm|) breaks the sums' exactness and fails here.
+TEST(ReferenceBlock, CancellingOutputProjectionStaysInsideItsBound) {
+  std::mt19937_64 rng(23);
+  double worst = 0, largest = 0;
+  for (int trial = 0; trial < 40; ++trial) {
+    auto dim = [&](std::int64_t lo, std::int64_t hi) { return std::uniform_int_distribution<std::int64_t>(lo, hi)(rng); };
+    const std::int64_t dk = dim(1, 6), dv = dim(1, 6);
+    const BlockShape s = block_shape(dim(2, 9), 2, 1, dim(1, 4), dim(1, 7), dk, dv);
+    auto c = random_block(s, static_cast<std::uint64_t>(trial), true);
+    BlockInputs& in = c.inputs;
+    for (std::int64_t m = 0; m < s.model_dim; ++m)
+      for (std::int64_t e = 0; e < dk; ++e)
+        in.w_q.values[static_cast<std::size_t>(m * 2 * dk + dk + e)] = in.w_q.values[static_cast<std::size_t>(m * 2 * dk + e)];
+    for (std::int64_t e = 0; e < dk; ++e) in.b_q.values[static_cast<std::size_t>(dk + e)] = in.b_q.values[static_cast<std::size_t>(e)];
+    for (std::int64_t e = 0; e < dv; ++e)
+      for (std::int64_t m = 0; m < s.model_dim; ++m)
+        in.w_o.values[static_cast<std::size_t>((dv + e) * s.model_dim + m)] = -in.w_o.values[static_cast<std::size_t>(e * s.model_dim + m)];
+    in.b_o = Tensor();
+    ReferenceOptions mp;
+    mp.method = ReferenceMethod::multiprecision;
+    const BlockReference f = reference_block(c.problem, c.inputs), m = reference_block(c.problem, c.inputs, mp);
+    EXPECT_TRUE(f.certified && m.certified) << "trial " << trial;
+    double w = 0;
+    EXPECT_TRUE(enclose_same(f.out, f.bound, m.out, m.bound, &w)) << "trial " << trial;
+    worst = std::max(worst, w);
+    for (std::size_t i = 0; i < f.out.values.size(); ++i)
+      largest = std::max(largest, std::fabs(f.out.values[i]) / f.magnitude.values[i]);
+  }
+  std::printf("cancelling Y (exact 0): fast |Y| up to 2^%.1f of its magnitude; worst |fast - mpfr| / allowance %.3g\n",
+              std::log2(largest), worst);
 }
 
 RC_GTEST_PROP(ReferenceBlockProperties, FullyMaskedRowsAgree, ()) {

@@ -34,6 +34,11 @@
 //        |Ŷ − Y| ≤ P + n(4B+8)u²(1 + 2^-38)(1+u)(1 + 2^-49)·Ĝ + n·2^-1071,
 //      P = Σ_c B_c|W_o,cm| the propagated head errors — first bounded by
 //      ‖B_t‖₂‖W_o[:, m]‖₂ (Cauchy–Schwarz), summed exactly where that misses.
+//      The sums run on power-of-two grids σ_m ≥ 2(‖Õ_t‖₂‖W_o[:, m]‖₂ + |b_o,m|)
+//      (OutputStage::set_grid; fast_row.inc, weighted_sums_grid): the middle
+//      term is then FastCore::grid_error(n)·σ_m (two fma and a few additions
+//      per term instead of a two_sum cascade); a row that misses on its grid
+//      is formed again with the double-double sums before it escalates.
 //      The magnitude Σ_c |O_c||W_o,cm| + |b_o,m| (reference.h) is reported as
 //      Ĝ; it is at least Ĝ(1 − 2^-49)(1 − u) − P (|O_c| ≥ |hi_c|(1 − u) − B_c),
 //      and the element is certified when its bound is within 2^target of that.
@@ -276,6 +281,7 @@ class OutputStage {
       col_norm_[static_cast<std::size_t>(m)] = norm_up(&in.w_o.values[static_cast<std::size_t>(m)], cat, dm);
     w_o_ = &in.w_o;
     g_y_ = mul_up(mul_up(weighted_error(m_.n), 1.0 + kU), 1.0 + 0x1p-49);
+    grid_ = FastCore::grid_error(m_.n);
     slack_ = mul_up(static_cast<double>(m_.n), 0x1p-1071);
   }
 
@@ -287,9 +293,11 @@ class OutputStage {
     return false;
   }
 
-  /// Forms rows y[0..count) (each b·Tq + t, none fully masked) into ref_.
+  /// Forms rows y[0..count) (each b·Tq + t, none fully masked) into ref_,
+  /// on the grids where `grid` and they fit (set_grid), a row that misses on
+  /// its grid again with the double-double sums.
   /// Returns (in excess[r]): the worst bound/allowed of each row (≤ 1: certified).
-  void rows(const std::int64_t* y, int count, SumScratch& sc, double* excess) {
+  void rows(const std::int64_t* y, int count, SumScratch& sc, double* excess, bool grid = true) {
     const BlockShape& s = p_.shape;
     const std::int64_t dv = s.value_dim, cat = m_.n - 1;
     double b_norm[kMaxGroup];
@@ -305,20 +313,26 @@ class OutputStage {
       }
       sc.w_hi[r][static_cast<std::size_t>(cat)] = 1.0;
       b_norm[r] = head_bound_norm(b, t);
+      sc.args[r].weighted_grid = grid && set_grid(sc, r);
     }
     kr_.weighted(sc.args, count);
     const double allowed_rel = std::ldexp(1.0, opt_.target_log2);
     for (int r = 0; r < count; ++r) {
       excess[r] = 0;
       const std::int64_t b = y[r] / s.q_len, t = y[r] % s.q_len;
+      const bool on_grid = sc.args[r].weighted_grid;
       for (std::int64_t m = 0; m < s.model_dim; ++m) {
         const auto at = static_cast<std::size_t>(ref_.out.offset(b, t, m));
         double hi = 0, lo = 0;
-        two_sum(sc.h(r, m), sc.l(r, m, m_.pad), hi, lo);
+        // On the grid the sum is H + RN(L + Lc) (slots H, L, GH, GL, Lc, σ).
+        const double l_sum = on_grid ? sc.l(r, m, m_.pad) + sc.l3(r, m, m_.pad) : sc.l(r, m, m_.pad);
+        two_sum(sc.h(r, m), l_sum, hi, lo);
         const double g = sc.g(r, m, m_.pad);
+        const double sum_err =
+            on_grid ? grid_.at(sc.acc[r][static_cast<std::size_t>(5 * m_.pad + m)]) : mul_up(g_y_, g);
         double prop = mul_up(b_norm[r], col_norm_[static_cast<std::size_t>(m)]);
         auto judge = [&] {
-          const double bound = add_up(add_up(prop, mul_up(g_y_, g)), slack_);
+          const double bound = add_up(add_up(prop, sum_err), slack_);
           const double low = sub_down(mul_down(g, (1.0 - 0x1p-49) * (1.0 - kU)), prop);
           ref_.bound.values[at] = bound;
           const double allowed = mul_down(allowed_rel, low);
@@ -335,6 +349,10 @@ class OutputStage {
         excess[r] = std::max(excess[r], e);
       }
     }
+    // A grid too coarse for a row (its σ from Cauchy–Schwarz far above Ĝ):
+    // the row again with the double-double sums (a choice; both bounds hold).
+    for (int r = 0; r < count; ++r)
+      if (excess[r] > 1 && sc.args[r].weighted_grid) rows(&y[r], 1, sc, &excess[r], false);
   }
 
   void write_masked(std::int64_t b, std::int64_t t) {
@@ -345,6 +363,32 @@ class OutputStage {
   }
 
  private:
+  // σ_m for row r of `sc` (its weights bound): 2·2^⌊log2 x⌋ > x =
+  // 2(‖hi‖₂·‖W_o[:, m]‖₂ + |b_o,m|)(1 + 2^-50) ≥ 2(Σ_c |hi_c·W_o,cm| + |1·b_o,m|)
+  // (Cauchy–Schwarz on the weights' high parts; norm_up bounds both norms from
+  // above and the factor covers x's three roundings: (1 − u)³(1 + 2^-50) > 1),
+  // at least 2^-900 (padded columns, values 0, take that). These are the
+  // conditions of fast_row.inc's weighted_sums_grid with n = C + 1 ≤ 2^30 terms
+  // T_c = Õ_c·W_o,cm and T_C = b_o,m; its bound, grid_ = FastCore::grid_error(n),
+  //   |H + RN(L + Lc) − Σ_c T_c| ≤ grid_.coef·σ_m + grid_.floor,
+  // takes the place of g_y_·Ĝ in stage (3)'s bound. Returns: false (double-
+  // double sums) when some x exceeds 2^999 or is not finite.
+  bool set_grid(SumScratch& sc, int r) const {
+    if (m_.n > (std::int64_t{1} << 30)) return false;
+    const double o_norm = norm_up(sc.w_hi[r].data(), m_.n - 1);
+    double* sigma = sc.acc[r].data() + 5 * m_.pad;
+    for (std::int64_t m = 0; m < m_.pad; ++m) {
+      const bool real = m < m_.cols;
+      const double wn = real ? col_norm_[static_cast<std::size_t>(m)] : 0.0;
+      const double bm = real ? std::fabs(m_.vp[static_cast<std::size_t>((m_.n - 1) * m_.pad + m)]) : 0.0;
+      const double x = 2 * (o_norm * wn + bm) * (1 + 0x1p-50);
+      if (!(x <= 0x1p999)) return false;
+      const double floor2 = std::bit_cast<double>(std::bit_cast<std::uint64_t>(x) & 0x7ff0000000000000ULL);
+      sigma[m] = std::max(2 * floor2, 0x1p-900);
+    }
+    return true;
+  }
+
   double head_bound_norm(std::int64_t b, std::int64_t t) const {
     const BlockShape& s = p_.shape;
     double sum = 0;
@@ -379,6 +423,7 @@ class OutputStage {
   Operand m_;
   std::vector<double> col_norm_;
   double g_y_ = 0, slack_ = 0;
+  FastCore::GridError grid_;
 };
 
 }  // namespace

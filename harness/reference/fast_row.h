@@ -61,6 +61,11 @@ struct FastRowArgs {
   /// With exact_sums: the sums run on the grids σ_c = acc[5·dv_pad + c] (fast_row.inc,
   /// weighted_sums_exact_grid), acc ≥ 6·dv_pad, n ≤ 2^30; acc then holds H, L2, GH, GL, H2.
   bool exact_grid = false;
+  /// weighted() only, without exact_sums: the double-double weighted sums run on the
+  /// grids σ_c = acc[5·dv_pad + c] (fast_row.inc, weighted_sums_grid, whose conditions
+  /// the caller meets: Σ_j |w_hi,j·v_jc| ≤ σ_c/2, 2^-900 ≤ σ_c ≤ 2^1000, n ≤ 2^30),
+  /// acc ≥ 6·dv_pad; acc then holds H, L, GH, GL, Lc (H + RN(L + Lc) the sum).
+  bool weighted_grid = false;
   const double* q_lo = nullptr;
   const double* kt_lo = nullptr;
   const double* vp_lo = nullptr;
