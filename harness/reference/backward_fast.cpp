@@ -10,28 +10,50 @@
 //        |P_j − P̂_j| ≤ ρ·P̂_j,  ρ = (1 + φ̄)/((1 − ε_S)(1 − 16u²)) − 1.
 //      A negligible key (ŵ_j = 0, t_j < −650) has P̂_j = 0 and exact
 //      P_j ≤ π0 = 2^-937/(Ŝ_low(1 − ε_S)).
-//  (2) dP̂_j = dO_i·V_j by the cascaded dot product of fast_row.inc's scores
-//      (Ogita, Rump & Oishi 2005, Dot2): |dP̂_j − dP_j| ≤ c_dot·A_j with
-//      c_dot = γ_{Dv+1}·u·(Dv + 2) and A_j ≥ Σ_d |dO_id||V_jd| (computed,
-//      rounded up by nonneg_sum_up); normalised by two_sum (exact).
+//  (2) dP̂_j = dO_i·V_j, normalised (hi + lo), with |dP̂_j − dP_j| ≤ ε_j:
+//      on the grid (backward_row.inc, backward_dp_kernel) σ_j the power of two
+//      2^(e+2) for ‖dO_i‖₂·‖V_j‖₂ ≤ b_j = 2^e·m (norm_up, rounded up; 1 ≤ m < 2),
+//      at least 2^-900, so Σ_d |dO_id V_jd| ≤ b_j ≤ σ_j/2 (Cauchy–Schwarz),
+//      and ε_j = score_coef·σ_j + score_floor (fast_core.cpp's score bound at
+//      Dk = Dv padded); ε_j = 0 when dO_i or V_j is 0 throughout (every product
+//      is then exactly 0, and so are h, ℓ and the sums). A row where some
+//      b_j > 2^998, or whose c_e = max_j ε_j / A_i (below) exceeds
+//      kGridDotMax (a choice, not a claim: a coarse grid against small
+//      products), takes the cascaded dot product of fast_row.inc's scores
+//      instead (Ogita, Rump & Oishi 2005, Dot2): ε_j = c_dot·A_j with
+//      c_dot = γ_{Dv+1}·u·(Dv + 2), and c_e = c_dot. Either way A_j ≥
+//      Σ_d |dO_id||V_jd| (computed, rounded up by nonneg_sum_up over Dv
+//      padded + 3 operations), and ε_j ≤ c_e·(A_j + A_i) for every
+//      non-negligible key (A_j ≥ 0).
 //  (3) D̂ = Σ_j dd_mul(P̂_j, dP̂_j) accumulated by dd_add. dd_mul errs by
 //      ≤ 6.1u² relatively (fast_row.inc); dd_add(a, b) = two_sum(a.hi, b.hi)
 //      = (s, e), l = RN(RN(a.lo + b.lo) + e), two_sum(s, l): the two roundings
 //      err by ≤ u²(|a.hi| + |b.hi|) and ≤ 2.01u²(|a.hi| + |b.hi|), so
 //      ≤ 3.01u²(|a.hi| + |b.hi|). With U ≥ Σ_j |P̂_j dP̂_j| (sum of |t.hi|,
-//      rounded up, × (1 + 2^-50)) the rounding is ≤ (3.1n + 10)u²·U, and
-//        |D̂ − D| ≤ err_D = (3.1n + 10)u²U + ρU + (1 + ρ)c_dot·AP + π0·A_neg + n·2^-1060
-//      with AP ≥ Σ_j P̂_j A_j and A_neg ≥ Σ_{negligible j} A_j (the last term
-//      charges underflow in the products). A_i = (1 + ρ)AP + π0·A_neg ≥ Σ_j P_j A_j.
-//  (4) dŜ_j = dd_mul(P̂_j, dd_add(dP̂_j, −D̂)). With |dP̂_j| ≤ (1 + c_dot)A_j,
-//      |D̂| ≤ (1 + κ_D)A_i (κ_D = err_D/A_i), |dP_j| ≤ A_j, |D| ≤ A_i:
-//        |dŜ_j − dS_j| ≤ P̂_j[9.2u²(|dP̂_j| + |D̂|) + c_dot A_j + err_D + ρ(|dP_j| + |D|)]
+//      rounded up, × (1 + 2^-50)) the rounding is ≤ (3.1n + 10)u²·U, and, as
+//      D − D̂' = Σ_j (P_j − P̂_j)dP̂_j + P_j(dP_j − dP̂_j) for the exact sum D̂',
+//        |D̂ − D| ≤ err_D = (3.1n + 10)u²U + ρU + (1 + ρ)·EP + π0·A_neg + n·2^-1060
+//      with EP ≥ Σ_j P̂_j ε_j (grid: Σ_j P̂_j,hi·ε_j by fma, rounded up over
+//      2n operations, × (1 + u) for P̂_lo; Dot2: c_dot·AP), AP ≥ Σ_j P̂_j A_j
+//      and A_neg ≥ Σ_{negligible j} A_j (the last term charges underflow in
+//      the products). A_i = (1 + ρ)AP + π0·A_neg ≥ Σ_j P_j A_j.
+//  (4) dŜ_j = dd_mul(P̂_j, dd_add(dP̂_j, −D̂)). With |dP̂_j| ≤ A_j + ε_j,
+//      |D̂| ≤ (1 + κ_D)A_i (κ_D = err_D/A_i), |dP_j| ≤ A_j, |D| ≤ A_i, and so
+//      |dP̂_j| + |D̂| ≤ (1 + c_e + κ_D)(A_j + A_i):
+//        |dŜ_j − dS_j| ≤ P̂_j[9.2u²(|dP̂_j| + |D̂|) + ε_j + err_D + ρ(|dP_j| + |D|)]
 //                      ≤ τ·m_j,   m_j = RN(P̂_j,hi·RN(A_j + A_i)),
-//        τ = (1 + 2^-50)(1 + u)[9.2u²(1 + c_dot + κ_D) + c_dot + κ_D + ρ],
-//      and |dŜ_j| ≤ λ·m_j, λ = (1 + c_dot + κ_D)(1 + 2^-49). A negligible key
+//        τ = (1 + 2^-50)(1 + u)[9.2u²(1 + c_e + κ_D) + c_e + κ_D + ρ],
+//      and |dŜ_j| ≤ λ·m_j, λ = (1 + c_e + κ_D)(1 + 2^-49). A negligible key
 //      has dŜ_j = 0 and |dS_j| ≤ ν = π0(A_max + A_i)(1 + 2^-50). Underflow in
 //      (4) is charged 2^-1060 per term (far above its few 2^-1074).
-//  (5) Sums Σ_j dŜ_j K_jd (dQ), Σ_i dŜ_ij Q_id (dK), Σ_i P̂_ij dO_id (dV) with
+//  (5) Sums Σ_j dŜ_j K_jd (dQ) on the grid σ_d, the power of two 2·2^⌊log2 x⌋
+//      for x = RN↑(2·S·K_max,d) (S ≥ Σ_j |dŜ_j,hi| rounded up), at least
+//      2^-900, so Σ_j |dŜ_j,hi K_jd| ≤ σ_d/2 (backward_row.inc, dq_grid_cols:
+//      the sequence of weighted_sums_grid), erring by ≤ FastCore::grid_error(n)
+//      at σ_d in place of λe_acc·M below; a row whose grid error at some
+//      column exceeds 2^(target − 2) of the column's |s|·M, or whose x exceeds
+//      2^999, runs them by the cascade instead (a choice, not a claim).
+//      Σ_i dŜ_ij Q_id (dK), Σ_i P̂_ij dO_id (dV), and dQ's fallback, with
 //      the operation sequence of fast_row.inc's weighted_sums (renormalised
 //      every kRenormEvery terms), whose bound is n(4B + 8)u²(1 + 2^-38)·Ḡ,
 //      Ḡ = Σ|exact terms| ≤ λ·M (dQ, dK) or (1 + u)·M (dV), M the magnitude
@@ -39,6 +61,7 @@
 //      by nonneg_sum_up), plus n·2^-1071 for underflow. So, before the factor
 //      |s| of dQ and dK (applied with one more rounding, charged u|s·L|):
 //        bound(dQ_id) = (τ + λe_acc)M_id + n_neg·ν·K_max,d + n·2^-1060·K_max,d + tiny
+//                      (grid: τ·M_id + grid_error(n) at σ_d + the same terms)
 //        bound(dK_jd) = (τ_max + λ_max·e_acc,j)M_jd + (k_neg,j·ν_max + n_j·2^-1060)·Q_max,d + tiny
 //        bound(dV_jd) = (ρ_max + e_acc,j)(1 + u)M_jd + k_neg,j·π0_max·dO_max,d + tiny
 //      (maxima over the block's rows, e_acc,j with n_j the rows seeing key j).
@@ -62,7 +85,7 @@
 //      out, so every x of the sum is 0 and it is exactly 0.
 //  (6) Magnitudes: the exact natural magnitudes of reference_backward.h
 //      differ from |s|·M (resp. M) by the relative errors of P̂ (ρ), of the
-//      computed A (γ_Dv, γ_2n) and of the sums (γ_2n): κ_mag = 3ρ + 3γ_Dv +
+//      computed A (γ_Dv, with Dv padded + 3 operations; γ_2n) and of the sums (γ_2n): κ_mag = 3ρ + 3γ_Dv +
 //      2γ_2n + 10u, required ≤ 2^-30, and by π0·A_neg, required ≤ 2^-40·A_i;
 //      the reported magnitude is M·(1 − 2^-30) rounded down, a lower end.
 //      An element is certified when its bound ≤ 2^target·magnitude (or both
@@ -72,6 +95,7 @@
 #include "backward_fast.h"
 
 #include <algorithm>
+#include <bit>
 #include <cmath>
 
 #include "bound_arith.h"
@@ -91,6 +115,8 @@ constexpr double kU2 = 0x1p-106;
 constexpr double kMagSlack = 0x1p-30;
 // Rows with τ above this are charged per term (see (5)); typical rows have τ near 2^-93.
 constexpr double kCleanTau = 0x1p-90;
+// (2): a row whose grid dot products' c_e exceeds this takes Dot2 (c_dot ≈ 2^-92 at Dv = 128).
+constexpr double kGridDotMax = 0x1p-86;
 
 struct DD {
   double hi, lo;
@@ -114,37 +140,6 @@ inline DD dd_add(DD a, DD b) {
   const DD s = two_sum(a.hi, b.hi);
   const double l = (a.lo + b.lo) + s.lo;
   return two_sum(s.hi, l);
-}
-
-// (5): acc[d] += (wh + wl)·x[d] in the order of fast_row.inc's weighted_sums;
-// mag[d] += m·|x[d]|.
-inline void cascade(double* __restrict hi, double* __restrict lo, double* __restrict mag, double wh, double wl,
-                    double m, const double* __restrict x, std::int64_t n) {
-  for (std::int64_t d = 0; d < n; ++d) {
-    const double p = wh * x[d];
-    const double e = std::fma(wh, x[d], -p);
-    const double s = hi[d] + p;
-    const double bb = s - hi[d];
-    const double sigma = (hi[d] - (s - bb)) + (p - bb);
-    hi[d] = s;
-    lo[d] = lo[d] + std::fma(wl, x[d], sigma + e);
-    mag[d] = std::fma(m, std::fabs(x[d]), mag[d]);
-  }
-}
-// (5) for a row above kCleanTau: as cascade, and err[d] += c·|x[d]|.
-inline void cascade_charged(double* __restrict hi, double* __restrict lo, double* __restrict mag,
-                            double* __restrict err, double wh, double wl, double m, double c,
-                            const double* __restrict x, std::int64_t n) {
-  cascade(hi, lo, mag, wh, wl, m, x, n);
-  for (std::int64_t d = 0; d < n; ++d) err[d] = std::fma(c, std::fabs(x[d]), err[d]);
-}
-inline void renormalise(double* __restrict hi, double* __restrict lo, std::int64_t n) {
-  for (std::int64_t d = 0; d < n; ++d) {
-    const double s = hi[d] + lo[d];
-    const double bb = s - hi[d];
-    lo[d] = (hi[d] - (s - bb)) + (lo[d] - bb);
-    hi[d] = s;
-  }
 }
 
 // (2): hi + lo = Σ a_c b_c (Dot2); *abs_sum = Σ |a_c b_c| rounded as computed.
@@ -178,11 +173,23 @@ void put(GradientReference& g, std::size_t at, double out, double bound, double 
 
 }  // namespace
 
+
 BackwardFast::BackwardFast(const CoreProblem& p, const CoreInputs& in, const Tensor& d_o, const BackwardOptions& opt,
-                           unsigned workers)
-    : p_(p), in_(in), d_o_(d_o), opt_(opt), fast_(p, in, opt.base, workers) {
+                           unsigned workers, const FastKernels* fk, const BackwardKernels* bk)
+    : p_(p),
+      in_(in),
+      d_o_(d_o),
+      opt_(opt),
+      fast_(p, in, opt.base, workers, fk),
+      kernels_(bk != nullptr ? bk : &backward_kernels()) {
   const std::int64_t dv = p.shape.value_dim;
+  dk_pad_ = (p.shape.key_dim + kLanes - 1) / kLanes * kLanes;
+  dv_pad_ = (dv + kLanes - 1) / kLanes * kLanes;
   dot_coef_ = mul_up(mul_up(gamma_up(dv + 1, kU), kU), static_cast<double>(dv + 2));
+  // (2): fast_core.cpp's score bound at Dk = dv_pad_ (backward_row.inc, backward_dp_kernel).
+  const auto n = static_cast<double>(dv_pad_);
+  dp_coef_ = add_up(mul_up(mul_up(gamma_up(dv_pad_ + 1, kU), kU), n + 2), mul_up(n + 3, kU2));
+  dp_floor_ = mul_up(3 * n, 0x1p-1074);
 }
 
 std::int64_t BackwardFast::blocks() const { return p_.shape.batch * p_.shape.kv_heads; }
@@ -191,22 +198,27 @@ void BackwardFast::run_block(std::int64_t block, BackwardReference& ref, Scratch
                              std::vector<PendingElement>& pending, BackwardStats& stats) const {
   const CoreShape& s = p_.shape;
   const std::int64_t b = block / s.kv_heads, g = block % s.kv_heads, group = s.q_heads / s.kv_heads;
-  const std::int64_t tk = s.kv_len, dk = s.key_dim, dv = s.value_dim;
+  const std::int64_t tk = s.kv_len, dk = s.key_dim, dv = s.value_dim, dkp = dk_pad_, dvp = dv_pad_;
   const double scale = p_.scale, abs_s = std::fabs(scale);
   const double allowed_rel = std::ldexp(1.0, opt_.base.target_log2);
   const bool want_ds = opt_.with_d_scores;
   const double* kb = &in_.k.values[static_cast<std::size_t>(in_.k.offset(b, g, 0, 0))];
   const double* vb = &in_.v.values[static_cast<std::size_t>(in_.v.offset(b, g, 0, 0))];
+  const BackwardKernels& kr = *kernels_;
 
   auto zero_fill = [](std::vector<double>& v, std::int64_t n) { v.assign(static_cast<std::size_t>(n), 0.0); };
-  zero_fill(sc.k_hi, tk * dk);
-  zero_fill(sc.k_lo, tk * dk);
-  zero_fill(sc.k_mag, tk * dk);
-  zero_fill(sc.v_hi, tk * dv);
-  zero_fill(sc.v_lo, tk * dv);
-  zero_fill(sc.v_mag, tk * dv);
-  zero_fill(sc.k_err, tk * dk);
-  zero_fill(sc.v_err, tk * dv);
+  for (auto* v : {&sc.k_hi, &sc.k_lo, &sc.k_mag, &sc.k_err, &sc.k_pad}) zero_fill(*v, tk * dkp);
+  for (auto* v : {&sc.v_hi, &sc.v_lo, &sc.v_mag, &sc.v_err, &sc.v_pad}) zero_fill(*v, tk * dvp);
+  for (auto* v : {&sc.q_pad, &sc.q_hi, &sc.q_lo, &sc.q_mag, &sc.q_sigma}) zero_fill(*v, dkp);
+  zero_fill(sc.do_pad, dvp);
+  sc.v_norm.assign(static_cast<std::size_t>(tk), 0.0);
+  sc.v_zero.assign(static_cast<std::size_t>(tk), 0);
+  for (std::int64_t j = 0; j < tk; ++j) {
+    std::copy(kb + j * dk, kb + (j + 1) * dk, &sc.k_pad[static_cast<std::size_t>(j * dkp)]);
+    std::copy(vb + j * dv, vb + (j + 1) * dv, &sc.v_pad[static_cast<std::size_t>(j * dvp)]);
+    sc.v_norm[static_cast<std::size_t>(j)] = norm_up(vb + j * dv, dv);
+    sc.v_zero[static_cast<std::size_t>(j)] = std::all_of(vb + j * dv, vb + (j + 1) * dv, [](double x) { return x == 0; });
+  }
   sc.k_rows.assign(static_cast<std::size_t>(tk), 0);
   sc.k_neg.assign(static_cast<std::size_t>(tk), 0);
   sc.k_fresh.assign(static_cast<std::size_t>(tk), 0);
@@ -245,6 +257,29 @@ void BackwardFast::run_block(std::int64_t block, BackwardReference& ref, Scratch
     }
   };
 
+  BackwardRowArgs args;
+  args.q = sc.q_pad.data();
+  args.d_o = sc.do_pad.data();
+  args.k = sc.k_pad.data();
+  args.v = sc.v_pad.data();
+  args.dk_pad = dkp;
+  args.dv_pad = dvp;
+  args.q_sigma = sc.q_sigma.data();
+  args.q_hi = sc.q_hi.data();
+  args.q_lo = sc.q_lo.data();
+  args.q_mag = sc.q_mag.data();
+  args.k_hi = sc.k_hi.data();
+  args.k_lo = sc.k_lo.data();
+  args.k_mag = sc.k_mag.data();
+  args.k_err = sc.k_err.data();
+  args.v_hi = sc.v_hi.data();
+  args.v_lo = sc.v_lo.data();
+  args.v_mag = sc.v_mag.data();
+  args.v_err = sc.v_err.data();
+  args.k_fresh = sc.k_fresh.data();
+  args.k_rows = sc.k_rows.data();
+  const double grid_allowed = std::ldexp(1.0, opt_.base.target_log2 - 2);
+
   for (std::int64_t h = g * group; h < (g + 1) * group && !failed; ++h) {
     for (std::int64_t i = 0; i < s.q_len && !failed; ++i) {
       const std::int64_t row = (b * s.q_heads + h) * s.q_len + i;
@@ -276,7 +311,12 @@ void BackwardFast::run_block(std::int64_t block, BackwardReference& ref, Scratch
       }
       const auto n = static_cast<std::int64_t>(rs.keys.size());
       const auto nz = static_cast<std::size_t>(n);
-      for (auto* v : {&sc.ph, &sc.pl, &sc.dph, &sc.dpl, &sc.a, &sc.sh, &sc.sl, &sc.mh}) v->resize(nz);
+      for (auto* v : {&sc.ph, &sc.pl, &sc.dph, &sc.dpl, &sc.a, &sc.sh, &sc.sl, &sc.mh, &sc.dp_sigma, &sc.dp_eps})
+        v->resize(nz);
+      std::copy(q, q + dk, sc.q_pad.begin());
+      std::copy(dor, dor + dv, sc.do_pad.begin());
+      args.keys = rs.keys.data();
+      args.n = n;
 
       // (1)
       // (1 + φ̄)/((1 − ε_S)(1 − η)) − 1 = (φ̄ + ε_S + η − ε_S·η)/((1 − ε_S)(1 − η)), η = 16u².
@@ -298,45 +338,97 @@ void BackwardFast::run_block(std::int64_t block, BackwardReference& ref, Scratch
         sc.ph[x] = pn.hi;
         sc.pl[x] = pn.lo;
       }
-      // (2), (3)
-      DD delta{0, 0};
-      double u_sum = 0, ap = 0, a_neg = 0, a_max = 0;
+      // (2): the grid's σ_j and ε_j; Dot2 when a grid would leave [2^-900, 2^1000].
+      const bool do_zero = std::all_of(dor, dor + dv, [](double x) { return x == 0; });
+      const double do_norm = norm_up(dor, dv);
+      bool grid = true;
       for (std::size_t x = 0; x < nz; ++x) {
-        double abs_sum = 0;
-        const DD dp = dot2(dor, vb + rs.keys[x] * dv, dv, &abs_sum);
-        sc.dph[x] = dp.hi;
-        sc.dpl[x] = dp.lo;
-        const double a = nonneg_sum_up(abs_sum, dv);
-        sc.a[x] = a;
-        if (sc.ph[x] == 0.0) {
-          a_neg += a;
-          a_max = std::max(a_max, a);
+        const auto ju = static_cast<std::size_t>(rs.keys[x]);
+        if (do_zero || sc.v_zero[ju] != 0) {
+          sc.dp_sigma[x] = 0x1p-900;
+          sc.dp_eps[x] = 0.0;
           continue;
         }
-        const DD t = dd_mul({sc.ph[x], sc.pl[x]}, dp);
-        delta = dd_add(delta, t);
-        u_sum += std::fabs(t.hi);
-        ap = std::fma(sc.ph[x], a, ap);
+        const double bj = mul_up(do_norm, sc.v_norm[ju]);
+        if (!(bj <= 0x1p998) && grid) {
+          grid = false;
+          ++stats.dp_dot2_rows;
+        }
+        sc.dp_sigma[x] = bj > 0x1p-902 ? std::ldexp(1.0, std::ilogb(bj) + 2) : 0x1p-900;
+        sc.dp_eps[x] = add_up(mul_up(dp_coef_, sc.dp_sigma[x]), dp_floor_);
       }
-      const double u_up = mul_up(nonneg_sum_up(u_sum, n), 1.0 + 0x1p-50);
-      const double ap_up = mul_up(nonneg_sum_up(ap, 2 * n), 1.0 + kU);
-      const double a_neg_up = nonneg_sum_up(a_neg, n);
+      // (2), (3); once more with Dot2 when the grid's c_e exceeds kGridDotMax.
+      DD delta{0, 0};
+      double u_up = 0, ap_up = 0, a_neg_up = 0, a_max = 0, c_e = 0, ep_up = 0;
+      for (int attempt = 0; attempt < 2; ++attempt) {
+        if (grid) {
+          args.dp_sigma = sc.dp_sigma.data();
+          args.dph = sc.dph.data();
+          args.dpl = sc.dpl.data();
+          args.a = sc.a.data();
+          kr.dp(args);
+        } else {
+          for (std::size_t x = 0; x < nz; ++x) {
+            double abs_sum = 0;
+            const DD dp = dot2(dor, vb + rs.keys[x] * dv, dv, &abs_sum);
+            sc.dph[x] = dp.hi;
+            sc.dpl[x] = dp.lo;
+            sc.a[x] = abs_sum;
+          }
+        }
+        delta = {0, 0};
+        double u_sum = 0, ap = 0, a_neg = 0, ep = 0, eps_max = 0;
+        a_max = 0;
+        for (std::size_t x = 0; x < nz; ++x) {
+          const double a = nonneg_sum_up(sc.a[x], grid ? dvp + 3 : dv);
+          sc.a[x] = a;
+          if (sc.ph[x] == 0.0) {
+            a_neg += a;
+            a_max = std::max(a_max, a);
+            continue;
+          }
+          const DD t = dd_mul({sc.ph[x], sc.pl[x]}, {sc.dph[x], sc.dpl[x]});
+          delta = dd_add(delta, t);
+          u_sum += std::fabs(t.hi);
+          ap = std::fma(sc.ph[x], a, ap);
+          if (grid) {
+            ep = std::fma(sc.ph[x], sc.dp_eps[x], ep);
+            eps_max = std::max(eps_max, sc.dp_eps[x]);
+          }
+        }
+        u_up = mul_up(nonneg_sum_up(u_sum, n), 1.0 + 0x1p-50);
+        ap_up = mul_up(nonneg_sum_up(ap, 2 * n), 1.0 + kU);
+        a_neg_up = nonneg_sum_up(a_neg, n);
+        const double a_i = add_up(mul_up(add_up(1.0, rho), ap_up), mul_up(pi0, a_neg_up));
+        if (grid) {
+          ep_up = mul_up(nonneg_sum_up(ep, 2 * n), 1.0 + kU);
+          c_e = div_up(eps_max, a_i);
+          if (!(c_e <= kGridDotMax) && attempt == 0) {
+            grid = false;
+            ++stats.dp_dot2_rows;
+            continue;
+          }
+        } else {
+          ep_up = mul_up(dot_coef_, ap_up);
+          c_e = dot_coef_;
+        }
+        break;
+      }
       const double one_rho = add_up(1.0, rho);
       double err_d = mul_up(mul_up(add_up(mul_up(3.1, static_cast<double>(n)), 10.0), kU2), u_up);
       err_d = add_up(err_d, mul_up(rho, u_up));
-      err_d = add_up(err_d, mul_up(one_rho, mul_up(dot_coef_, ap_up)));
+      err_d = add_up(err_d, mul_up(one_rho, ep_up));
       err_d = add_up(err_d, add_up(mul_up(pi0, a_neg_up), mul_up(static_cast<double>(n), 0x1p-1060)));
       const double neg_part = mul_up(pi0, a_neg_up);
       const double a_i = add_up(mul_up(one_rho, ap_up), neg_part);
       const double kappa_d = a_i > 0 ? div_up(err_d, a_i) : 0.0;
-      const double c_k = add_up(dot_coef_, kappa_d);
+      const double c_k = add_up(c_e, kappa_d);
       const double tau = mul_up(mul_up(1.0 + 0x1p-50, 1.0 + kU),
                                 add_up(mul_up(9.2 * kU2, add_up(1.0, c_k)), add_up(c_k, rho)));
       const double lambda = mul_up(add_up(1.0, c_k), 1.0 + 0x1p-49);
       const double nu = mul_up(mul_up(pi0, add_up(a_max, a_i)), 1.0 + 0x1p-50);
-      const double kappa_mag =
-          add_up(add_up(mul_up(3.0, rho), mul_up(3.0, gamma_up(dv, kU))), add_up(mul_up(2.0, gamma_up(2 * n, kU)),
-                                                                                 10 * kU));
+      const double kappa_mag = add_up(add_up(mul_up(3.0, rho), mul_up(3.0, gamma_up(dvp + 3, kU))),
+                                      add_up(mul_up(2.0, gamma_up(2 * n, kU)), 10 * kU));
       if (!(kappa_mag <= 0x1p-34) || !(neg_part <= mul_down(0x1p-40, a_i) || a_neg_up == 0) ||
           !std::isfinite(tau) || !(c_k <= 0x1p-34)) {
         failed = true;
@@ -351,57 +443,61 @@ void BackwardFast::run_block(std::int64_t block, BackwardReference& ref, Scratch
       nu_max = std::max(nu_max, nu);
       if (n_neg > 0) pi0_max = std::max(pi0_max, pi0);
 
-      // (4), dS and the row's dQ; dK and dV terms of the row.
+      // (4) dS of the row.
       const DD minus_d{-delta.hi, -delta.lo};
-      sc.q_hi.assign(static_cast<std::size_t>(dk), 0.0);
-      sc.q_lo.assign(static_cast<std::size_t>(dk), 0.0);
-      sc.q_mag.assign(static_cast<std::size_t>(dk), 0.0);
-      std::int64_t since = 0;
-      double m_row_min = kInf;
+      double m_row_min = kInf, ds_abs = 0;
       for (std::size_t x = 0; x < nz; ++x) {
         const std::int64_t j = rs.keys[x];
-        const auto ju = static_cast<std::size_t>(j);
         if (sc.ph[x] == 0.0) {
-          ++sc.k_neg[ju];
+          ++sc.k_neg[static_cast<std::size_t>(j)];
+          sc.sh[x] = sc.sl[x] = sc.mh[x] = 0.0;
           if (want_ds) put(ref.d_s, static_cast<std::size_t>(row * tk + j), 0.0, nu, 0.0);
           continue;
         }
         const DD ds = dd_mul({sc.ph[x], sc.pl[x]}, dd_add({sc.dph[x], sc.dpl[x]}, minus_d));
         const double m = sc.ph[x] * (sc.a[x] + a_i);
+        sc.sh[x] = ds.hi;
+        sc.sl[x] = ds.lo;
+        sc.mh[x] = m;
+        ds_abs += std::fabs(ds.hi);
         m_row_min = std::min(m_row_min, m);
         mv_min = std::min(mv_min, sc.ph[x]);
         if (want_ds) {
           const double bound = add_up(mul_up(tau, m), 0x1p-1060);
           put(ref.d_s, static_cast<std::size_t>(row * tk + j), ds.hi, bound, mul_down(m, 1.0 - kMagSlack));
         }
-        cascade(sc.q_hi.data(), sc.q_lo.data(), sc.q_mag.data(), ds.hi, ds.lo, m, kb + j * dk, dk);
-        if (++since == kRenormEvery) {
-          renormalise(sc.q_hi.data(), sc.q_lo.data(), dk);
-          since = 0;
-        }
-        const std::size_t kat = ju * static_cast<std::size_t>(dk), vat = ju * static_cast<std::size_t>(dv);
-        if (charged) {
-          cascade_charged(&sc.k_hi[kat], &sc.k_lo[kat], &sc.k_mag[kat], &sc.k_err[kat], ds.hi, ds.lo, m, tau * m, q,
-                          dk);
-          cascade_charged(&sc.v_hi[vat], &sc.v_lo[vat], &sc.v_mag[vat], &sc.v_err[vat], sc.ph[x], sc.pl[x], sc.ph[x],
-                          rho * sc.ph[x], dor, dv);
-        } else {
-          cascade(&sc.k_hi[kat], &sc.k_lo[kat], &sc.k_mag[kat], ds.hi, ds.lo, m, q, dk);
-          cascade(&sc.v_hi[vat], &sc.v_lo[vat], &sc.v_mag[vat], sc.ph[x], sc.pl[x], sc.ph[x], dor, dv);
-        }
-        ++sc.k_rows[ju];
-        if (++sc.k_fresh[ju] == kRenormEvery) {
-          renormalise(&sc.k_hi[kat], &sc.k_lo[kat], dk);
-          renormalise(&sc.v_hi[vat], &sc.v_lo[vat], dv);
-          sc.k_fresh[ju] = 0;
-        }
       }
-      renormalise(sc.q_hi.data(), sc.q_lo.data(), dk);
       mk_min = std::min(mk_min, m_row_min);
+      args.ds_hi = sc.sh.data();
+      args.ds_lo = sc.sl.data();
+      args.m = sc.mh.data();
+      args.p_hi = sc.ph.data();
+      args.p_lo = sc.pl.data();
+      args.tau = tau;
+      args.rho = rho;
+      args.charged = charged;
 
-      // (5) dQ of the row.
+      // (5) dQ of the row: on the grid, or by the cascade when a grid column is too coarse.
+      const double s_up = nonneg_sum_up(ds_abs, n);
+      bool q_grid = n <= (std::int64_t{1} << 30);
+      for (std::int64_t d = 0; d < dkp && q_grid; ++d) {
+        const double x = mul_up(mul_up(2.0, s_up), d < dk ? k_max[static_cast<std::size_t>(d)] : 0.0);
+        if (!(x <= 0x1p999)) q_grid = false;
+        const double floor2 = std::bit_cast<double>(std::bit_cast<std::uint64_t>(x) & 0x7ff0000000000000ULL);
+        sc.q_sigma[static_cast<std::size_t>(d)] = std::max(2 * floor2, 0x1p-900);
+      }
+      const FastCore::GridError ge = FastCore::grid_error(n);
+      if (q_grid) {
+        kr.dq_grid(args);
+        for (std::int64_t d = 0; d < dk && q_grid; ++d) {
+          const auto du = static_cast<std::size_t>(d);
+          if (k_max[du] != 0 && !(ge.at(sc.q_sigma[du]) <= grid_allowed * sc.q_mag[du])) q_grid = false;
+        }
+        if (!q_grid) ++stats.dq_cascade_rows;
+      }
+      if (!q_grid) kr.dq_cascade(args);
       const double e_acc = e_acc_up(n);
-      const double coef = add_up(tau, mul_up(lambda, e_acc));
+      const double coef = q_grid ? tau : add_up(tau, mul_up(lambda, e_acc));
       const double tiny = mul_up(static_cast<double>(n), 0x1p-1071);
       for (std::int64_t d = 0; d < dk; ++d) {
         const auto du = static_cast<std::size_t>(d);
@@ -411,6 +507,7 @@ void BackwardFast::run_block(std::int64_t block, BackwardReference& ref, Scratch
         }
         const double mag = nonneg_sum_up(sc.q_mag[du], 2 * n);
         double bound = add_up(mul_up(coef, mag), tiny);
+        if (q_grid) bound = add_up(bound, ge.at(sc.q_sigma[du]));
         bound = add_up(bound, mul_up(add_up(mul_up(static_cast<double>(n_neg), nu), mul_up(static_cast<double>(n),
                                                                                              0x1p-1060)),
                                      k_max[du]));
@@ -428,6 +525,8 @@ void BackwardFast::run_block(std::int64_t block, BackwardReference& ref, Scratch
             pending.push_back({GradKind::d_s, b, h, i, rs.keys[x]});
         }
       }
+      // (5) the row's terms of dK and dV.
+      kr.kv_scatter(args);
     }
   }
   if (failed) {
@@ -436,11 +535,11 @@ void BackwardFast::run_block(std::int64_t block, BackwardReference& ref, Scratch
   }
 
   // (5) dK and dV of the block.
+  kr.renormalise(sc.k_hi.data(), sc.k_lo.data(), tk * dkp);
+  kr.renormalise(sc.v_hi.data(), sc.v_lo.data(), tk * dvp);
   for (std::int64_t j = 0; j < tk; ++j) {
     const auto ju = static_cast<std::size_t>(j);
-    const std::size_t kat = ju * static_cast<std::size_t>(dk), vat = ju * static_cast<std::size_t>(dv);
-    renormalise(&sc.k_hi[kat], &sc.k_lo[kat], dk);
-    renormalise(&sc.v_hi[vat], &sc.v_lo[vat], dv);
+    const std::size_t kat = ju * static_cast<std::size_t>(dkp), vat = ju * static_cast<std::size_t>(dvp);
     const std::int64_t rows = sc.k_rows[ju], neg = sc.k_neg[ju];
     if (rows == 0 && neg == 0) {  // masked from every query: no terms, exactly 0
       for (std::int64_t d = 0; d < dk; ++d) put(ref.d_k, static_cast<std::size_t>(ref.d_k.out.offset(b, g, j, d)), 0, 0, 0);

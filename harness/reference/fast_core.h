@@ -78,7 +78,8 @@ class FastCore {
   static bool weight_bounds(const FastRowOut& o, std::int64_t n, bool wide, WeightBounds& wb);
 
   /// |H + RN(L + Lc) − Σ_j ŵ_j v_jd| ≤ coef·σ_d + floor for n terms summed on the grid σ_d
-  /// (fast_row.inc, weighted_sums_grid); the block's output projection uses it too.
+  /// (fast_row.inc, weighted_sums_grid); the block's output projection and the
+  /// backward's dQ sums (backward_row.inc) use it too.
   struct GridError {
     double coef = 0, floor = 0;
     double at(double sigma) const;  ///< the bound for grid σ_d, rounded up

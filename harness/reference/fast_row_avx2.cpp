@@ -1,10 +1,11 @@
-// headroom — the fast row kernel compiled for AVX2 + FMA (chosen at run time, see fast_row.h).
+// headroom — the fast row kernels (forward, fast_row.h; backward, backward_kernels.h) compiled for AVX2 + FMA, chosen at run time.
 #include <algorithm>
 #include <bit>
 #include <cmath>
 #include <cstdint>
 #include <type_traits>
 
+#include "backward_kernels.h"
 #include "fast_row.h"
 
 #if (defined(__x86_64__) || defined(__i386__)) && (defined(__GNUC__) || defined(__clang__))
@@ -52,11 +53,17 @@ inline Vec operator*(Vec a, Vec b) { return vmul(a, b); }
 inline Vec operator+(Vec a, double b) { return vadd(a, vset1(b)); }
 
 #include "fast_row.inc"
+#include "backward_row.inc"
 
 }  // namespace
 
 void group(const FastRowArgs* rows, FastRowOut* outs, int count) { group_kernel(rows, outs, count); }
 void weighted(const FastRowArgs* rows, int count) { weighted_group_kernel(rows, count); }
+void backward_dp(const BackwardRowArgs& a) { backward_dp_kernel(a); }
+void backward_dq_grid(const BackwardRowArgs& a) { backward_dq_grid_kernel(a); }
+void backward_dq_cascade(const BackwardRowArgs& a) { backward_dq_cascade_kernel(a); }
+void backward_kv_scatter(const BackwardRowArgs& a) { backward_kv_scatter_kernel(a); }
+void backward_renormalise(double* hi, double* lo, std::int64_t count) { backward_renormalise_kernel(hi, lo, count); }
 
 #if defined(__clang__)
 #pragma clang attribute pop
@@ -71,6 +78,11 @@ bool available() { return __builtin_cpu_supports("avx2") && __builtin_cpu_suppor
 bool available() { return false; }
 void group(const FastRowArgs* rows, FastRowOut* outs, int count) { fast_baseline::group(rows, outs, count); }
 void weighted(const FastRowArgs* rows, int count) { fast_baseline::weighted(rows, count); }
+void backward_dp(const BackwardRowArgs& a) { fast_baseline::backward_dp(a); }
+void backward_dq_grid(const BackwardRowArgs& a) { fast_baseline::backward_dq_grid(a); }
+void backward_dq_cascade(const BackwardRowArgs& a) { fast_baseline::backward_dq_cascade(a); }
+void backward_kv_scatter(const BackwardRowArgs& a) { fast_baseline::backward_kv_scatter(a); }
+void backward_renormalise(double* hi, double* lo, std::int64_t count) { fast_baseline::backward_renormalise(hi, lo, count); }
 
 #endif
 

@@ -9,6 +9,7 @@
 #include <cstdint>
 #include <type_traits>
 
+#include "backward_kernels.h"
 #include "fast_row.h"
 
 namespace headroom::detail::fast_baseline {
@@ -55,11 +56,17 @@ inline Vec operator*(Vec a, Vec b) { return vmul(a, b); }
 inline Vec operator+(Vec a, double b) { return vadd(a, vset1(b)); }
 
 #include "fast_row.inc"
+#include "backward_row.inc"
 
 }  // namespace
 
 void group(const FastRowArgs* rows, FastRowOut* outs, int count) { group_kernel(rows, outs, count); }
 void weighted(const FastRowArgs* rows, int count) { weighted_group_kernel(rows, count); }
+void backward_dp(const BackwardRowArgs& a) { backward_dp_kernel(a); }
+void backward_dq_grid(const BackwardRowArgs& a) { backward_dq_grid_kernel(a); }
+void backward_dq_cascade(const BackwardRowArgs& a) { backward_dq_cascade_kernel(a); }
+void backward_kv_scatter(const BackwardRowArgs& a) { backward_kv_scatter_kernel(a); }
+void backward_renormalise(double* hi, double* lo, std::int64_t count) { backward_renormalise_kernel(hi, lo, count); }
 
 #if !defined(__clang__)
 #pragma GCC pop_options

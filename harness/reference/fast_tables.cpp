@@ -7,6 +7,7 @@
 // ≤ u³(1+u)·ln2/128 < 2^-159·ln2/128.
 #include <mpfr.h>
 
+#include "backward_kernels.h"
 #include "fast_row.h"
 
 namespace headroom::detail {
@@ -61,6 +62,22 @@ const FastKernels& fast_kernels_baseline() {
 const FastKernels& fast_kernels() {
   static const FastKernels k = fast_avx2::available() ? FastKernels{&fast_avx2::group, &fast_avx2::weighted, "avx2+fma"}
                                                       : fast_kernels_baseline();
+  return k;
+}
+
+const BackwardKernels& backward_kernels_baseline() {
+  static const BackwardKernels k{&fast_baseline::backward_dp, &fast_baseline::backward_dq_grid,
+                                 &fast_baseline::backward_dq_cascade, &fast_baseline::backward_kv_scatter,
+                                 &fast_baseline::backward_renormalise, "baseline"};
+  return k;
+}
+
+const BackwardKernels& backward_kernels() {
+  static const BackwardKernels k =
+      fast_avx2::available()
+          ? BackwardKernels{&fast_avx2::backward_dp, &fast_avx2::backward_dq_grid, &fast_avx2::backward_dq_cascade,
+                            &fast_avx2::backward_kv_scatter, &fast_avx2::backward_renormalise, "avx2+fma"}
+          : backward_kernels_baseline();
   return k;
 }
 

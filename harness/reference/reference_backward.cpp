@@ -71,6 +71,12 @@ void all_elements(const CoreShape& s, std::int64_t block, bool with_ds, std::vec
 
 BackwardReference reference_backward(const CoreProblem& p, const CoreInputs& in, const Tensor& d_o,
                                      const BackwardOptions& opt) {
+  return detail::reference_backward_with(p, in, d_o, opt, nullptr, nullptr);
+}
+
+BackwardReference detail::reference_backward_with(const CoreProblem& p, const CoreInputs& in, const Tensor& d_o,
+                                                  const BackwardOptions& opt, const FastKernels* fk,
+                                                  const BackwardKernels* bk) {
   detail::require_valid(p, in);
   if (p.has_softcap() || p.has_sinks())
     throw InputError("reference input", p.has_softcap() ? "field softcap" : "field sinks",
@@ -89,7 +95,7 @@ BackwardReference reference_backward(const CoreProblem& p, const CoreInputs& in,
   const unsigned workers = detail::worker_count(blocks, opt.base.threads);
   const bool fast_method = opt.base.method == ReferenceMethod::fast;
   std::optional<detail::BackwardFast> fast;
-  if (fast_method) fast.emplace(p, in, d_o, opt, workers);
+  if (fast_method) fast.emplace(p, in, d_o, opt, workers, fk, bk);
 
   struct Worker {
     std::unique_ptr<detail::MpBackward> mp;
@@ -136,6 +142,8 @@ BackwardReference reference_backward(const CoreProblem& p, const CoreInputs& in,
   for (const Worker& w : pool) {
     ref.stats.rows += w.stats.rows;
     ref.stats.escalated_elements += w.stats.escalated_elements;
+    ref.stats.dp_dot2_rows += w.stats.dp_dot2_rows;
+    ref.stats.dq_cascade_rows += w.stats.dq_cascade_rows;
     if (w.mp) ref.stats.max_precision = std::max(ref.stats.max_precision, w.mp->max_precision_used());
   }
   return ref;

@@ -53,6 +53,8 @@ struct BackwardStats {
   std::int64_t rows = 0;                ///< query rows with a visible key
   std::int64_t escalated_elements = 0;  ///< gradient elements recomputed in multiprecision
   long max_precision = 0;               ///< highest precision used (bits; 0 if none)
+  std::int64_t dp_dot2_rows = 0;     ///< fast path: rows whose dP left the grid for the cascaded dot product
+  std::int64_t dq_cascade_rows = 0;  ///< fast path: rows whose dQ sums left the grid for the cascade
 };
 
 struct BackwardReference {
