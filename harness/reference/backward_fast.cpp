@@ -209,8 +209,11 @@ void BackwardFast::run_block(std::int64_t block, BackwardReference& ref, Scratch
   auto zero_fill = [](std::vector<double>& v, std::int64_t n) { v.assign(static_cast<std::size_t>(n), 0.0); };
   for (auto* v : {&sc.k_hi, &sc.k_lo, &sc.k_mag, &sc.k_err, &sc.k_pad}) zero_fill(*v, tk * dkp);
   for (auto* v : {&sc.v_hi, &sc.v_lo, &sc.v_mag, &sc.v_err, &sc.v_pad}) zero_fill(*v, tk * dvp);
-  for (auto* v : {&sc.q_pad, &sc.q_hi, &sc.q_lo, &sc.q_mag, &sc.q_sigma}) zero_fill(*v, dkp);
-  zero_fill(sc.do_pad, dvp);
+  for (auto* v : {&sc.q_hi, &sc.q_lo, &sc.q_mag, &sc.q_sigma}) zero_fill(*v, dkp);
+  for (Scratch::Slot& rw : sc.slot) {
+    zero_fill(rw.q_pad, dkp);
+    zero_fill(rw.do_pad, dvp);
+  }
   sc.v_norm.assign(static_cast<std::size_t>(tk), 0.0);
   sc.v_zero.assign(static_cast<std::size_t>(tk), 0);
   for (std::int64_t j = 0; j < tk; ++j) {
@@ -258,8 +261,6 @@ void BackwardFast::run_block(std::int64_t block, BackwardReference& ref, Scratch
   };
 
   BackwardRowArgs args;
-  args.q = sc.q_pad.data();
-  args.d_o = sc.do_pad.data();
   args.k = sc.k_pad.data();
   args.v = sc.v_pad.data();
   args.dk_pad = dkp;
@@ -279,6 +280,16 @@ void BackwardFast::run_block(std::int64_t block, BackwardReference& ref, Scratch
   args.k_fresh = sc.k_fresh.data();
   args.k_rows = sc.k_rows.data();
   const double grid_allowed = std::ldexp(1.0, opt_.base.target_log2 - 2);
+  // (5): the dK and dV terms of up to kScatterRows consecutive rows go into the
+  // accumulators together, key by key and within a key row by row: the
+  // operations on each accumulator, and their order, are those of one row at
+  // a time, with each key's accumulators read from memory once per group.
+  BackwardRowArgs group_args[kScatterRows];
+  int filled = 0;
+  auto scatter = [&] {
+    if (filled > 0) kr.kv_scatter(group_args, filled, tk);
+    filled = 0;
+  };
 
   for (std::int64_t h = g * group; h < (g + 1) * group && !failed; ++h) {
     for (std::int64_t i = 0; i < s.q_len && !failed; ++i) {
@@ -311,11 +322,15 @@ void BackwardFast::run_block(std::int64_t block, BackwardReference& ref, Scratch
       }
       const auto n = static_cast<std::int64_t>(rs.keys.size());
       const auto nz = static_cast<std::size_t>(n);
-      for (auto* v : {&sc.ph, &sc.pl, &sc.dph, &sc.dpl, &sc.a, &sc.sh, &sc.sl, &sc.mh, &sc.dp_sigma, &sc.dp_eps})
+      Scratch::Slot& rw = sc.slot[static_cast<std::size_t>(filled)];
+      for (auto* v : {&rw.ph, &rw.pl, &sc.dph, &sc.dpl, &sc.a, &rw.sh, &rw.sl, &rw.mh, &sc.dp_sigma, &sc.dp_eps})
         v->resize(nz);
-      std::copy(q, q + dk, sc.q_pad.begin());
-      std::copy(dor, dor + dv, sc.do_pad.begin());
-      args.keys = rs.keys.data();
+      rw.keys = rs.keys;
+      args.q = rw.q_pad.data();
+      args.d_o = rw.do_pad.data();
+      std::copy(q, q + dk, rw.q_pad.begin());
+      std::copy(dor, dor + dv, rw.do_pad.begin());
+      args.keys = rw.keys.data();
       args.n = n;
 
       // (1)
@@ -327,7 +342,7 @@ void BackwardFast::run_block(std::int64_t block, BackwardReference& ref, Scratch
       for (std::size_t x = 0; x < nz; ++x) {
         const double wh = rs.w_hi[x], wl = rs.w_lo[x];
         if (wh == 0.0) {
-          sc.ph[x] = sc.pl[x] = 0.0;
+          rw.ph[x] = rw.pl[x] = 0.0;
           ++n_neg;
           continue;
         }
@@ -335,8 +350,8 @@ void BackwardFast::run_block(std::int64_t block, BackwardReference& ref, Scratch
         const double r0 = std::fma(-q1, o.s_hi, wh);
         const double r = (r0 + wl) - q1 * o.s_lo;
         const DD pn = two_sum(q1, r / o.s_hi);
-        sc.ph[x] = pn.hi;
-        sc.pl[x] = pn.lo;
+        rw.ph[x] = pn.hi;
+        rw.pl[x] = pn.lo;
       }
       // (2): the grid's σ_j and ε_j; Dot2 when a grid would leave [2^-900, 2^1000].
       const bool do_zero = std::all_of(dor, dor + dv, [](double x) { return x == 0; });
@@ -382,17 +397,17 @@ void BackwardFast::run_block(std::int64_t block, BackwardReference& ref, Scratch
         for (std::size_t x = 0; x < nz; ++x) {
           const double a = nonneg_sum_up(sc.a[x], grid ? dvp + 3 : dv);
           sc.a[x] = a;
-          if (sc.ph[x] == 0.0) {
+          if (rw.ph[x] == 0.0) {
             a_neg += a;
             a_max = std::max(a_max, a);
             continue;
           }
-          const DD t = dd_mul({sc.ph[x], sc.pl[x]}, {sc.dph[x], sc.dpl[x]});
+          const DD t = dd_mul({rw.ph[x], rw.pl[x]}, {sc.dph[x], sc.dpl[x]});
           delta = dd_add(delta, t);
           u_sum += std::fabs(t.hi);
-          ap = std::fma(sc.ph[x], a, ap);
+          ap = std::fma(rw.ph[x], a, ap);
           if (grid) {
-            ep = std::fma(sc.ph[x], sc.dp_eps[x], ep);
+            ep = std::fma(rw.ph[x], sc.dp_eps[x], ep);
             eps_max = std::max(eps_max, sc.dp_eps[x]);
           }
         }
@@ -448,31 +463,31 @@ void BackwardFast::run_block(std::int64_t block, BackwardReference& ref, Scratch
       double m_row_min = kInf, ds_abs = 0;
       for (std::size_t x = 0; x < nz; ++x) {
         const std::int64_t j = rs.keys[x];
-        if (sc.ph[x] == 0.0) {
+        if (rw.ph[x] == 0.0) {
           ++sc.k_neg[static_cast<std::size_t>(j)];
-          sc.sh[x] = sc.sl[x] = sc.mh[x] = 0.0;
+          rw.sh[x] = rw.sl[x] = rw.mh[x] = 0.0;
           if (want_ds) put(ref.d_s, static_cast<std::size_t>(row * tk + j), 0.0, nu, 0.0);
           continue;
         }
-        const DD ds = dd_mul({sc.ph[x], sc.pl[x]}, dd_add({sc.dph[x], sc.dpl[x]}, minus_d));
-        const double m = sc.ph[x] * (sc.a[x] + a_i);
-        sc.sh[x] = ds.hi;
-        sc.sl[x] = ds.lo;
-        sc.mh[x] = m;
+        const DD ds = dd_mul({rw.ph[x], rw.pl[x]}, dd_add({sc.dph[x], sc.dpl[x]}, minus_d));
+        const double m = rw.ph[x] * (sc.a[x] + a_i);
+        rw.sh[x] = ds.hi;
+        rw.sl[x] = ds.lo;
+        rw.mh[x] = m;
         ds_abs += std::fabs(ds.hi);
         m_row_min = std::min(m_row_min, m);
-        mv_min = std::min(mv_min, sc.ph[x]);
+        mv_min = std::min(mv_min, rw.ph[x]);
         if (want_ds) {
           const double bound = add_up(mul_up(tau, m), 0x1p-1060);
           put(ref.d_s, static_cast<std::size_t>(row * tk + j), ds.hi, bound, mul_down(m, 1.0 - kMagSlack));
         }
       }
       mk_min = std::min(mk_min, m_row_min);
-      args.ds_hi = sc.sh.data();
-      args.ds_lo = sc.sl.data();
-      args.m = sc.mh.data();
-      args.p_hi = sc.ph.data();
-      args.p_lo = sc.pl.data();
+      args.ds_hi = rw.sh.data();
+      args.ds_lo = rw.sl.data();
+      args.m = rw.mh.data();
+      args.p_hi = rw.ph.data();
+      args.p_lo = rw.pl.data();
       args.tau = tau;
       args.rho = rho;
       args.charged = charged;
@@ -525,10 +540,12 @@ void BackwardFast::run_block(std::int64_t block, BackwardReference& ref, Scratch
             pending.push_back({GradKind::d_s, b, h, i, rs.keys[x]});
         }
       }
-      // (5) the row's terms of dK and dV.
-      kr.kv_scatter(args);
+      // (5) the row's terms of dK and dV, with those of the rows beside it.
+      group_args[filled++] = args;
+      if (filled == kScatterRows) scatter();
     }
   }
+  if (!failed) scatter();
   if (failed) {
     escalate_block();
     return;

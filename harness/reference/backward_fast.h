@@ -29,13 +29,20 @@ class BackwardFast {
   /// Per-worker scratch.
   struct Scratch {
     FastCore::RowScratch row;
-    std::vector<double> ph, pl, dph, dpl, a, sh, sl, mh, dp_sigma, dp_eps;  // per visible key of a row
+    std::vector<double> dph, dpl, a, dp_sigma, dp_eps;  // per visible key of a row
+    /// A row whose dK and dV terms wait to be added with those of the rows beside it.
+    struct Slot {
+      std::vector<std::int64_t> keys;
+      std::vector<double> ph, pl, sh, sl, mh;  // per visible key: P̂, dŜ, m
+      std::vector<double> q_pad, do_pad;       // [D padded]
+    };
+    Slot slot[kScatterRows];
     std::vector<double> k_pad, v_pad;                          // [Tk, D padded] inputs of the block
     std::vector<double> k_hi, k_lo, k_mag, v_hi, v_lo, v_mag;  // [Tk, D padded] of the block
     std::vector<double> k_err, v_err;  // [Tk, D padded]: error charged per term by rows above kCleanTau
     std::vector<double> v_norm;        // [Tk]: upper bounds of ‖V_j‖₂
     std::vector<std::uint8_t> v_zero;  // [Tk]: V_j is 0 throughout
-    std::vector<double> q_pad, do_pad, q_hi, q_lo, q_mag, q_sigma;  // [D padded] of a row
+    std::vector<double> q_hi, q_lo, q_mag, q_sigma;  // [D padded] of a row
     std::vector<std::int64_t> k_rows, k_neg, k_fresh;          // per key: rows, negligible rows, terms since renormalising
   };
 

@@ -15,6 +15,9 @@
 
 namespace headroom::detail {
 
+/// Rows whose dK and dV terms kv_scatter takes together.
+inline constexpr int kScatterRows = 4;
+
 /// One query row of a (batch, kv head) block. Row vectors are zero-padded to
 /// kLanes (dk_pad, dv_pad); key-indexed arrays are [Tk][pad] of the block.
 struct BackwardRowArgs {
@@ -53,7 +56,9 @@ struct BackwardKernels {
   void (*dp)(const BackwardRowArgs& a);
   void (*dq_grid)(const BackwardRowArgs& a);
   void (*dq_cascade)(const BackwardRowArgs& a);
-  void (*kv_scatter)(const BackwardRowArgs& a);
+  /// The dK and dV terms of `count` ≤ kScatterRows rows (in order) sharing
+  /// the accumulators, key by key over keys [0, tk).
+  void (*kv_scatter)(const BackwardRowArgs* rows, int count, std::int64_t tk);
   /// Renormalises `count` accumulators (hi, lo) = two_sum(hi, lo).
   void (*renormalise)(double* hi, double* lo, std::int64_t count);
   const char* name;
@@ -68,7 +73,7 @@ namespace fast_avx2 {
 void backward_dp(const BackwardRowArgs& a);
 void backward_dq_grid(const BackwardRowArgs& a);
 void backward_dq_cascade(const BackwardRowArgs& a);
-void backward_kv_scatter(const BackwardRowArgs& a);
+void backward_kv_scatter(const BackwardRowArgs* rows, int count, std::int64_t tk);
 void backward_renormalise(double* hi, double* lo, std::int64_t count);
 }  // namespace fast_avx2
 
@@ -76,7 +81,7 @@ namespace fast_baseline {
 void backward_dp(const BackwardRowArgs& a);
 void backward_dq_grid(const BackwardRowArgs& a);
 void backward_dq_cascade(const BackwardRowArgs& a);
-void backward_kv_scatter(const BackwardRowArgs& a);
+void backward_kv_scatter(const BackwardRowArgs* rows, int count, std::int64_t tk);
 void backward_renormalise(double* hi, double* lo, std::int64_t count);
 }  // namespace fast_baseline
 

@@ -62,7 +62,9 @@ void weighted(const FastRowArgs* rows, int count) { weighted_group_kernel(rows, 
 void backward_dp(const BackwardRowArgs& a) { backward_dp_kernel(a); }
 void backward_dq_grid(const BackwardRowArgs& a) { backward_dq_grid_kernel(a); }
 void backward_dq_cascade(const BackwardRowArgs& a) { backward_dq_cascade_kernel(a); }
-void backward_kv_scatter(const BackwardRowArgs& a) { backward_kv_scatter_kernel(a); }
+void backward_kv_scatter(const BackwardRowArgs* rows, int count, std::int64_t tk) {
+  backward_kv_scatter_kernel(rows, count, tk);
+}
 void backward_renormalise(double* hi, double* lo, std::int64_t count) { backward_renormalise_kernel(hi, lo, count); }
 
 #if defined(__clang__)
@@ -81,7 +83,9 @@ void weighted(const FastRowArgs* rows, int count) { fast_baseline::weighted(rows
 void backward_dp(const BackwardRowArgs& a) { fast_baseline::backward_dp(a); }
 void backward_dq_grid(const BackwardRowArgs& a) { fast_baseline::backward_dq_grid(a); }
 void backward_dq_cascade(const BackwardRowArgs& a) { fast_baseline::backward_dq_cascade(a); }
-void backward_kv_scatter(const BackwardRowArgs& a) { fast_baseline::backward_kv_scatter(a); }
+void backward_kv_scatter(const BackwardRowArgs* rows, int count, std::int64_t tk) {
+  fast_baseline::backward_kv_scatter(rows, count, tk);
+}
 void backward_renormalise(double* hi, double* lo, std::int64_t count) { fast_baseline::backward_renormalise(hi, lo, count); }
 
 #endif

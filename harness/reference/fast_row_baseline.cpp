@@ -65,7 +65,9 @@ void weighted(const FastRowArgs* rows, int count) { weighted_group_kernel(rows, 
 void backward_dp(const BackwardRowArgs& a) { backward_dp_kernel(a); }
 void backward_dq_grid(const BackwardRowArgs& a) { backward_dq_grid_kernel(a); }
 void backward_dq_cascade(const BackwardRowArgs& a) { backward_dq_cascade_kernel(a); }
-void backward_kv_scatter(const BackwardRowArgs& a) { backward_kv_scatter_kernel(a); }
+void backward_kv_scatter(const BackwardRowArgs* rows, int count, std::int64_t tk) {
+  backward_kv_scatter_kernel(rows, count, tk);
+}
 void backward_renormalise(double* hi, double* lo, std::int64_t count) { backward_renormalise_kernel(hi, lo, count); }
 
 #if !defined(__clang__)
