@@ -110,7 +110,9 @@ TEST(ScoreConditioning, EightBitDefaultsAddTheWorstCaseTermAFileLimitDoesNot) {
   s.max_scaled_error = s.row_max_scaled[1];
   const Verdict over = judge(&s, CaseFaults{}, b, 10);
   ASSERT_FALSE(over.pass);
-  EXPECT_NE(over.reasons.front().text.find("plus score conditioning at Z = 800"), std::string::npos) << over.reasons.front().text;
+  const std::string& text = over.reasons.front().text;
+  EXPECT_NE(text.find("plus worst-case score conditioning at Z = 800"), std::string::npos) << text;
+  EXPECT_EQ(text.find("score conditioning"), text.rfind("score conditioning")) << "named once: " << text;
   const Budget file = parse_budget("version = 1\n[kernel.k]\nmax_scaled_error = 2097152\n", "b.toml");
   EXPECT_DOUBLE_EQ(file.for_kernel("k", Format::e4m3).row_scaled_error_limit(10, s, 1), 0x1p21);
 }

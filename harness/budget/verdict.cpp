@@ -115,7 +115,9 @@ Verdict judge(const CaseScore* score, const CaseFaults& faults, const KernelBudg
     std::string how = budget.max_scaled_error.describe(n, s.unit_roundoff);
     if (worst_row < s.row_score_magnitude.size() && (budget.max_scaled_error.kind == Limit::Kind::probabilistic ||
                                                      budget.max_scaled_error.score_conditioned))
-      how += ", plus score conditioning at Z = " + number(s.row_score_magnitude[worst_row]) + ", u_s = 2^-" +
+      // A fixed limit's own description already names the term ("plus worst-case score conditioning").
+      how += std::string(budget.max_scaled_error.kind == Limit::Kind::fixed ? " at" : ", plus score conditioning at") +
+             " Z = " + number(s.row_score_magnitude[worst_row]) + ", u_s = 2^-" +
              std::to_string(budget.score_bits) + " (" + budget.score_bits_origin + ")";
     v.reasons.push_back(over_limit("max_scaled_error", worst_value, worst_limit, how, budget.max_scaled_error.origin,
                                    worst_value == s.max_scaled_error ? describe(s.worst_scaled)
