@@ -21,6 +21,8 @@ import sys
 
 import numpy as np
 
+from numpy_kernel import visible  # the forward example beside this file: the mask as a boolean array
+
 DECLARATION = {
     "protocol": 2,
     "name": "numpy_backward",
@@ -38,26 +40,6 @@ DECLARATION = {
 
 def load(folder, name):
     return np.load(os.path.join(folder, name)).astype(np.float32)
-
-
-def visible(problem, folder, shape):
-    """Boolean [B, 1|Hq, Tq, Tk] of the keys each query may see."""
-    b, tq, tk = shape["batch"], shape["q_len"], shape["kv_len"]
-    kind = problem["mask"]["kind"]
-    i = np.arange(tq)[:, None]
-    j = np.arange(tk)[None, :]
-    if kind == "none":
-        return np.ones((b, 1, tq, tk), dtype=bool)
-    if kind == "causal_top_left":
-        return np.broadcast_to(j <= i, (b, 1, tq, tk))
-    if kind == "causal_bottom_right":
-        return np.broadcast_to(j <= i + (tk - tq), (b, 1, tq, tk))
-    data = np.load(os.path.join(folder, problem["mask"]["file"]))
-    if kind == "key_padding":
-        return (np.arange(tk)[None, :] < data[:, None])[:, None, None, :].repeat(tq, axis=2)
-    if kind == "dense":
-        return data
-    return data != -np.inf  # bias
 
 
 def scores(folder):
