@@ -109,32 +109,40 @@ std::string shared_page_conflict(const PagedKv& p, const Tensor& logical) {
   return {};
 }
 
-Tensor scatter_pages(const PagedKv& p, const Tensor& logical, double fill) {
-  const std::int64_t batch = logical.shape[0], heads = logical.shape[1], dim = logical.shape[3];
-  Tensor pages({p.num_pages, p.page_size, heads, dim});
-  std::fill(pages.values.begin(), pages.values.end(), fill);
+namespace {
+
+// Calls f(page, row, b, t) for every row of a mapped page, t being that row's
+// logical token; scatter and gather are the two directions of this one walk.
+template <class F>
+void for_each_mapped_row(const PagedKv& p, std::int64_t batch, F f) {
   for (std::int64_t b = 0; b < batch; ++b)
     for (std::int64_t s = 0; s < p.max_pages_per_seq; ++s) {
       const std::int32_t pg = p.page(b, s);
       if (pg < 0) continue;
-      for (std::int64_t r = 0; r < p.page_size; ++r)
-        for (std::int64_t h = 0; h < heads; ++h)
-          for (std::int64_t d = 0; d < dim; ++d) pages.at(pg, r, h, d) = logical.at(b, h, s * p.page_size + r, d);
+      for (std::int64_t r = 0; r < p.page_size; ++r) f(pg, r, b, s * p.page_size + r);
     }
+}
+
+}  // namespace
+
+Tensor scatter_pages(const PagedKv& p, const Tensor& logical, double fill) {
+  const std::int64_t heads = logical.shape[1], dim = logical.shape[3];
+  Tensor pages({p.num_pages, p.page_size, heads, dim});
+  std::fill(pages.values.begin(), pages.values.end(), fill);
+  for_each_mapped_row(p, logical.shape[0], [&](std::int64_t pg, std::int64_t r, std::int64_t b, std::int64_t t) {
+    for (std::int64_t h = 0; h < heads; ++h)
+      for (std::int64_t d = 0; d < dim; ++d) pages.at(pg, r, h, d) = logical.at(b, h, t, d);
+  });
   return pages;
 }
 
 Tensor gather_pages(const PagedKv& p, const Tensor& pages, std::int64_t batch) {
   const std::int64_t heads = pages.shape[2], dim = pages.shape[3];
   Tensor logical({batch, heads, p.max_pages_per_seq * p.page_size, dim});
-  for (std::int64_t b = 0; b < batch; ++b)
-    for (std::int64_t s = 0; s < p.max_pages_per_seq; ++s) {
-      const std::int32_t pg = p.page(b, s);
-      if (pg < 0) continue;
-      for (std::int64_t r = 0; r < p.page_size; ++r)
-        for (std::int64_t h = 0; h < heads; ++h)
-          for (std::int64_t d = 0; d < dim; ++d) logical.at(b, h, s * p.page_size + r, d) = pages.at(pg, r, h, d);
-    }
+  for_each_mapped_row(p, batch, [&](std::int64_t pg, std::int64_t r, std::int64_t b, std::int64_t t) {
+    for (std::int64_t h = 0; h < heads; ++h)
+      for (std::int64_t d = 0; d < dim; ++d) logical.at(b, h, t, d) = pages.at(pg, r, h, d);
+  });
   return logical;
 }
 
