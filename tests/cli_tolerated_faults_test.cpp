@@ -54,14 +54,14 @@ int failed_for(const RunRecord& r, const std::string& fault) {
 
 // The budget the issue met: racy_reduction's non-determinism comes and goes
 // with thread timing. The race can also move a row between the grouped-head
-// order probe's poisoned runs, which the probe then takes for a row reading
-// another head's K/V (a convention fault, 2 runs in 40 on an idle 2-core
-// machine; a known limit of that probe on nondeterministic kernels), so the
-// exit code is not checked: the tolerated class must fail no case, and the
-// list must say so.
+// order probe's poisoned runs; the probe claims a row reads another head's K/V
+// only when one other head's poison moves it by a poison-sized mass in two
+// calls (mask_leak.cpp), so jitter no longer fails the run (before that rule:
+// 2 runs in 40 on an idle 2-core machine).
 TEST(ToleratedFaults, TheRecordListsWhatTheKernelSectionTolerated) {
   const fs::path dir = testing::fresh_cli_dir("tolerated_kernel");
   const QualifyRun r = qualify(dir, "racy_reduction", "[kernel.racy_reduction]\ntolerated_faults = [\"nondeterministic\"]\n");
+  EXPECT_EQ(r.code, 0);
   EXPECT_EQ(failed_for(r.record, "nondeterministic"), 0);
   EXPECT_FALSE(r.record.cases.empty());
   EXPECT_EQ(r.record.tolerated_faults, std::vector<std::string>{"nondeterministic"});

@@ -23,6 +23,9 @@ enum class Defect {
   nondeterministic,
   nondeterministic_rarely,  // differs on every third call only: two determinism runs miss it
   wrong_head,               // grouped-query: head h reads kv head (kv_head_of(h) + 1) mod Hkv
+  jitter_when_poisoned,     // sound, but out[1] moves one float ulp whenever kv head 1's V is poisoned (|v| > 100):
+                            // rounding jitter that happens to coincide with the probe's poisoned calls
+  faint_leak,               // every masked key adds 2^-36·v to the numerator: a leak the size of an ulp
   nan_masked_rows,
   flip_causal,
   inf_first,
@@ -91,6 +94,9 @@ class TestKernel : public AttachedKernel {
               num += e * v.at(b, g, j, d);
               den += e;
             }
+            if (defect_ == Defect::faint_leak)
+              for (std::int64_t j = 0; j < s.kv_len; ++j)
+                if (!mask.visible(s, b, h, i, j)) num += 0x1p-36 * den * v.at(b, g, j, d);
             r.out.at(b, h, i, d) = static_cast<float>(num / den);
           }
         }
@@ -99,6 +105,12 @@ class TestKernel : public AttachedKernel {
       r.out.values[1] = std::nextafter(static_cast<float>(r.out.values[1]), 10.0f);
     }
     if (defect_ == Defect::inf_first) r.out.values[0] = INFINITY;
+    if (defect_ == Defect::jitter_when_poisoned && s.kv_heads > 1) {
+      bool poisoned = false;
+      for (std::int64_t j = 0; j < s.kv_len; ++j)
+        for (std::int64_t d = 0; d < s.value_dim; ++d) poisoned = poisoned || std::fabs(v.at(0, 1, j, d)) > 100;
+      if (poisoned) r.out.values[1] = std::nextafter(static_cast<float>(r.out.values[1]), 10.0f);
+    }
     return r;
   }
 
@@ -299,6 +311,39 @@ TEST(Detectors, WrongHeadReadIsConventionNotMaskLeak) {
   // The same case on a sound kernel: no fault.
   TestKernel sound(Defect::none);
   EXPECT_TRUE(judge(sound, core_case({1, 2, 2, 4, 6, 3, 2}, dense, 11)).faults.faults.empty());
+}
+
+TEST(Detectors, JitterThatCoincidesWithOtherHeadsPoisonIsNoConvention) {
+  // Head 0's row moves (one ulp) when kv head 1's keys are poisoned, and not
+  // when its own are: the pattern of a row reading another head, but by a
+  // rounding-sized amount that does not grow with the poison. Before the
+  // growth rule the probe called this a grouped-head convention fault, and
+  // racy_reduction's jitter a convention fault or a mask leak of mass ~6e-11
+  // (6 runs in 100 of the quick gaussian suite).
+  Mask dense;
+  dense.kind = MaskKind::dense;
+  dense.allowed = Tensor({1, 2, 4, 6});
+  for (std::int64_t i = 0; i < 4; ++i)
+    for (std::int64_t j = 0; j < 6; ++j) {
+      dense.allowed.at(0, 0, i, j) = j < 3 ? 1.0 : 0.0;
+      dense.allowed.at(0, 1, i, j) = j >= 3 ? 1.0 : 0.0;
+    }
+  TestKernel k(Defect::jitter_when_poisoned);
+  const Outcome o = judge(k, core_case({1, 2, 2, 4, 6, 3, 2}, dense, 11));
+  EXPECT_TRUE(o.faults.faults.empty()) << classes(o.faults);
+  bool noted = false;
+  for (const std::string& n : o.faults.notes) noted = noted || n.find("read as rounding jitter") != std::string::npos;
+  EXPECT_TRUE(noted);
+}
+
+TEST(Detectors, AnUlpSizedLeakThatGrowsWithThePoisonIsALeak) {
+  // Leaked mass 2^-36 per key: with the poison 2^8 above max|V| the row moves
+  // by about an ulp, the size of the jitter the growth rule sets aside; with
+  // a 2^16 times larger poison it moves 2^16 times as far, so it counts.
+  TestKernel k(Defect::faint_leak);
+  const Outcome o = judge(k, padding_case());
+  ASSERT_EQ(o.faults.faults.size(), 1u) << classes(o.faults);
+  EXPECT_EQ(o.faults.faults[0].kind, FaultClass::mask_leak) << classes(o.faults);
 }
 
 TEST(Detectors, NeverWrittenElementsHaveTheirOwnMessage) {

@@ -108,11 +108,22 @@ class Poisoner {
     if (!block && base.received.core.paged.active()) shared_ = base.received.core.paged.sharers();
   }
 
-  // Poisons keys `js` of group `gr` in `work` (a copy of the base case).
-  void apply(ReceivedCase& work, const Group& gr, const std::vector<std::int64_t>& js, Variant var) const {
+  // How many doublings the value poison (P_V; block: P) can take and stay
+  // finite in the input format; 0 for int8 and 8-bit float inputs, whose
+  // poison is already the extreme code.
+  int growth_room() const {
+    const double p = base_.received.level == Level::block ? px_ : pv_;
+    if (p == 0) return 0;
+    return score_detail::leak_poison_cap_log2(base_.input_format) - std::ilogb(p);
+  }
+
+  // Poisons keys `js` of group `gr` in `work` (a copy of the base case), with
+  // the value poison (block: the X_kv poison) times 2^grow.
+  void apply(ReceivedCase& work, const Group& gr, const std::vector<std::int64_t>& js, Variant var,
+             int grow = 0) const {
     if (work.received.level == Level::block) {
       Tensor& x = work.received.block_inputs.x_kv;
-      const double p = var == Variant::k_minus ? -px_ : px_;
+      const double p = std::ldexp(var == Variant::k_minus ? -px_ : px_, grow);
       for (std::int64_t j : js)
         for (std::int64_t d = 0; d < x.shape[2]; ++d) x.at(gr.b, j, d) = p;
       return;
@@ -125,19 +136,19 @@ class Poisoner {
       // poisoning it for one would move the others' visible keys.
       if (paged.active() && shared_[static_cast<std::size_t>(std::max(0, paged.page(gr.b, j / paged.page_size)))] > 1)
         continue;
-      for (std::int64_t d = 0; d < in.v.shape[3]; ++d) set(work, false, gr.b, gr.g, j, d, true);
+      for (std::int64_t d = 0; d < in.v.shape[3]; ++d) set(work, false, gr.b, gr.g, j, d, true, grow);
       if (!poison_k) continue;
-      for (std::int64_t d = 0; d < in.k.shape[3]; ++d) set(work, true, gr.b, gr.g, j, d, var == Variant::k_plus);
+      for (std::int64_t d = 0; d < in.k.shape[3]; ++d) set(work, true, gr.b, gr.g, j, d, var == Variant::k_plus, 0);
     }
   }
 
  private:
   void set(ReceivedCase& work, bool key, std::int64_t b, std::int64_t g, std::int64_t j, std::int64_t d,
-           bool positive) const {
+           bool positive, int grow) const {
     Tensor& t = key ? work.received.core_inputs.k : work.received.core_inputs.v;
     const std::size_t at = static_cast<std::size_t>(t.offset(b, g, j, d));
     if (!is_quantised(base_.input_format)) {
-      t.values[at] = key ? (positive ? pk_ : -pk_) : pv_;
+      t.values[at] = key ? (positive ? pk_ : -pk_) : std::ldexp(pv_, grow);
       return;
     }
     QuantizedTensor& q = key ? *work.k8 : *work.v8;
@@ -189,6 +200,28 @@ bool row_changed(const KernelRun& base, const KernelRun& run, const RowRef& rr) 
     if (!same_or_zero(base.lse.values[k], run.lse.values[k])) return true;
   }
   return false;
+}
+
+// The largest change of row rr from `base` to `run`, and the row's largest
+// magnitude in either (lse counted too); a change is +inf when an element
+// became or stopped being non-finite.
+struct RowChange {
+  double delta = 0, top = 0;
+};
+RowChange row_change(const KernelRun& base, const KernelRun& run, const RowRef& rr) {
+  RowChange ch;
+  auto add = [&](double a, double b) {
+    if (!std::isfinite(a) || !std::isfinite(b)) {
+      if (!same_or_zero(a, b)) ch.delta = INFINITY;
+      return;
+    }
+    ch.delta = std::max(ch.delta, std::fabs(a - b));
+    ch.top = std::max({ch.top, std::fabs(a), std::fabs(b)});
+  };
+  for (std::size_t k = rr.out_begin; k < rr.out_begin + rr.width; ++k) add(base.out.values[k], run.out.values[k]);
+  if (rr.lse_at >= 0 && !base.lse.values.empty())
+    add(base.lse.values[static_cast<std::size_t>(rr.lse_at)], run.lse.values[static_cast<std::size_t>(rr.lse_at)]);
+  return ch;
 }
 
 bool contains(const std::vector<std::uint8_t>& masked, const std::vector<std::int64_t>& js) {
@@ -335,6 +368,33 @@ std::optional<Fault> detect_mask_leak(AttachedKernel& kernel, const ReceivedCase
                                                           : "the input with " + variant_text(var, block) + ", called twice") +
                    "), seen by the mask-leak probe, which therefore counts no leak";
         return f;
+      }
+      // A change of rounding size must grow with the poison. A kernel that
+      // reads a masked value v moves its row by about mass·v: 2^grow times
+      // the poison moves it 2^grow times as far. A racy kernel's jitter (a few
+      // ulps of the output, racy_reduction) can also reproduce twice by
+      // chance, but it does not grow. Inputs whose poison cannot grow by 2^6
+      // (int8, 8-bit floats, binary16 near its cap) skip this and count any
+      // reproducible change.
+      const RowChange seen = row_change(baseline, run, rr);
+      const int grow = std::min(16, poisoner.growth_room());
+      if (seen.delta <= 8 * unit_roundoff(kernel.declaration().output_format) * seen.top && grow >= 6) {
+        ReceivedCase bigger = c;
+        for (const Group& g : groups) {
+          const std::ptrdiff_t p = pattern_at(g, t);
+          if (p >= 0) poisoner.apply(bigger, g, g.patterns[static_cast<std::size_t>(p)], var, grow);
+        }
+        const KernelRun grown = call(bigger);
+        if (auto f = broken(grown, var)) return f;
+        if (row_change(baseline, grown, rr).delta < std::ldexp(seen.delta, grow - 2)) {
+          if (notes != nullptr) {
+            notes->push_back("mask_leak: row " + first_text + " moved by a rounding-sized amount with " +
+                             variant_text(var, block) + ", but not 2^" + std::to_string(grow - 2) +
+                             " times as far with a 2^" + std::to_string(grow) +
+                             " times larger poison: read as rounding jitter, not counted");
+          }
+          continue;
+        }
       }
       const std::vector<std::int64_t>& own = gr.patterns[static_cast<std::size_t>(pattern_at(gr, t))];
       if (!block) {
