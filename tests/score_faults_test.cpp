@@ -319,7 +319,7 @@ TEST(Detectors, JitterThatCoincidesWithOtherHeadsPoisonIsNoConvention) {
   // rounding-sized amount that does not grow with the poison. Before the
   // growth rule the probe called this a grouped-head convention fault, and
   // racy_reduction's jitter a convention fault or a mask leak of mass ~6e-11
-  // (6 runs in 100 of the quick gaussian suite).
+  // (4 runs in 60 of the quick gaussian suite).
   Mask dense;
   dense.kind = MaskKind::dense;
   dense.allowed = Tensor({1, 2, 4, 6});
