@@ -88,7 +88,7 @@ Verdict judge_block(const std::string& name, const Case& c, CaseFaults& f, CaseS
   auto kernel = attach_in_process(bk->kernel);
   DetectorOptions opt;
   opt.max_leak_patterns = 4;
-  const ReceivedCase rc = receive(c, bk->declaration);
+  ReceivedCase rc = receive(c, bk->declaration);
   const KernelRun first = kernel->run(rc, opt.run);
   if (first.status != RunStatus::ok) throw std::runtime_error(name + ": " + first.detail);
   const BlockReference ref = reference_block(rc.received.block, rc.received.block_inputs);
@@ -132,7 +132,7 @@ TEST(DefaultBudgets, SoundBundledCoreKernelsPassOnGaussianCases) {
     double worst_scaled = 0, worst_rmse = 0;
     for (const Case& c : gaussian_cases()) {
       if (why_unfit(c, bk.declaration)) continue;
-      const ReceivedCase rc = receive(c, bk.declaration);
+      ReceivedCase rc = receive(c, bk.declaration);
       const KernelRun first = kernel->run(rc, run);
       ASSERT_EQ(first.status, RunStatus::ok) << bk.declaration.name << " " << c.name << ": " << first.detail;
       const CoreReference ref = reference_core(rc.received.core, rc.received.core_inputs);
@@ -180,7 +180,7 @@ TEST(Specimens, NumericalDefectsAreCaughtByTheirClassOnly) {
     ASSERT_NE(bk, nullptr) << sp.name;
     EXPECT_EQ(bk->expected_fault, fault_class_name(sp.expected)) << sp.name;
     auto kernel = attach_in_process(bk->kernel);
-    const ReceivedCase rc = receive(sp.c, bk->declaration);
+    ReceivedCase rc = receive(sp.c, bk->declaration);
     const KernelRun first = kernel->run(rc, opt.run);
     ASSERT_EQ(first.status, RunStatus::ok) << sp.name << ": " << first.detail;
     const CoreReference ref = reference_core(rc.received.core, rc.received.core_inputs);

@@ -227,10 +227,11 @@ TEST(PagedKv, ThePageProbeNamesAPageOutsideTheTable) {
   const hr_kernel own = summing_kernel(sum_own), foreign = summing_kernel(sum_foreign);
   for (const hr_kernel* k : {&own, &foreign}) {
     auto kernel = attach_in_process(k);
-    const ReceivedCase rc = receive(c, kernel->declaration());
+    ReceivedCase rc = receive(c, kernel->declaration());
     const KernelRun first = kernel->run(rc, RunOptions{false, 5.0, 0});
     ASSERT_EQ(first.status, RunStatus::ok);
     const auto f = detect_page_leak(*kernel, rc, first, RunOptions{false, 5.0, 0}, nullptr);
+    EXPECT_TRUE(rc.poisoned_pages.empty() && rc.page_poison_k == 0 && rc.page_poison_v == 0);  // cleared again
     if (k == &own) {
       EXPECT_FALSE(f) << (f ? f->detail : "");
       continue;

@@ -143,7 +143,9 @@ TEST(Runner, TakingACaseChangesNoFigure) {
         EXPECT_EQ(copied.unfit.has_value(), taken.unfit.has_value()) << t.kernel << " " << c.name;
         const bool emptied = t.level == Level::core ? handed.core_inputs.k.values.empty()
                                                     : handed.block_inputs.w_o.values.empty();
-        if (!copied.unfit) EXPECT_EQ(emptied, t.taken) << t.kernel << " " << c.name;
+        if (!copied.unfit) {
+          EXPECT_EQ(emptied, t.taken) << t.kernel << " " << c.name;
+        }
         EXPECT_EQ(handed.name, c.name);
       }
     }

@@ -3,6 +3,7 @@
 #include <gtest/gtest.h>
 
 #include <cmath>
+#include <cstring>
 #include <limits>
 #include <random>
 #include <string>
@@ -163,12 +164,33 @@ struct Outcome {
   CoreReference ref;
 };
 
+bool same_bits(const Tensor& a, const Tensor& b) {
+  return a.shape == b.shape && std::memcmp(a.values.data(), b.values.data(), a.values.size() * sizeof(double)) == 0;
+}
+
+// The leak probes poison the case in place (faults.h): every value and code
+// must come back bit for bit, whichever way detect_faults returned.
+void expect_restored(const ReceivedCase& before, const ReceivedCase& after) {
+  const CoreInputs &x = before.received.core_inputs, &y = after.received.core_inputs;
+  EXPECT_TRUE(same_bits(x.q, y.q) && same_bits(x.k, y.k) && same_bits(x.v, y.v));
+  EXPECT_TRUE(same_bits(before.received.block_inputs.x_kv, after.received.block_inputs.x_kv));
+  for (auto m : {&ReceivedCase::k8, &ReceivedCase::v8}) {
+    ASSERT_EQ((before.*m).has_value(), (after.*m).has_value());
+    if ((before.*m).has_value()) {
+      EXPECT_EQ((before.*m)->codes, (after.*m)->codes);
+    }
+  }
+  EXPECT_TRUE(after.poisoned_pages.empty());
+}
+
 Outcome judge(TestKernel& k, const Case& c, const DetectorOptions& opt = {}) {
-  const ReceivedCase rc = receive(c, k.declaration());
+  ReceivedCase rc = receive(c, k.declaration());
+  const ReceivedCase before = rc;
   Outcome o;
   o.first = k.run(rc, RunOptions{});
   o.ref = reference_core(rc.received.core, rc.received.core_inputs);
   o.faults = detect_faults(k, rc, o.first, o.ref, opt);
+  expect_restored(before, rc);
   return o;
 }
 
@@ -505,9 +527,11 @@ TEST(Detectors, BlockLevelLeakIsFoundThroughXkv) {
   in.w_o = gaussian({4, 4}, gen);
   for (bool leaky : {false, true}) {
     BlockSumKernel k(leaky);
-    const ReceivedCase rc = receive(c, k.declaration());
+    ReceivedCase rc = receive(c, k.declaration());
+    const ReceivedCase before = rc;
     const KernelRun first = k.run(rc, RunOptions{});
     const std::optional<Fault> f = detect_mask_leak(k, rc, first, DetectorOptions{});
+    expect_restored(before, rc);
     ASSERT_EQ(f.has_value(), leaky);
     if (leaky) {
       EXPECT_EQ(f->kind, FaultClass::mask_leak);

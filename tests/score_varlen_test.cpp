@@ -92,7 +92,7 @@ TEST(ScoreVarlen, ReferenceRowsAreEachSequencesOwnAttention) {
 TEST(ScoreVarlen, SoundKernelMeetsTheReferenceAndShowsNoFault) {
   auto kernel = attach_in_process(&hr_kernels::f32_varlen);
   for (MaskKind kind : {MaskKind::none, MaskKind::causal_bottom_right}) {
-    const ReceivedCase rc = receive(packed_case(kind, 5), kernel->declaration());
+    ReceivedCase rc = receive(packed_case(kind, 5), kernel->declaration());
     const KernelRun run = kernel->run(rc, RunOptions{true, 10.0, std::uint64_t{1} << 30});
     ASSERT_EQ(run.status, RunStatus::ok) << run.detail;
     const CoreReference ref = reference_core(rc.received.core, rc.received.core_inputs);
@@ -107,7 +107,7 @@ TEST(ScoreVarlen, SoundKernelMeetsTheReferenceAndShowsNoFault) {
 
 TEST(ScoreVarlen, OffsetOffByOneIsAMaskLeakNamingTheSequences) {
   auto kernel = attach_in_process(&hr_kernels::varlen_offset_off_by_one);
-  const ReceivedCase rc = receive(packed_case(MaskKind::none, 7), kernel->declaration());
+  ReceivedCase rc = receive(packed_case(MaskKind::none, 7), kernel->declaration());
   const KernelRun run = kernel->run(rc, RunOptions{true, 10.0, std::uint64_t{1} << 30});
   ASSERT_EQ(run.status, RunStatus::ok) << run.detail;
   const CoreReference ref = reference_core(rc.received.core, rc.received.core_inputs);
@@ -125,7 +125,7 @@ TEST(ScoreVarlen, OffsetOffByOneIsAMaskLeakNamingTheSequences) {
   EXPECT_NE(leak->detail.find("must see only its own sequence's keys"), std::string::npos) << leak->detail;
   // The sound kernel on the same case: no leak.
   auto sound = attach_in_process(&hr_kernels::f32_varlen);
-  const ReceivedCase rs = receive(packed_case(MaskKind::none, 7), sound->declaration());
+  ReceivedCase rs = receive(packed_case(MaskKind::none, 7), sound->declaration());
   const KernelRun good = sound->run(rs, RunOptions{true, 10.0, std::uint64_t{1} << 30});
   EXPECT_EQ(detect_faults(*sound, rs, good, ref).find(FaultClass::mask_leak), nullptr);
 }

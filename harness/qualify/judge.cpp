@@ -66,7 +66,7 @@ CaseScore score_of(const KernelRun& run, const AnyReference& ref, Format f) {
   return score_block(run.out, *ref.block, f);
 }
 
-CaseFaults faults_of(AttachedKernel& k, const ReceivedCase& rc, const KernelRun& run, const AnyReference& ref,
+CaseFaults faults_of(AttachedKernel& k, ReceivedCase& rc, const KernelRun& run, const AnyReference& ref,
                      const DetectorOptions& opt) {
   if (ref.core) return detect_faults(k, rc, run, *ref.core, opt);
   return detect_faults(k, rc, run, *ref.block, opt);
@@ -231,7 +231,7 @@ Judgement judge(AttachedKernel& k, const Case& c, Case* owned, const JudgeOption
   // The source values are needed again only for the input-quantisation split.
   const bool rounded = d.input_format != c.source_format && d.input_format != Format::float64;
   const bool split = opt.quantisation_split && rounded;
-  const ReceivedCase rc =
+  ReceivedCase rc =  // the leak probes poison it in place and restore it (faults.h)
       owned != nullptr && !split ? receive(taken_for_receive(*owned, d), d) : receive(with_upstream_gradient(c, d), d);
   if (const auto bad = first_non_finite_input(rc.received); !bad.empty()) {
     j.unfit = bad + " overflows " + std::string(format_name(d.input_format)) + " when rounded";

@@ -120,7 +120,7 @@ bool judge_status(CaseFaults& cf, const KernelRun& first) {
 }
 
 template <class Ref>
-void rerun_detectors(CaseFaults& cf, AttachedKernel& kernel, const ReceivedCase& c, const KernelRun& first,
+void rerun_detectors(CaseFaults& cf, AttachedKernel& kernel, ReceivedCase& c, const KernelRun& first,
                      const Ref& ref, const DetectorOptions& opt) {
   const KernelDeclaration& d = kernel.declaration();
   std::optional<Fault> alignment;
@@ -293,7 +293,7 @@ std::optional<Fault> detect_nondeterminism(AttachedKernel& kernel, const Receive
   return std::nullopt;
 }
 
-CaseFaults detect_faults(AttachedKernel& kernel, const ReceivedCase& c, const KernelRun& first,
+CaseFaults detect_faults(AttachedKernel& kernel, ReceivedCase& c, const KernelRun& first,
                          const CoreReference& ref, const DetectorOptions& opt) {
   CaseFaults cf;
   if (!judge_status(cf, first)) return cf;
@@ -303,7 +303,7 @@ CaseFaults detect_faults(AttachedKernel& kernel, const ReceivedCase& c, const Ke
   return cf;
 }
 
-CaseFaults detect_faults(AttachedKernel& kernel, const ReceivedCase& c, const KernelRun& first,
+CaseFaults detect_faults(AttachedKernel& kernel, ReceivedCase& c, const KernelRun& first,
                          const BlockReference& ref, const DetectorOptions& opt) {
   CaseFaults cf;
   if (!judge_status(cf, first)) return cf;

@@ -29,7 +29,7 @@ bool rows_of_b_changed(const KernelRun& base, const KernelRun& run, const CoreSh
 
 }  // namespace
 
-std::optional<Fault> detect_page_leak(AttachedKernel& kernel, const ReceivedCase& c, const KernelRun& baseline,
+std::optional<Fault> detect_page_leak(AttachedKernel& kernel, ReceivedCase& c, const KernelRun& baseline,
                                       const RunOptions& run_opt, int* runs) {
   if (c.received.level != Level::core || !c.received.core.has_paged_kv() || is_quantised(c.input_format))
     return std::nullopt;
@@ -37,13 +37,21 @@ std::optional<Fault> detect_page_leak(AttachedKernel& kernel, const ReceivedCase
   const CoreShape& s = p.shape;
   const double pk = score_detail::leak_poison(c.received.core_inputs.k, c.input_format);
   const double pv = score_detail::leak_poison(c.received.core_inputs.v, c.input_format);
+  // Poisons pages in c itself (no second copy of the case) and clears them
+  // again before returning, whether the call returns or throws.
   auto call = [&](const std::vector<std::int32_t>& pages, double k_sign) {
-    ReceivedCase work = c;
-    work.poisoned_pages = pages;
-    work.page_poison_k = k_sign * pk;
-    work.page_poison_v = pv;
+    struct Clear {
+      ReceivedCase& c;
+      ~Clear() {
+        c.poisoned_pages.clear();
+        c.page_poison_k = c.page_poison_v = 0.0;
+      }
+    } clear{c};
+    c.poisoned_pages = pages;
+    c.page_poison_k = k_sign * pk;
+    c.page_poison_v = pv;
     if (runs != nullptr) ++*runs;
-    return kernel.run(work, run_opt);
+    return kernel.run(c, run_opt);
   };
   for (std::int64_t b = 0; b < s.batch; ++b) {
     std::set<std::int32_t> own;

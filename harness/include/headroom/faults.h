@@ -135,14 +135,20 @@ std::optional<Fault> detect_causal_alignment(const KernelRun& run, const Receive
 /// (the extreme code for the zero point), values dequantised exactly.
 /// The leaked mass is certified from the V-only run, if it shows the leak:
 /// a row's shift Δ_d = Σ_{leaked j} w_j (P_{j,d} − v_{j,d}), so the mass
-/// Σ|w_j| ≥ max_d |Δ_d| / max_{j∈S} |P_{j,d} − v_{j,d}| (up to output rounding).
+/// Σ|w_j| ≥ max_d |Δ_d| / (max|P| + max|V|) (up to output rounding).
 /// The first leaking key is found by bisecting S on the first changed row.
 /// A change counts as a leak only when it reproduces: the same poisoned call
 /// gives the same row again and the unpoisoned call the baseline's; otherwise
-/// the result is a nondeterministic fault (identical calls differed). A core
+/// the result is a nondeterministic fault (identical calls differed). A change
+/// within 8 units of roundoff of the output format (times the row's largest
+/// |value|) counts only if a 2^16 times larger value poison (where the input
+/// format holds it) moves the row at least 2^14 times as far: rounding jitter
+/// does not grow with the poison (a note says so). A core
 /// row that does not move when only its own kv head's masked keys are
 /// poisoned reads another head's K/V: a convention fault (head order), not a leak.
 /// `runs` (if non-null) is increased by the kernel calls made.
+/// The probes poison `c` itself, not a copy (a production-sized case is held
+/// once), and put every poisoned value back bit for bit before returning.
 /// Preconditions: baseline = kernel.run(c) with status ok.
 /// Returns: a mask_leak fault when, on a paged core case, poisoning the pages
 /// outside a sequence's block table (other sequences' pages and pages in no
@@ -151,10 +157,11 @@ std::optional<Fault> detect_causal_alignment(const KernelRun& run, const Receive
 /// names one such page, found by bisection. Nothing for other cases (and for
 /// int8 and 8-bit float inputs, which paged cases do not reach).
 /// `runs` (if non-null) is increased by the kernel calls made.
-std::optional<Fault> detect_page_leak(AttachedKernel& kernel, const ReceivedCase& c, const KernelRun& baseline,
+/// Poisons c's pages in place and clears them again before returning.
+std::optional<Fault> detect_page_leak(AttachedKernel& kernel, ReceivedCase& c, const KernelRun& baseline,
                                       const RunOptions& run_opt, int* runs);
 
-std::optional<Fault> detect_mask_leak(AttachedKernel& kernel, const ReceivedCase& c, const KernelRun& baseline,
+std::optional<Fault> detect_mask_leak(AttachedKernel& kernel, ReceivedCase& c, const KernelRun& baseline,
                                       const DetectorOptions& opt, int* runs = nullptr,
                                       std::vector<std::string>* notes = nullptr);
 
@@ -170,10 +177,11 @@ std::optional<Fault> detect_nondeterminism(AttachedKernel& kernel, const Receive
 /// reference of what the kernel received. When `first` is not ok only its
 /// status is judged (a fault class, or the unsupported/bad_output counts).
 /// A leak that the opposite causal alignment explains is reported once, as the
-/// convention fault (its detail says so).
-CaseFaults detect_faults(AttachedKernel& kernel, const ReceivedCase& c, const KernelRun& first,
+/// convention fault (its detail says so). `c` is poisoned in place by the
+/// leak probes and is bit for bit as given when this returns.
+CaseFaults detect_faults(AttachedKernel& kernel, ReceivedCase& c, const KernelRun& first,
                          const CoreReference& ref, const DetectorOptions& opt = {});
-CaseFaults detect_faults(AttachedKernel& kernel, const ReceivedCase& c, const KernelRun& first,
+CaseFaults detect_faults(AttachedKernel& kernel, ReceivedCase& c, const KernelRun& first,
                          const BlockReference& ref, const DetectorOptions& opt = {});
 
 }  // namespace headroom
