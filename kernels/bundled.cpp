@@ -19,6 +19,7 @@ const hr_bundled_kernel kTable[] = {
     {&gqa_f32, 0, nullptr, nullptr},
     {&e4m3_tensorwise, 0, nullptr, nullptr},
     {&e4m3_blockwise, 0, nullptr, nullptr},
+    {&e4m3_blockwise_rotated, 0, nullptr, nullptr},
     {&f32_varlen, 0, nullptr, nullptr},
     {&f32_paged_split, 0, nullptr, nullptr},
     {&block_f32, 0, nullptr, nullptr},

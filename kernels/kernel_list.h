@@ -19,6 +19,7 @@ extern const hr_kernel block_f32;
 extern const hr_kernel gqa_f32;
 extern const hr_kernel e4m3_tensorwise;
 extern const hr_kernel e4m3_blockwise;
+extern const hr_kernel e4m3_blockwise_rotated;
 extern const hr_kernel f32_varlen;
 extern const hr_kernel f32_paged_split;
 // Backward kernels (kernels/f32_backward_tiled.cpp): judged by the score stage

@@ -127,6 +127,10 @@ TEST(DefaultBudgets, SoundBundledCoreKernelsPassOnGaussianCases) {
   int judged = 0;
   for (const BundledKernel& bk : bundled_kernels()) {
     if (bk.flawed || bk.declaration.level != Level::core) continue;
+    // A kernel that takes a wide format and rounds to 8 bits inside
+    // (e4m3_blockwise_rotated) is outside its input format's defaults by
+    // design; budgets/bundled.toml holds its section (qualify_selfcheck_test).
+    if (bk.declaration.p_quant && !is_fp8(bk.declaration.input_format)) continue;
     auto kernel = attach_in_process(bk.kernel);
     const KernelBudget budget = default_budget(bk.declaration.input_format);
     double worst_scaled = 0, worst_rmse = 0;

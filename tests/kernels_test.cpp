@@ -60,6 +60,7 @@ const SoundCase kSound[] = {
     {"f32_tiled_64", HR_FORMAT_FLOAT32, 1e-5}, {"gqa_f32", HR_FORMAT_FLOAT32, 1e-5},
     {"f16_f32acc", HR_FORMAT_BINARY16, 1e-2},  {"f16_f16acc", HR_FORMAT_BINARY16, 1e-2},
     {"bf16_f32acc", HR_FORMAT_BFLOAT16, 3e-2}, {"i8_tokenwise", HR_FORMAT_INT8, 5e-2},
+    {"e4m3_blockwise_rotated", HR_FORMAT_FLOAT32, 0.25},
 };
 
 class SoundKernel : public testing::TestWithParam<SoundCase> {
@@ -242,6 +243,7 @@ TEST(BundledTable, HoldsEveryKernelWithItsExpectedFault) {
       {"gqa_f32", nullptr},
       {"e4m3_tensorwise", nullptr},
       {"e4m3_blockwise", nullptr},
+      {"e4m3_blockwise_rotated", nullptr},
       {"f32_varlen", nullptr},
       {"no_max_shift", "non_finite"},
       {"mask_tail_off_by_one", "mask_leak"},
