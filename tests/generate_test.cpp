@@ -28,7 +28,7 @@ TEST(GenerateFamilies, ListedOnceWithDocsAndFound) {
     ASSERT_NE(found, nullptr) << f.name;
     EXPECT_EQ(found->name, f.name);
   }
-  EXPECT_EQ(names.size(), 23u);
+  EXPECT_EQ(names.size(), 24u);
   EXPECT_EQ(find_family("no_such_family"), nullptr);
   EXPECT_EQ(find_family("block_gaussian")->level, Level::block);
   EXPECT_EQ(find_family("gaussian")->level, Level::core);

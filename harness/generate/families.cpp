@@ -25,7 +25,7 @@ std::span<const FamilyImpl> family_impls() {
     std::vector<FamilyImpl> all;
     for (auto group : {baseline_families, score_families, activation_families, edge_families, window_families,
                         fp8_families,
-                        score_feature_families, varlen_families, paged_families})
+                        score_feature_families, varlen_families, paged_families, gradient_families})
       for (FamilyImpl& f : group()) all.push_back(f);
     std::vector<FamilyImpl> ordered;
     for (const FamilyInfo& info : kFamilies) {

@@ -88,6 +88,7 @@ std::vector<FamilyImpl> fp8_families();         // fp8_scales
 std::vector<FamilyImpl> score_feature_families();  // capped_logits, dominant_sinks
 std::vector<FamilyImpl> varlen_families();          // varlen_edges
 std::vector<FamilyImpl> paged_families();          // paged_decode
+std::vector<FamilyImpl> gradient_families();       // gradient_cancellation
 
 // ---- shared helpers (shapes.cpp) ----
 

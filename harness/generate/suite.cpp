@@ -61,6 +61,23 @@ void varlen_production(Builder& b, std::uint64_t base, int seeds) {
   }
 }
 
+// The backward's cases (docs/backward.md): rows where D_i cancels against dP
+// under every mask kind, with 8 query heads per kv head (dK and dV sum over
+// 8), and long rows up to `long_tk` keys, still judged on every row
+// (B·Hq·Tq·Tk ≤ kJudgedKeyRows, judge.h) so their gradients are judged too.
+void gradient_section(Builder& b, std::uint64_t base, int seeds, std::int64_t long_tk) {
+  for (int s = 0; s < seeds; ++s)
+    for (std::size_t m = 0; m < std::size(kAllMasks); ++m)
+      b.add("gradient_cancellation", base + 10 * static_cast<std::uint64_t>(s) + m, 50,
+            shape(1, 8, 1, 16, 40 + 8 * s, 32, 32), kAllMasks[m]);
+  std::uint64_t seed = base + 900;
+  for (std::int64_t tk = 1025; tk <= long_tk; tk = 2 * tk - 1) {
+    b.add("gradient_cancellation", seed++, 100, shape(1, 8, 1, tk > 8193 ? 4 : 8, tk, 64, 64),
+          MaskKind::causal_bottom_right);
+    b.add("gradient_cancellation", seed++, 100, shape(1, 8, 2, 4, tk - 1, 128, 128), MaskKind::key_padding);
+  }
+}
+
 std::vector<CaseRequest> quick() {
   Builder b;
   every_family(b, 1, 2, {20});
@@ -97,6 +114,7 @@ std::vector<CaseRequest> standard() {
   for (const FamilyInfo& f : kFamilies) b.add(f.name, 701, 30, std::nullopt, MaskKind::causal_bottom_right);
   full_head_blocks(b, 901, 4);
   varlen_production(b, 1701, 1);
+  gradient_section(b, 1801, 1, 4097);
   generate_internal::production_sections(b, generate_internal::Depth::standard, 1001);
   return b.take();
 }
@@ -122,6 +140,7 @@ std::vector<CaseRequest> deep() {
     for (MaskKind m : kAllMasks) b.add(f.name, 801, 30, std::nullopt, m);
   full_head_blocks(b, 901, 8);
   varlen_production(b, 2701, 4);
+  gradient_section(b, 2801, 4, 16385);
   generate_internal::production_sections(b, generate_internal::Depth::deep, 2001);
   return b.take();
 }

@@ -221,6 +221,18 @@ inline constexpr FamilyInfo kFamilies[] = {
      "Kwon et al. 2023, Efficient Memory Management for Large Language Model Serving with PagedAttention, "
      "§4 (block tables over a page pool, shared prefix blocks; from memory)",
      Level::core, "paged_kv"},
+    {"gradient_cancellation", "near-one-hot rows where the backward's D_i cancels against dP; groups of 8 heads; every mask",
+     "For judging backward kernels (docs/backward.md); the case carries its own upstream gradient dO. One key "
+     "j* per (batch, kv head) leads every query's score by 8 to 16 plus ln Tk (through a channel no other key "
+     "uses; under a bias mask also by the bias's largest gap), so P is near one-hot on every row that sees it "
+     "(j* is key 0 under causal and key-padding masks, which show it to every row that sees a key; its value entries are ±[1, 2)). Then "
+     "D_i = Σ_j P_ij dP_ij ≈ dP_ij* and dS_ij* = P_ij*(dP_ij* − D_i) is a difference of two nearly equal "
+     "numbers: a backward forming D_i from a wrong or early-rounded O gets it wrong in its leading digits. "
+     "dO (knob 0) is ±V_j* + 2^-4·N(0,1), so D_i ≈ ±|V_j*|² cancels at full size, or one of the generated "
+     "kinds (Gaussian, Student-t heavy tails, one-hot rows, 2^12-scaled; upstream_gradient.h). Half the cases "
+     "from size 30 have 8 query heads per kv head (dK, dV summed over 8); masks of every kind, plain (the masks "
+     "family carries the adversarial rows); long rows keep their cancellation since the margin grows with ln Tk.",
+     "", Level::core},
 };
 
 /// Returns: every family, in the order above.
