@@ -9,7 +9,9 @@
 // D_i = Σ_d dO_id O_id from the given O, dQ_i += s·dS_ij K_j and
 // dK_j += s·dS_ij Q_i. All arithmetic in float32; grouped-query dK and dV sum
 // over the group's heads. Keys no query sees keep dK = dV = 0; fully masked
-// rows (lse −inf) give dQ = 0. The forward entry is f32_tiled_64's.
+// rows (lse −inf) give dQ = 0. f32_backward_tiled declares
+// HR_BACKWARD_BIAS_GRAD: under a bias mask d(bias) = dS, the heads' dS added
+// in float32 when they share one bias. The forward entry is f32_tiled_64's.
 // f16_backward_f32acc takes binary16 Q, K, V, O, dO and writes binary16
 // gradients, accumulating in float32 (one rounding per output element).
 //
@@ -79,6 +81,10 @@ std::int32_t run_backward(const hr_backward_problem* bp) {
   const std::int64_t dk = p.key_dim, dv = p.value_dim, group = p.q_heads / p.kv_heads;
   std::vector<float> q(dk), d_o(dv), k(kTile * dk), v(kTile * dv), dk_acc(p.kv_len * dk), dv_acc(p.kv_len * dv);
   std::vector<float> dq_acc(p.q_len * dk), delta(p.q_len), o(dv);
+  // d(bias) [B, Hm, Tq, Tk], contiguous, when asked for: zero where no key is seen.
+  float* const d_bias = bp->d_bias;
+  const std::int64_t bias_heads = d_bias != nullptr ? p.mask.extents[1] : 0;
+  if (d_bias != nullptr) std::fill(d_bias, d_bias + p.batch * bias_heads * p.q_len * p.kv_len, 0.0f);
   for (std::int64_t b = 0; b < p.batch; ++b) {
     for (std::int64_t g = 0; g < p.kv_heads; ++g) {
       std::fill(dk_acc.begin(), dk_acc.end(), 0.0f);
@@ -129,6 +135,7 @@ std::int32_t run_backward(const hr_backward_problem* bp) {
                 for (std::int64_t d = 0; d < dk; ++d) dk_acc[j * dk + d] += p.scale * ds * q[d];
                 continue;
               }
+              if (d_bias != nullptr) d_bias[((b * bias_heads + (bias_heads == 1 ? 0 : h)) * p.q_len + i) * p.kv_len + j] += ds;
               const float sq = kDefect == Defect::no_scale ? 1.0f : p.scale;
               for (std::int64_t d = 0; d < dk; ++d) {
                 dq_acc[i * dk + d] += sq * ds * k[c * dk + d];
@@ -156,7 +163,7 @@ std::int32_t forward_f16(const hr_core_problem* p) { return f16_f32acc.run_core(
 
 constexpr hr_kernel declare(const char* name, const char* description, std::int32_t format,
                             std::int32_t (*forward)(const hr_core_problem*),
-                            std::int32_t (*backward)(const hr_backward_problem*)) {
+                            std::int32_t (*backward)(const hr_backward_problem*), std::uint32_t flags = 0) {
   return {
       .abi_version = HEADROOM_ABI_VERSION,
       .name = name,
@@ -189,7 +196,7 @@ constexpr hr_kernel declare(const char* name, const char* description, std::int3
       .features = 0,
       .split_kv_len = 0,
       .run_backward = backward,
-      .backward_flags = 0,
+      .backward_flags = flags,
   };
 }
 
@@ -197,7 +204,7 @@ constexpr hr_kernel declare(const char* name, const char* description, std::int3
 
 const hr_kernel f32_backward_tiled =
     declare("f32_backward_tiled", "float32 backward, key tiles of 64, P recomputed from the log-sum-exp",
-            HR_FORMAT_FLOAT32, forward_f32, run_backward<HR_FORMAT_FLOAT32>);
+            HR_FORMAT_FLOAT32, forward_f32, run_backward<HR_FORMAT_FLOAT32>, HR_BACKWARD_BIAS_GRAD);
 const hr_kernel f16_backward_f32acc =
     declare("f16_backward_f32acc", "binary16 storage backward with float32 accumulation, P from the log-sum-exp",
             HR_FORMAT_BINARY16, forward_f16, run_backward<HR_FORMAT_BINARY16>);

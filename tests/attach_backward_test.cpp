@@ -38,7 +38,7 @@ Case with_upstream(Case c, std::uint32_t seed) {
 TEST(AttachBackward, DeclarationCarriesTheBackwardEntry) {
   const auto k = attach_in_process(&hr_kernels::f32_backward_tiled);
   EXPECT_TRUE(k->declaration().backward);
-  EXPECT_EQ(k->declaration().backward_flags, 0u);
+  EXPECT_EQ(k->declaration().backward_flags, static_cast<std::uint32_t>(HR_BACKWARD_BIAS_GRAD));
   EXPECT_NE(declaration_summary(k->declaration()).find("backward=yes"), std::string::npos);
   EXPECT_FALSE(attach_in_process(&hr_kernels::f32_tiled_64)->declaration().backward);
 }
@@ -76,9 +76,24 @@ TEST(AttachBackward, GradientsComeBackInPlaceIsolatedOrNot) {
     const BackwardRun b = k->run_backward(r, fwd.out, fwd.lse, RunOptions{false, 20.0, 0});
     ASSERT_EQ(a.status, RunStatus::ok) << a.detail;
     ASSERT_EQ(b.status, RunStatus::ok) << b.detail;
-    EXPECT_TRUE(bit_identical(a.d_q, b.d_q) && bit_identical(a.d_k, b.d_k) && bit_identical(a.d_v, b.d_v));
-    EXPECT_TRUE(a.d_bias.values.empty());
+    EXPECT_TRUE(bit_identical(a.d_q, b.d_q) && bit_identical(a.d_k, b.d_k) && bit_identical(a.d_v, b.d_v) &&
+                bit_identical(a.d_bias, b.d_bias));
     const Grads want = plain_backward(r.received);
+    // d(bias) = dS only under a bias mask (the kernel declares HR_BACKWARD_BIAS_GRAD),
+    // summed over the heads when they share one bias.
+    EXPECT_EQ(a.d_bias.values.empty(), kind != MaskKind::bias);
+    if (kind == MaskKind::bias) {
+      const Tensor& bias = r.received.core.mask.bias;
+      ASSERT_EQ(a.d_bias.shape, bias.shape);
+      const CoreShape& s = r.received.core.shape;
+      Tensor d_bias(bias.shape);
+      for (std::int64_t bb = 0; bb < s.batch; ++bb)
+        for (std::int64_t h = 0; h < s.q_heads; ++h)
+          for (std::int64_t i = 0; i < s.q_len; ++i)
+            for (std::int64_t j = 0; j < s.kv_len; ++j) d_bias.at(bb, bias.shape[1] == 1 ? 0 : h, i, j) += want.d_s.at(bb, h, i, j);
+      for (std::size_t e = 0; e < d_bias.values.size(); ++e)
+        EXPECT_NEAR(a.d_bias.values[e], d_bias.values[e], 1e-4 * (1 + std::fabs(d_bias.values[e]))) << e;
+    }
     for (auto [got, exp] : {std::pair{&a.d_q, &want.d_q}, {&a.d_k, &want.d_k}, {&a.d_v, &want.d_v}}) {
       ASSERT_EQ(got->shape, exp->shape);
       for (std::size_t e = 0; e < got->values.size(); ++e)

@@ -143,6 +143,41 @@ TEST(ReferenceBackward, MatchesACentralFiniteDifferenceOfTheForward) {
   EXPECT_GT(checked, 40);
 }
 
+// A bias shared by the query heads ([B, 1, Tq, Tk]): d(bias) = Σ_h dS_h
+// (bias_gradient) against the finite difference of the shared element, which
+// moves every head's score at once; bounds within Hq·2^-51 of the magnitude.
+TEST(ReferenceBackward, SharedBiasGradientSumsTheHeadsAndMatchesAFiniteDifference) {
+  CoreShape s{1, 4, 2, 3, 5, 3, 2};
+  Case c = make_case(s, MaskKind::bias, 9);
+  std::mt19937_64 rng(10);
+  Tensor& bias = c.c.problem.mask.bias;
+  bias = testing::gaussian({1, 1, s.q_len, s.kv_len}, rng, 2.0);
+  bias.values[3] = -INFINITY;
+  const BackwardReference g = run(c, ReferenceMethod::fast, true);
+  const GradientReference d = bias_gradient(g, 1);
+  ASSERT_EQ(d.out.shape, bias.shape);
+  EXPECT_EQ(bias_gradient(g, s.q_heads).out.values, g.d_s.out.values);  // a bias per head: dS itself
+  constexpr double h = 0x1p-18, tol = 1e-8;  // as in the finite-difference test above
+  for (std::size_t e = 0; e < d.out.values.size(); ++e) {
+    if (std::isinf(bias.values[e])) {
+      EXPECT_EQ(d.out.values[e], 0.0);
+      EXPECT_EQ(d.bound.values[e], 0.0);
+      continue;
+    }
+    double heads = 0;
+    for (std::int64_t hq = 0; hq < s.q_heads; ++hq)
+      heads += g.d_s.out.values[static_cast<std::size_t>(hq) * d.out.values.size() + e];
+    EXPECT_NEAR(d.out.values[e], heads, 0x1p-50 * d.magnitude.values[e]);
+    EXPECT_GT(d.bound.values[e], 0.0);
+    EXPECT_LE(d.bound.values[e], static_cast<double>(s.q_heads) * 0x1p-51 * d.magnitude.values[e]);
+    Mask plus = c.c.problem.mask, minus = c.c.problem.mask;
+    plus.bias.values[e] += h;
+    minus.bias.values[e] -= h;
+    const double fd = (loss(c, c.c.inputs, plus) - loss(c, c.c.inputs, minus)) / (2 * h);
+    EXPECT_NEAR(d.out.values[e], fd, tol) << "shared d(bias) element " << e;
+  }
+}
+
 TEST(ReferenceBackward, GroupedQueryGradientsSumOverTheGroup) {
   CoreShape s{1, 4, 2, 3, 5, 4, 3};
   const Case gqa = make_case(s, MaskKind::causal_bottom_right, 31);

@@ -534,7 +534,12 @@ TEST(JUnit, CarriesEachGradientsWorstFigureBothWaysAndWhichGradientsWereJudged) 
     b.fed_exact[t].max_scaled_error = 1.5 + static_cast<double>(t);  // d_q 1.5, d_k 2.5, d_v 3.5
     b.end_to_end[t].max_scaled_error = 11 + static_cast<double>(t);  // 11, 12, 13
   }
+  b.bias_judged = true;  // gaussian: d_bias judged too, 4.5 and 14
+  b.fed_exact[3].max_scaled_error = 4.5;
+  b.end_to_end[3].max_scaled_error = 14;
   r.cases[1].backward = b;  // gaussian
+  b.bias_judged = false;
+  b.fed_exact[3].max_scaled_error = 40;  // not judged: must not show
   b.fed_exact[1].max_scaled_error = 20;  // masks: d_k fed exact 20, end to end not judged
   b.end_to_end_judged = false;
   r.cases[4].backward = b;
@@ -543,18 +548,20 @@ TEST(JUnit, CarriesEachGradientsWorstFigureBothWaysAndWhichGradientsWereJudged) 
   ASSERT_FALSE(parse_junit(dir / "r.xml").empty()) << read_file(dir / "r.xml");
   const std::string x = read_file(dir / "r.xml");
   for (const auto& [name, value] : {std::pair{"d_q.fed_exact", "1.5"}, {"d_k.fed_exact", "20"}, {"d_v.fed_exact", "3.5"},
-                                    {"d_q.end_to_end", "11"}, {"d_k.end_to_end", "12"}, {"d_v.end_to_end", "13"}})
+                                    {"d_q.end_to_end", "11"}, {"d_k.end_to_end", "12"}, {"d_v.end_to_end", "13"},
+                                    {"d_bias.fed_exact", "4.5"}, {"d_bias.end_to_end", "14"}})
     EXPECT_NE(x.find(std::string("<property name=\"") + name + ".max_scaled_error\" value=\"" + value + "\"/>"),
               std::string::npos)
         << name << " " << value << "\n" << x;
   EXPECT_NE(x.find("name=\"gradients_judged\" value=\"dQ, dK, dV on 2 cases: fed the exact O and lse on 2, end to end "
-                   "on 1; dO one_hot (2)\""),
+                   "on 1; d(bias) on 1; dO one_hot (2)\""),
             std::string::npos)
       << x;
   // Per family: gaussian's own figures; masks judged fed exact only.
   EXPECT_NE(x.find("gradients (1 case, 1 end to end): d_q worst scaled error fed the exact O and lse 1.5, end to end "
                    "11; d_k worst scaled error fed the exact O and lse 2.5, end to end 12; d_v worst scaled error fed "
-                   "the exact O and lse 3.5, end to end 13"),
+                   "the exact O and lse 3.5, end to end 13; d_bias worst scaled error fed the exact O and lse 4.5, end to "
+                   "end 14"),
             std::string::npos)
       << x;
   EXPECT_NE(x.find("gradients (1 case, 0 end to end): d_q worst scaled error fed the exact O and lse 1.5, end to end "

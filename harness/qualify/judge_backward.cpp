@@ -65,7 +65,10 @@ GradientFigures figures_of(const CaseScore& s) {
   return g;
 }
 
-const CaseScore& tensor(const GradientScores& s, std::size_t t) { return t == 0 ? s.d_q : t == 1 ? s.d_k : s.d_v; }
+const CaseScore& tensor(const GradientScores& s, std::size_t t) {
+  return t == 0 ? s.d_q : t == 1 ? s.d_k : t == 2 ? s.d_v : s.d_bias;
+}
+std::size_t tensors(const GradientScores& s) { return s.bias_judged ? 4 : 3; }
 
 void add_fault(CaseFaults& f, FaultClass c, std::string detail, std::int64_t count, std::vector<std::int64_t> where) {
   if (f.find(c) != nullptr) return;  // at most one per class; the forward's came first
@@ -88,7 +91,7 @@ bool call_failed(const BackwardRun& run, const char* way, Judgement& j) {
 
 void non_finite_faults(const GradientScores& s, const char* way, CaseFaults& f) {
   if (s.non_finite == 0) return;
-  for (std::size_t t = 0; t < 3; ++t) {
+  for (std::size_t t = 0; t < tensors(s); ++t) {
     const CaseScore& c = tensor(s, t);
     if (c.non_finite == 0) continue;
     add_fault(f, FaultClass::non_finite_gradient,
@@ -149,8 +152,8 @@ std::optional<PlainScores> plain_scores(AttachedKernel& plain, const ReceivedCas
   return p;
 }
 
-void set_ratios(std::array<GradientFigures, 3>& figs, const GradientScores& kernel, const GradientScores& plain) {
-  for (std::size_t t = 0; t < 3; ++t) {
+void set_ratios(std::array<GradientFigures, 4>& figs, const GradientScores& kernel, const GradientScores& plain) {
+  for (std::size_t t = 0; t < tensors(kernel) && t < tensors(plain); ++t) {
     const CaseScore& p = tensor(plain, t);
     if (p.non_finite == 0 && p.elements > 0) figs[t].ratio_to_plain = ratio_to_plain(tensor(kernel, t), p).max_scaled_error;
   }
@@ -177,10 +180,12 @@ void judge_backward(AttachedKernel& k, const ReceivedCase& rc, const Case& sourc
   const Format f = d.output_format;
   BackwardOptions bo;
   bo.base = opt.detect.reference;
+  // d(bias) = dS, judged where the kernel writes it (HR_BACKWARD_BIAS_GRAD on a bias mask).
+  bo.with_d_scores = (d.backward_flags & HR_BACKWARD_BIAS_GRAD) != 0 && rc.received.core.mask.kind == MaskKind::bias;
   const BackwardReference exact_ref = reference_backward(rc.received.core, rc.received.core_inputs, rc.received.d_o, bo);
   BackwardReference scored_ref = exact_ref;
   const std::int64_t beyond = exclude_beyond_range(scored_ref.d_q, f) + exclude_beyond_range(scored_ref.d_k, f) +
-                              exclude_beyond_range(scored_ref.d_v, f);
+                              exclude_beyond_range(scored_ref.d_v, f) + exclude_beyond_range(scored_ref.d_s, f);
   if (beyond > 0)
     j.faults.notes.push_back(std::to_string(beyond) + " exact gradient elements round beyond " +
                              std::string(format_name(f)) + "'s range: not scored");
@@ -194,7 +199,8 @@ void judge_backward(AttachedKernel& k, const ReceivedCase& rc, const Case& sourc
   const BackwardRun exact = k.run_backward(rc, o, lse, run);
   if (call_failed(exact, "fed the exact O and lse", j)) return;
   const GradientScores exact_scores = score_gradients(exact, scored_ref, f);
-  for (std::size_t t = 0; t < 3; ++t) figs.fed_exact[t] = figures_of(tensor(exact_scores, t));
+  figs.bias_judged = exact_scores.bias_judged;
+  for (std::size_t t = 0; t < tensors(exact_scores); ++t) figs.fed_exact[t] = figures_of(tensor(exact_scores, t));
   non_finite_faults(exact_scores, "fed the exact O and lse", j.faults);
 
   // End to end: the kernel's own forward outputs, as training feeds them.
@@ -208,7 +214,7 @@ void judge_backward(AttachedKernel& k, const ReceivedCase& rc, const Case& sourc
     const BackwardRun own = k.run_backward(rc, first.out, own_lse, run);
     if (call_failed(own, "fed its own forward", j)) return;
     own_scores = score_gradients(own, scored_ref, f);
-    for (std::size_t t = 0; t < 3; ++t) figs.end_to_end[t] = figures_of(tensor(*own_scores, t));
+    for (std::size_t t = 0; t < tensors(*own_scores); ++t) figs.end_to_end[t] = figures_of(tensor(*own_scores, t));
     non_finite_faults(*own_scores, "fed its own forward", j.faults);
   }
 
@@ -283,8 +289,8 @@ std::vector<VerdictReason> judge_gradients(CaseRecord& rec, const CaseScore& fwd
   rec.limits.max_gradient_scaled_error_end_to_end = e2e_limit;
   rec.limits.max_gradient_ratio_to_plain = ratio_limit;
   const std::string& origin = budget.max_gradient_scaled_error.origin;
-  auto check = [&](const std::array<GradientFigures, 3>& way, const char* name, double limit, std::int64_t n) {
-    for (std::size_t t = 0; t < 3; ++t) {
+  auto check = [&](const std::array<GradientFigures, 4>& way, const char* name, double limit, std::int64_t n) {
+    for (std::size_t t = 0; t < b.tensors(); ++t) {
       const GradientFigures& g = way[t];
       if (!(g.max_scaled_error <= limit)) {
         VerdictReason r;

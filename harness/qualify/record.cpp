@@ -244,9 +244,9 @@ CaseLimits limits_from(const Reader& r) {
   return l;
 }
 
-json gradients_json(const std::array<GradientFigures, 3>& g) {
+json gradients_json(const std::array<GradientFigures, 4>& g, std::size_t tensors) {
   json j = json::object();
-  for (std::size_t t = 0; t < g.size(); ++t)
+  for (std::size_t t = 0; t < tensors; ++t)
     j[kGradientNames[t]] = {{"max_ulp", number(g[t].max_ulp)},
                             {"max_scaled_error", number(g[t].max_scaled_error)},
                             {"rmse", number(g[t].rmse)},
@@ -256,9 +256,9 @@ json gradients_json(const std::array<GradientFigures, 3>& g) {
   return j;
 }
 
-std::array<GradientFigures, 3> gradients_from(const Reader& r) {
-  std::array<GradientFigures, 3> g{};
-  for (std::size_t t = 0; t < g.size(); ++t) {
+std::array<GradientFigures, 4> gradients_from(const Reader& r, std::size_t tensors) {
+  std::array<GradientFigures, 4> g{};
+  for (std::size_t t = 0; t < tensors; ++t) {
     const Reader e(r.field(kGradientNames[t]), r.file(), r.place() + " " + kGradientNames[t]);
     g[t].max_ulp = e.size_like("max_ulp");
     g[t].max_scaled_error = e.size_like("max_scaled_error");
@@ -271,17 +271,20 @@ std::array<GradientFigures, 3> gradients_from(const Reader& r) {
 }
 
 json backward_json(const BackwardFigures& b) {
-  return {{"fed_exact", gradients_json(b.fed_exact)},
-          {"end_to_end", b.end_to_end_judged ? gradients_json(b.end_to_end) : json(nullptr)},
+  return {{"fed_exact", gradients_json(b.fed_exact, b.tensors())},
+          {"end_to_end", b.end_to_end_judged ? gradients_json(b.end_to_end, b.tensors()) : json(nullptr)},
           {"upstream", b.upstream},
           {"spread", number(b.spread)}};
 }
 
 BackwardFigures backward_from(const Reader& r) {
   BackwardFigures b;
-  b.fed_exact = gradients_from(Reader(r.field("fed_exact"), r.file(), r.place() + " fed_exact"));
+  const Reader fed(r.field("fed_exact"), r.file(), r.place() + " fed_exact");
+  b.bias_judged = fed.has(kGradientNames[3]);  // d_bias: written only where judged
+  b.fed_exact = gradients_from(fed, b.tensors());
   b.end_to_end_judged = !r.field("end_to_end").is_null();
-  if (b.end_to_end_judged) b.end_to_end = gradients_from(Reader(r.field("end_to_end"), r.file(), r.place() + " end_to_end"));
+  if (b.end_to_end_judged)
+    b.end_to_end = gradients_from(Reader(r.field("end_to_end"), r.file(), r.place() + " end_to_end"), b.tensors());
   b.upstream = r.str("upstream");
   b.spread = r.size_like("spread");
   return b;
@@ -308,8 +311,10 @@ double BackwardFigures::worst_scaled_error() const {
   double worst = 0;
   for (const auto* way : {&fed_exact, &end_to_end}) {
     if (way == &end_to_end && !end_to_end_judged) continue;
-    for (const GradientFigures& g : *way)
+    for (std::size_t t = 0; t < tensors(); ++t) {
+      const GradientFigures& g = (*way)[t];
       if (std::isnan(g.max_scaled_error) || g.max_scaled_error > worst) worst = g.max_scaled_error;
+    }
   }
   return worst;
 }
@@ -318,8 +323,10 @@ double BackwardFigures::worst_ratio_to_plain() const {
   double worst = std::numeric_limits<double>::quiet_NaN();
   for (const auto* way : {&fed_exact, &end_to_end}) {
     if (way == &end_to_end && !end_to_end_judged) continue;
-    for (const GradientFigures& g : *way)
+    for (std::size_t t = 0; t < tensors(); ++t) {
+      const GradientFigures& g = (*way)[t];
       if (!std::isnan(g.ratio_to_plain) && !(g.ratio_to_plain <= worst)) worst = g.ratio_to_plain;
+    }
   }
   return worst;
 }

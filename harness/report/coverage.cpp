@@ -158,6 +158,7 @@ Coverage coverage(const RunRecord& r) {
     if (c.backward) {
       ++cov.gradients_judged;
       if (c.backward->end_to_end_judged) ++cov.gradients_end_to_end;
+      if (c.backward->bias_judged) ++cov.gradients_bias;
       ++cov.upstream[c.backward->upstream];
     }
     const auto s = parse_shape(c.level, c.shape);

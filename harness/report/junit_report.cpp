@@ -28,7 +28,7 @@ std::string gradient_text(const RunRecord& r) {
   const GradientSummary g = summarise_gradients(r);
   if (g.cases == 0) return "";
   std::string s = fmt::format("gradients ({} case{}, {} end to end):", g.cases, g.cases == 1 ? "" : "s", g.end_to_end_cases);
-  for (std::size_t t = 0; t < 3; ++t)
+  for (std::size_t t = 0; t < g.tensors(); ++t)
     s += fmt::format("{} {} worst scaled error fed the exact O and lse {}, end to end {}", t ? ";" : "",
                      kGradientNames[t], figure_text(g.worst_fed_exact[t]),
                      g.end_to_end_cases > 0 ? figure_text(g.worst_end_to_end[t]) : "—");
@@ -106,7 +106,7 @@ std::string junit_report(const RunRecord& r) {
       x += fmt::format("      <property name=\"gradients_judged\" value=\"{}\"/>\n", xml_escape(line.text));
   const GradientSummary grads = summarise_gradients(r);
   if (grads.cases > 0) {
-    for (std::size_t t = 0; t < 3; ++t) {
+    for (std::size_t t = 0; t < grads.tensors(); ++t) {
       x += fmt::format("      <property name=\"{}.fed_exact.max_scaled_error\" value=\"{}\"/>\n", kGradientNames[t],
                        xml_escape(figure_text(grads.worst_fed_exact[t])));
       x += fmt::format("      <property name=\"{}.end_to_end.max_scaled_error\" value=\"{}\"/>\n", kGradientNames[t],

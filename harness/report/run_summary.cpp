@@ -71,7 +71,7 @@ GroupSummary summarise(const std::vector<const CaseRecord*>& cases, std::string 
     keep_max(g.worst_rel_rmse, f.relative_rmse);
     keep_max(g.worst_ratio_to_plain, f.ratio_to_plain);
     if (c->backward)
-      for (std::size_t t = 0; t < 3; ++t) {
+      for (std::size_t t = 0; t < c->backward->tensors(); ++t) {
         keep_max(g.worst_gradient_fed_exact, c->backward->fed_exact[t].max_scaled_error);
         if (c->backward->end_to_end_judged)
           keep_max(g.worst_gradient_end_to_end, c->backward->end_to_end[t].max_scaled_error);
@@ -107,12 +107,14 @@ CaseMargin case_margin(const CaseRecord& c) {
   consider("max_ulp", c.figures.max_ulp, c.limits.max_ulp);
   consider("max_ratio_to_plain", c.figures.ratio_to_plain, c.limits.max_ratio_to_plain);
   if (c.backward) {
-    for (const GradientFigures& g : c.backward->fed_exact) {
+    for (std::size_t t = 0; t < c.backward->tensors(); ++t) {
+      const GradientFigures& g = c.backward->fed_exact[t];
       consider("max_gradient_scaled_error", g.max_scaled_error, c.limits.max_gradient_scaled_error);
       consider("max_gradient_ratio_to_plain", g.ratio_to_plain, c.limits.max_gradient_ratio_to_plain);
     }
     if (c.backward->end_to_end_judged) {
-      for (const GradientFigures& g : c.backward->end_to_end) {
+      for (std::size_t t = 0; t < c.backward->tensors(); ++t) {
+        const GradientFigures& g = c.backward->end_to_end[t];
         consider("max_gradient_scaled_error", g.max_scaled_error, c.limits.max_gradient_scaled_error_end_to_end);
         consider("max_gradient_ratio_to_plain", g.ratio_to_plain, c.limits.max_gradient_ratio_to_plain);
       }
@@ -133,7 +135,8 @@ GradientSummary summarise_gradients(const RunRecord& r) {
     ++g.cases;
     ++g.upstream[b.upstream];
     if (b.end_to_end_judged) ++g.end_to_end_cases;
-    for (std::size_t t = 0; t < 3; ++t) {
+    if (b.bias_judged) ++g.bias_cases;
+    for (std::size_t t = 0; t < b.tensors(); ++t) {
       bigger(g.worst_fed_exact[t], b.fed_exact[t].max_scaled_error);
       bigger(g.worst_rel_rmse[t], b.fed_exact[t].relative_rmse);
       g.lowest_cosine[t] = std::min(g.lowest_cosine[t], b.fed_exact[t].cosine);

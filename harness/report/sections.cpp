@@ -84,17 +84,18 @@ std::vector<Line> coverage_lines(const Coverage& cov) {
   out.push_back({"Gradients judged",
                  cov.gradients_judged == 0
                      ? std::string("none (the kernel has no backward entry, or no core case ran): dQ, dK, dV unjudged")
-                     : fmt::format("dQ, dK, dV on {}: fed the exact O and lse on {}, end to end on {}; dO {}",
+                     : fmt::format("dQ, dK, dV on {}: fed the exact O and lse on {}, end to end on {}; d(bias) on {}; "
+                                   "dO {}",
                                    cases_text(cov.gradients_judged), cov.gradients_judged, cov.gradients_end_to_end,
-                                   counted(cov.upstream))});
+                                   cov.gradients_bias, counted(cov.upstream))});
   return out;
 }
 
 std::vector<Line> gradient_lines(const GradientSummary& g) {
   std::vector<Line> out;
   if (g.cases == 0) return out;
-  const char* labels[3] = {"dQ", "dK", "dV"};
-  for (std::size_t t = 0; t < 3; ++t)
+  const char* labels[4] = {"dQ", "dK", "dV", "d(bias)"};
+  for (std::size_t t = 0; t < g.tensors(); ++t)
     out.push_back({labels[t], fmt::format("worst scaled error fed the exact O and lse {}, end to end {}; worst "
                                           "relative RMSE {}; lowest cosine {}",
                                           figure_text(g.worst_fed_exact[t]),

@@ -156,9 +156,12 @@ std::string terminal_summary(const RunRecord& r, bool colour) {
       out += fmt::format("  gradients judged on {} case(s), worst scaled error fed exact O/lse: dQ {}, dK {}, dV {}",
                          g.cases, figure_text(g.worst_fed_exact[0]), figure_text(g.worst_fed_exact[1]),
                          figure_text(g.worst_fed_exact[2]));
+      if (g.bias_cases > 0) out += fmt::format(", d(bias) {}", figure_text(g.worst_fed_exact[3]));
       if (g.end_to_end_cases > 0)
         out += fmt::format("; end to end: dQ {}, dK {}, dV {}", figure_text(g.worst_end_to_end[0]),
                            figure_text(g.worst_end_to_end[1]), figure_text(g.worst_end_to_end[2]));
+      if (g.end_to_end_cases > 0 && g.bias_cases > 0)
+        out += fmt::format(", d(bias) {}", figure_text(g.worst_end_to_end[3]));
       if (!std::isnan(g.worst_ratio_to_plain))
         out += "; worst ratio to the plain backward " + figure_text(g.worst_ratio_to_plain);
       out += " (case " + g.worst_case + ")\n";

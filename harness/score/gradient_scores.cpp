@@ -3,15 +3,26 @@
 
 #include <algorithm>
 #include <cmath>
+#include <optional>
 #include <tuple>
+#include <vector>
 
 #include "headroom/format.h"
 
 namespace headroom {
 
 double GradientScores::max_scaled_error() const {
-  return std::max({d_q.max_scaled_error, d_k.max_scaled_error, d_v.max_scaled_error});
+  return std::max({d_q.max_scaled_error, d_k.max_scaled_error, d_v.max_scaled_error,
+                   bias_judged ? d_bias.max_scaled_error : 0.0});
 }
+
+namespace {
+// The certified d(bias) of the run's shape, when both sides have one.
+std::optional<GradientReference> bias_reference(const BackwardRun& run, const BackwardReference& ref) {
+  if (run.d_bias.values.empty() || ref.d_s.out.values.empty() || run.d_bias.shape.size() != 4) return std::nullopt;
+  return bias_gradient(ref, run.d_bias.shape[1]);
+}
+}  // namespace
 
 GradientScores score_gradients(const BackwardRun& run, const BackwardReference& ref, Format f) {
   GradientScores s;
@@ -19,6 +30,11 @@ GradientScores score_gradients(const BackwardRun& run, const BackwardReference& 
   s.d_k = score_gradient(run.d_k, ref.d_k, ref.certified, f);
   s.d_v = score_gradient(run.d_v, ref.d_v, ref.certified, f);
   s.non_finite = s.d_q.non_finite + s.d_k.non_finite + s.d_v.non_finite;
+  if (const auto bias = bias_reference(run, ref)) {
+    s.d_bias = score_gradient(run.d_bias, *bias, ref.certified, f);
+    s.bias_judged = true;
+    s.non_finite += s.d_bias.non_finite;
+  }
   // A key no query sees: no term at all, so reference 0 with bound 0 and
   // magnitude 0 (reference_backward.h). Its gradient must be exactly 0.
   for (auto [got, want] : {std::pair{&run.d_k, &ref.d_k}, std::pair{&run.d_v, &ref.d_v}}) {
@@ -44,8 +60,11 @@ bool same_gradients(const BackwardRun& a, const BackwardRun& b) {
 double gradient_spread(const BackwardRun& a, const BackwardRun& b, const BackwardReference& ref, Format f) {
   double worst = 0;
   const double u = unit_roundoff(f);
-  for (auto [x, y, r] : {std::tuple{&a.d_q, &b.d_q, &ref.d_q}, std::tuple{&a.d_k, &b.d_k, &ref.d_k},
-                         std::tuple{&a.d_v, &b.d_v, &ref.d_v}}) {
+  std::vector<std::tuple<const Tensor*, const Tensor*, const GradientReference*>> tensors{
+      {&a.d_q, &b.d_q, &ref.d_q}, {&a.d_k, &b.d_k, &ref.d_k}, {&a.d_v, &b.d_v, &ref.d_v}};
+  const std::optional<GradientReference> bias = bias_reference(a, ref);
+  if (bias && b.d_bias.shape == a.d_bias.shape) tensors.emplace_back(&a.d_bias, &b.d_bias, &*bias);
+  for (auto [x, y, r] : tensors) {
     for (std::size_t i = 0; i < x->values.size(); ++i) {
       const double d = std::fabs(x->values[i] - y->values[i]);
       if (d == 0) continue;

@@ -28,22 +28,28 @@ namespace headroom {
 
 struct GradientScores {
   CaseScore d_q, d_k, d_v;
-  std::int64_t non_finite = 0;        ///< over the three tensors
+  /// d(bias) against the certified dS (bias_gradient, reference_backward.h),
+  /// when the run returned one and the reference carries dS; else not judged.
+  CaseScore d_bias;
+  bool bias_judged = false;
+  std::int64_t non_finite = 0;        ///< over the tensors judged
   std::int64_t masked_key_leaks = 0;  ///< dK, dV elements of keys no query sees that are not exactly 0
   std::vector<std::int64_t> first_masked_key_leak;  ///< (b, g, j, d) of the first, empty when none
-  /// Returns: the largest max_scaled_error of the three.
+  /// Returns: the largest max_scaled_error of the tensors judged.
   double max_scaled_error() const;
 };
 
-/// Returns: the scores of a backward run's dQ, dK, dV against `ref`, in
-/// output format f. Preconditions: run.status is ok; shapes as the reference's
-/// (std::invalid_argument otherwise).
+/// Returns: the scores of a backward run's dQ, dK, dV (and d(bias) when the
+/// run has one and ref.d_s is filled: BackwardOptions::with_d_scores) against
+/// `ref`, in output format f: d(bias) is float32 by the ABI but judged in the
+/// kernel's output format's units like the other gradients. Preconditions:
+/// run.status is ok; shapes as the reference's (std::invalid_argument otherwise).
 GradientScores score_gradients(const BackwardRun& run, const BackwardReference& ref, Format f);
 
 /// Returns: whether two runs gave bit-identical gradients (every tensor).
 bool same_gradients(const BackwardRun& a, const BackwardRun& b);
 
-/// Returns: the largest element-wise spread |a − b| over the three tensors,
+/// Returns: the largest element-wise spread |a − b| over the tensors (d(bias) too when both have one and ref.d_s is filled),
 /// in units of each element's natural magnitude times u_F (the scaled error of
 /// one run against the other): the figure a nondeterministic kernel is judged on.
 double gradient_spread(const BackwardRun& a, const BackwardRun& b, const BackwardReference& ref, Format f);

@@ -75,7 +75,7 @@ inline ::testing::AssertionResult WithinBudget(const std::string& kernel_spec, c
            << budget.source << "), max scaled error " << c.figures.max_scaled_error;
     if (c.backward) {  // a backward kernel: each gradient's max scaled error, both ways (docs/backward.md)
       result << "; gradients judged, max scaled error fed the exact O and lse / end to end:";
-      for (std::size_t t = 0; t < 3; ++t) {
+      for (std::size_t t = 0; t < c.backward->tensors(); ++t) {
         result << (t ? "," : "") << " " << kGradientNames[t] << " " << c.backward->fed_exact[t].max_scaled_error << " / ";
         if (c.backward->end_to_end_judged) {
           result << c.backward->end_to_end[t].max_scaled_error;

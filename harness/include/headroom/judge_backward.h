@@ -7,7 +7,8 @@
 // exact O and log-sum-exp (the certified forward rounded to the formats the
 // ABI passes: O to the output format, lse to float32), and fed the kernel's
 // own forward outputs (end to end) — each scored per gradient tensor
-// (gradient_scores.h). Faults: non_finite_gradient, masked_key_gradient,
+// (gradient_scores.h; d(bias) against the certified dS too when the kernel
+// declares HR_BACKWARD_BIAS_GRAD and the mask is a bias). Faults: non_finite_gradient, masked_key_gradient,
 // wrong_group_sum, nondeterministic (a further call fed the exact inputs
 // differs in a bit; a kernel declaring HR_BACKWARD_NONDETERMINISTIC is judged
 // on the spread instead, against the fed-exact gradient limit), and a call
@@ -45,7 +46,7 @@ void judge_backward(AttachedKernel& k, const ReceivedCase& rc, const Case& sourc
 std::unique_ptr<AttachedKernel> plain_backward_for(const KernelDeclaration& d);
 
 /// Returns: why the gradients in rec.backward are outside `budget` (none when
-/// within or not judged): each tensor's max scaled error fed exact against
+/// within or not judged): each tensor's (d(bias) included when judged) max scaled error fed exact against
 /// gradient_scaled_error_limit(n_g, fwd, 2) and end to end against
 /// gradient_scaled_error_limit(n_g + n, fwd, 3) — n_g the gradient and n the
 /// forward accumulation length of `shape` — and each ratio to the plain

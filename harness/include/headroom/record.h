@@ -60,16 +60,22 @@ struct GradientFigures {
                                                                      ///< same-precision backward; NaN if n/a
 };
 
-/// The gradient tensors, in the order of GradientFigures arrays.
-inline constexpr const char* kGradientNames[3] = {"d_q", "d_k", "d_v"};
+/// The gradient tensors, in the order of GradientFigures arrays; d_bias
+/// (= dS) only where BackwardFigures::bias_judged.
+inline constexpr const char* kGradientNames[4] = {"d_q", "d_k", "d_v", "d_bias"};
 
 /// A backward kernel's gradients on one case, judged two ways: fed the exact
 /// O and log-sum-exp (the backward's own error) and fed the kernel's own
 /// forward outputs (end to end, as training sees it).
 struct BackwardFigures {
-  std::array<GradientFigures, 3> fed_exact{};   ///< d_q, d_k, d_v
-  std::array<GradientFigures, 3> end_to_end{};  ///< d_q, d_k, d_v
+  std::array<GradientFigures, 4> fed_exact{};   ///< d_q, d_k, d_v, d_bias
+  std::array<GradientFigures, 4> end_to_end{};  ///< d_q, d_k, d_v, d_bias
   bool end_to_end_judged = true;  ///< false when the kernel's forward gave no lse to feed it
+  /// d(bias) judged: the kernel declares HR_BACKWARD_BIAS_GRAD and the mask is
+  /// a bias; otherwise the arrays' last entries are unused.
+  bool bias_judged = false;
+  /// Returns: how many tensors of each array were judged: 4 with d(bias), else 3.
+  std::size_t tensors() const { return bias_judged ? 4 : 3; }
   std::string upstream;           ///< where dO came from: "case" (d_o.npy) or the generated kind
   double spread = 0;              ///< a kernel declaring nondeterminism: largest scaled spread of two calls
   /// Returns: the largest max_scaled_error over the tensors of both ways.

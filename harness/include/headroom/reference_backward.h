@@ -79,3 +79,21 @@ BackwardReference reference_backward(const CoreProblem& p, const CoreInputs& in,
                                      const BackwardOptions& opt = {});
 
 }  // namespace headroom
+
+namespace headroom {
+
+/// Returns: the certified d(bias) [B, mask_heads, Tq, Tk] of a bias mask from
+/// ref.d_s (BackwardOptions::with_d_scores): dS itself when the bias has a
+/// head per query head (mask_heads = Hq); with one bias shared by the heads
+/// (mask_heads = 1), d(bias)_bij = Σ_h dS_bhij, the heads' values added in
+/// double by Sum2 (Ogita, Rump & Oishi 2005, "Accurate sum and dot product",
+/// Alg. 4.4; its error before the last rounding is at most γ_{n−1}² Σ|p_h|,
+/// the proof of Prop. 4.5, from memory) with the bound Σ_h (bound_h +
+/// 2^-52 |dS_h|) + γ_n² Σ_h |dS_h| and magnitude Σ_h magnitude_h (the
+/// magnitudes of the summed terms). On a shared bias the heads' own
+/// roundings to double make that bound up to about Hq·2^-52 of the magnitude
+/// rather than 2^target: still 2^-27 of a float32 unit at Hq = 16.
+/// Preconditions: ref.d_s is filled; mask_heads is 1 or Hq.
+GradientReference bias_gradient(const BackwardReference& ref, std::int64_t mask_heads);
+
+}  // namespace headroom

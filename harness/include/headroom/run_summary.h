@@ -72,13 +72,16 @@ struct LimitedFigures {
 LimitedFigures limited_figures(const RunRecord& r);
 
 /// The gradients of the cases whose backward was judged (docs/backward.md):
-/// per tensor (d_q, d_k, d_v, kGradientNames) the worst of each figure.
+/// per tensor (d_q, d_k, d_v, d_bias: kGradientNames) the worst of each figure.
 struct GradientSummary {
   std::size_t cases = 0;             ///< cases with gradients judged
   std::size_t end_to_end_cases = 0;  ///< of them, judged end to end too
-  std::array<double, 3> worst_fed_exact{}, worst_end_to_end{};  ///< max scaled error
-  std::array<double, 3> worst_rel_rmse{};                       ///< both ways
-  std::array<double, 3> lowest_cosine{1, 1, 1};                 ///< both ways
+  std::size_t bias_cases = 0;        ///< of them, with d(bias) judged (d_bias figures 0 when none)
+  std::array<double, 4> worst_fed_exact{}, worst_end_to_end{};  ///< max scaled error
+  std::array<double, 4> worst_rel_rmse{};                       ///< both ways
+  std::array<double, 4> lowest_cosine{1, 1, 1, 1};              ///< both ways
+  /// Returns: how many tensors the figures cover: 4 when some case judged d(bias), else 3.
+  std::size_t tensors() const { return bias_cases > 0 ? 4 : 3; }
   double worst_ratio_to_plain = std::numeric_limits<double>::quiet_NaN();
   std::string worst_case;            ///< the case of the largest max scaled error
   std::map<std::string, std::size_t> upstream;  ///< dO kind ("case", "gaussian", ...) → cases
@@ -167,6 +170,7 @@ struct Coverage {
   std::vector<std::pair<std::string, std::size_t>> skipped_reasons;
   std::size_t gradients_judged = 0;  ///< cases whose backward was judged (CaseRecord::backward)
   std::size_t gradients_end_to_end = 0;
+  std::size_t gradients_bias = 0;  ///< of them, with d(bias) judged too
   std::map<std::string, std::size_t> upstream;  ///< dO kinds of those cases
   /// Plain statements of what a reader could wrongly conclude from the
   /// verdict (no masked case, no long sequence, no block level, ...), one each.
