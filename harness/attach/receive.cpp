@@ -172,10 +172,10 @@ ReceivedCase receive(Case&& source, const KernelDeclaration& d) {
     } else {
       for (Tensor* t : {&c.core_inputs.q, &c.core_inputs.k, &c.core_inputs.v}) round_in_place(*t, d.input_format);
     }
-    // dO, when the case carries one, in the input format like Q, K, V (int8
-    // kernels, which have no backward, keep it float32).
-    if (!c.d_o.values.empty())
-      round_in_place(c.d_o, d.input_format == Format::int8 ? Format::float32 : d.input_format);
+    // dO, when the case carries one, in the input format like Q, K, V (kernels
+    // receiving codes with scales, int8 and the 8-bit floats, have no backward
+    // and keep it float32).
+    if (!c.d_o.values.empty()) round_in_place(c.d_o, is_quantised(d.input_format) ? Format::float32 : d.input_format);
   } else {
     c.block.mask = received_mask(c.block.mask);
     BlockInputs& in = c.block_inputs;
