@@ -16,7 +16,7 @@
 namespace headroom::detail {
 
 /// Rows whose dK and dV terms kv_scatter takes together.
-inline constexpr int kScatterRows = 4;
+inline constexpr int kScatterRows = 16;
 
 /// One query row of a (batch, kv head) block. Row vectors are zero-padded to
 /// kLanes (dk_pad, dv_pad); key-indexed arrays are [Tk][pad] of the block.
