@@ -46,6 +46,68 @@ std::int64_t exclude_beyond_range(GradientReference& g, Format f) {
   return n;
 }
 
+// The underflow of the backward's products in its working format (float32,
+// float64 for a float64 kernel: the formats the default budgets' score_bits
+// assume). With gradual underflow a product (or exp) errs by u·|r| + η, η half
+// the smallest subnormal, while sums of subnormals are exact (Higham 2002,
+// Accuracy and Stability of Numerical Algorithms, §2.1, the model with
+// underflow, from memory). A weight P_ij = exp(z_ij − lse_i) below 2^-126
+// holds only a few bits in float32, or is flushed, so a key of negligible
+// weight gets dK, dV, d(bias) with a relative error up to 1 however well the
+// rest is done (large_logits rows of standard: 1.2e6 scaled units on dK, with
+// every weight rounded as float32 has to). Each element's unit u_F·M gets η
+// times the coefficients the weight's and each later product's η reach it
+// through, term by term (A_ij = Σ_d |dO_id||V_jd|, A_i = Σ_j P_ij A_ij):
+//   dV_jd  += η (|dO_id| + 1)                       (P, then P·dO)
+//   dS_ij  += η (A_ij + A_i + 1)                     (P, then P·(dP − D))
+//   dQ_id  += η ((A_ij + A_i + 1)(|s| + 1)|K_jd| + 1) (then s·dS and ·K)
+//   dK_jd  += η ((A_ij + A_i + 1)(|s| + 1)|Q_id| + 1) (then s·dS and ·Q)
+// summed over the visible terms, in double (a budget coordinate, not a
+// certified bound): the magnitudes in `ref` become M + that/u_F.
+void add_underflow_floor(BackwardReference& ref, const Case& received, const CoreReference& fwd, Format f) {
+  const double eta = f == Format::float64 ? 0x1p-1074 : 0x1p-150;  // float64: its smallest subnormal (half is not a double)
+  const double inv_u = 1.0 / unit_roundoff(f);
+  const CoreProblem& p = received.core;
+  const CoreShape& s = p.shape;
+  const CoreInputs& in = received.core_inputs;
+  const Tensor& d_o = received.d_o;
+  const double scale = std::fabs(static_cast<double>(p.scale)), sc1 = scale + 1;
+  const bool with_ds = !ref.d_s.out.values.empty();
+  std::vector<double> z(static_cast<std::size_t>(s.kv_len)), a(static_cast<std::size_t>(s.kv_len));
+  for (std::int64_t b = 0; b < s.batch; ++b)
+    for (std::int64_t h = 0; h < s.q_heads; ++h) {
+      const std::int64_t g = kv_head_of(s, h);
+      for (std::int64_t i = 0; i < s.q_len; ++i) {
+        const double lse = fwd.lse.at(b, h, i);
+        if (!std::isfinite(lse)) continue;  // fully masked (or unsampled): no gradient flows
+        double a_i = 0;
+        for (std::int64_t j = 0; j < s.kv_len; ++j) {
+          const auto u = static_cast<std::size_t>(j);
+          a[u] = -1;
+          if (!p.mask.visible(s, b, h, i, j)) continue;
+          double dot = 0, aj = 0;
+          for (std::int64_t d = 0; d < s.key_dim; ++d) dot += in.q.at(b, h, i, d) * in.k.at(b, g, j, d);
+          for (std::int64_t d = 0; d < s.value_dim; ++d) aj += std::fabs(d_o.at(b, h, i, d) * in.v.at(b, g, j, d));
+          z[u] = static_cast<double>(p.scale) * dot + p.mask.bias_at(b, h, i, j);
+          a[u] = aj;
+          a_i += std::exp(z[u] - lse) * aj;
+        }
+        for (std::int64_t j = 0; j < s.kv_len; ++j) {
+          const auto u = static_cast<std::size_t>(j);
+          if (a[u] < 0) continue;
+          const double c = a[u] + a_i + 1;
+          for (std::int64_t d = 0; d < s.value_dim; ++d)
+            ref.d_v.magnitude.at(b, g, j, d) += eta * (std::fabs(d_o.at(b, h, i, d)) + 1) * inv_u;
+          for (std::int64_t d = 0; d < s.key_dim; ++d) {
+            ref.d_q.magnitude.at(b, h, i, d) += eta * (c * sc1 * std::fabs(in.k.at(b, g, j, d)) + 1) * inv_u;
+            ref.d_k.magnitude.at(b, g, j, d) += eta * (c * sc1 * std::fabs(in.q.at(b, h, i, d)) + 1) * inv_u;
+          }
+          if (with_ds) ref.d_s.magnitude.at(b, h, i, j) += eta * c * inv_u;
+        }
+      }
+    }
+}
+
 // The exact forward as the ABI passes it: O in the output format (0 on fully
 // masked rows), lse in float32 (−inf there).
 void exact_forward(const CoreReference& ref, Format f, Tensor& o, Tensor& lse) {
@@ -190,6 +252,7 @@ void judge_backward(AttachedKernel& k, const ReceivedCase& rc, const Case& sourc
     j.faults.notes.push_back(std::to_string(beyond) + " exact gradient elements round beyond " +
                              std::string(format_name(f)) + "'s range: not scored");
   if (!exact_ref.certified) j.record.reference_certified = false;
+  add_underflow_floor(scored_ref, rc.received, ref, f);
 
   BackwardFigures figs;
   figs.upstream = source.d_o.values.empty() ? std::string(upstream_kind_name(upstream_kind_for(source))) : "case";
