@@ -58,6 +58,7 @@ const hr_bundled_kernel kTable[] = {
     {&softcap_after_mask, 1, "mask_leak",
      "soft cap applied after the mask: tanh(-inf) = -1 gives masked keys the score -c, so they are attended"},
     {&sink_dropped, 1, "error", "sink logit left out of the softmax normaliser: rows too large by (S + e^sink) / S"},
+    {&lse_bf16_buffer, 1, "error", "log-sum-exp kept in a bfloat16 buffer: off by up to 2^-9 |L|, outputs right"},
     {&varlen_offset_off_by_one, 1, "mask_leak",
      "packed key range read to cu_kv_lens[n+1] + 1: each sequence but the last attends the next one's first key"},
     {&paged_last_page_whole, 1, "mask_leak",

@@ -52,6 +52,7 @@ extern const hr_kernel e4m3_block_scale_shifted;
 extern const hr_kernel e4m3_p_unscaled;
 extern const hr_kernel softcap_after_mask;
 extern const hr_kernel sink_dropped;
+extern const hr_kernel lse_bf16_buffer;
 extern const hr_kernel varlen_offset_off_by_one;
 extern const hr_kernel paged_last_page_whole;
 extern const hr_kernel split_merge_unnormalised;

@@ -285,6 +285,22 @@ TEST(RatioToPlain, GuardsZerosWithTheCorrectRoundingFloor) {
   EXPECT_THROW(ratio_to_plain(k, p), std::invalid_argument);
 }
 
+TEST(RatioToPlain, LogSumExpErrorAgainstThePlainKernelsWithAFloat32Floor) {
+  CaseScore k, p;
+  k.unit_roundoff = p.unit_roundoff = 0x1p-24;
+  // Neither returns a log-sum-exp: no ratio (NaN is never over a limit).
+  EXPECT_TRUE(std::isnan(ratio_to_plain(k, p).lse));
+  k.lse_error = 3e-4;
+  EXPECT_TRUE(std::isnan(ratio_to_plain(k, p).lse));
+  p.lse_error = 1e-4, p.lse_magnitude = 2.0;
+  EXPECT_DOUBLE_EQ(ratio_to_plain(k, p).lse, 3.0);
+  // A nearly exact plain kernel is credited with 8 float32 roundings of max(1, max|L*|).
+  p.lse_error = 0;
+  EXPECT_DOUBLE_EQ(ratio_to_plain(k, p).lse, 3e-4 / (8 * 0x1p-24 * 2.0));
+  p.lse_magnitude = 0.25;
+  EXPECT_DOUBLE_EQ(ratio_to_plain(k, p).lse, 3e-4 / (8 * 0x1p-24));
+}
+
 TEST(SplitQuantisation, GivesInputAndArithmeticErrorsSeparately) {
   CoreReference source = two_row_reference();
   CoreReference received = two_row_reference();

@@ -152,6 +152,11 @@ Verdict judge(const CaseScore* score, const CaseFaults& faults, const KernelBudg
         v.reasons.push_back(over_limit("max_ratio_to_plain", ratio->rmse, limit,
                                        how + " (RMSE against the plain kernel's)", budget.max_ratio_to_plain.origin, ""));
       }
+      if (ratio->lse > limit) {  // NaN (no log-sum-exp on either side) is never over
+        v.reasons.push_back(over_limit("max_ratio_to_plain", ratio->lse, limit,
+                                       how + " (log-sum-exp error against the plain kernel's)",
+                                       budget.max_ratio_to_plain.origin, ""));
+      }
     }
   }
   v.pass = v.reasons.empty();

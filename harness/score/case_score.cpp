@@ -191,6 +191,7 @@ void score_lse(CaseScore& s, const Tensor* lse, const CoreReference& ref) {
       continue;
     }
     worst = std::max(worst, std::fabs(got - want));
+    s.lse_magnitude = std::max(s.lse_magnitude, std::fabs(want));
   }
   s.lse_error = worst;
 }
@@ -244,6 +245,9 @@ PlainRatio ratio_to_plain(const CaseScore& kernel, const CaseScore& plain) {
     r.rmse = kernel.rmse / floor;
   } else {
     r.rmse = kernel.rmse == 0 ? 0.0 : kInf;
+  }
+  if (kernel.lse_error && plain.lse_error) {
+    r.lse = *kernel.lse_error / std::max(*plain.lse_error, 8 * 0x1p-24 * std::max(1.0, plain.lse_magnitude));
   }
   return r;
 }

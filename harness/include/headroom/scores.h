@@ -21,6 +21,7 @@
 
 #include <array>
 #include <cstdint>
+#include <limits>
 #include <optional>
 #include <string>
 #include <vector>
@@ -101,6 +102,7 @@ struct CaseScore {
   double rms_expected = 0;          ///< RMS(o*)
   double rms_magnitude = 0;         ///< RMS(M): RMS(M)/RMS(o*) ≥ 1 measures the case's cancellation
   std::optional<double> lse_error;  ///< max |L − L*| over rows not fully masked; absent when no lse given
+  double lse_magnitude = 0;         ///< max |L*| over the rows lse_error covers
   std::int64_t lse_non_finite = 0;  ///< non-finite L where L* is finite (excluded from lse_error)
 
   std::vector<double> row_max_scaled;  ///< max scaled error per output row (core (b,h,i), block (b,i)); 0 if none scored
@@ -165,6 +167,12 @@ struct PlainRatio {
                                 ///< nearly exact plain kernel on cancelling rows does not make a sound
                                 ///< kernel fail; 0 when both are 0 and the floor is 0, +inf when only
                                 ///< the kernel's is
+  double lse = std::numeric_limits<double>::quiet_NaN();  ///< the kernel's lse_error / max(the plain
+                                ///< kernel's, 8·2^-24·max(1, max|L*|)): the plain kernel is credited
+                                ///< with 8 float32 roundings of the largest |L*| (the log-sum-exp is
+                                ///< float32 in the ABI; 8 is common practice, no source), so a plain
+                                ///< result that happens to be nearly exact does not fail a sound
+                                ///< kernel; NaN when either returns no log-sum-exp
 };
 
 /// Returns: the ratios of `kernel` to `plain`.
