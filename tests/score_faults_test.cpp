@@ -3,7 +3,6 @@
 #include <gtest/gtest.h>
 
 #include <cmath>
-#include <cstring>
 #include <limits>
 #include <random>
 #include <string>
@@ -164,16 +163,12 @@ struct Outcome {
   CoreReference ref;
 };
 
-bool same_bits(const Tensor& a, const Tensor& b) {
-  return a.shape == b.shape && std::memcmp(a.values.data(), b.values.data(), a.values.size() * sizeof(double)) == 0;
-}
-
 // The leak probes poison the case in place (faults.h): every value and code
 // must come back bit for bit, whichever way detect_faults returned.
 void expect_restored(const ReceivedCase& before, const ReceivedCase& after) {
   const CoreInputs &x = before.received.core_inputs, &y = after.received.core_inputs;
-  EXPECT_TRUE(same_bits(x.q, y.q) && same_bits(x.k, y.k) && same_bits(x.v, y.v));
-  EXPECT_TRUE(same_bits(before.received.block_inputs.x_kv, after.received.block_inputs.x_kv));
+  EXPECT_TRUE(bit_identical(x.q, y.q) && bit_identical(x.k, y.k) && bit_identical(x.v, y.v));
+  EXPECT_TRUE(bit_identical(before.received.block_inputs.x_kv, after.received.block_inputs.x_kv));
   for (auto m : {&ReceivedCase::k8, &ReceivedCase::v8}) {
     ASSERT_EQ((before.*m).has_value(), (after.*m).has_value());
     if ((before.*m).has_value()) {

@@ -7,7 +7,7 @@
 #      tests labelled python and package: they run Python example programs and
 #      a downstream CMake project, whose C++ side (the CLI, the attach modes)
 #      the sanitized CLI and attach tests already reach; stage 1 runs them;
-#   3. the fuzz targets from that build, FUZZ_SECONDS each (default 30 here),
+#   3. the fuzz targets from that build, FUZZ_SECONDS each (default 20 here),
 #      one per core at a time (tools/fuzz.sh).
 # Usage: tools/test.sh
 #   HEADROOM_TEST_STAGES   which stages to run (default "plain asan fuzz")
@@ -38,7 +38,7 @@ asan() {
 }
 
 fuzz() {
-  FUZZ_SECONDS=${FUZZ_SECONDS:-30} tools/fuzz.sh
+  FUZZ_SECONDS=${FUZZ_SECONDS:-20} tools/fuzz.sh
 }
 
 total=$SECONDS
