@@ -30,6 +30,7 @@
 #include <vector>
 
 #include "common.h"
+#include "fp8_attention.h"
 #include "hadamard_rotation.h"
 #include "headroom/fp8.h"
 #include "kernel_list.h"
@@ -57,9 +58,8 @@ float code_value(double x, float s) {
   return headroom::fp8_to_float(headroom::double_to_fp8(x / static_cast<double>(s), Fp8Kind::e4m3, true), Fp8Kind::e4m3);
 }
 
-float rounded_weight(float w) {
-  return headroom::fp8_to_float(headroom::float_to_fp8(w * kPScale, Fp8Kind::e4m3, true), Fp8Kind::e4m3) / kPScale;
-}
+// P rounding as e4m3_blockwise: normalised weights ×480 to E4M3, saturating (fp8_attention.h).
+const Fp8Config kPRounding{true, kPScale, true};
 
 // The rows of one key/value head, rotated (K) or not (V), with each row's
 // largest magnitude and, per block, the codes under the scale last used.
@@ -159,7 +159,7 @@ std::int32_t run(const hr_core_problem* p) {
           for (std::int64_t j = 0; j < tk; ++j) l += std::exp(z[static_cast<std::size_t>(j)] - m);
           std::fill(acc.begin(), acc.end(), 0.0f);
           for (std::int64_t j = 0; j < tk; ++j) {
-            const float w = rounded_weight(std::exp(z[static_cast<std::size_t>(j)] - m) / l);
+            const float w = fp8_rounded_weight(std::exp(z[static_cast<std::size_t>(j)] - m) / l, kPRounding);
             if (w == 0.0f) continue;  // masked and flushed keys: V is not read
             const float s = sv[static_cast<std::size_t>(j / kBlock)];
             const float* v = values.code.data() + j * dv;

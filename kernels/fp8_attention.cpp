@@ -24,14 +24,13 @@ float decode(const hr_tensor& t, std::int64_t b, std::int64_t h, std::int64_t i,
   return table.value[static_cast<const std::uint8_t*>(t.data)[offset(t.strides, b, h, i, d)]];
 }
 
-// The weight as the P·V product sees it: w·p_scale rounded to E4M3, divided back.
-float rounded_weight(float w, const Fp8Config& c) {
+}  // namespace
+
+float fp8_rounded_weight(float w, const Fp8Config& c) {
   if (c.p_scale_forgotten) return headroom::fp8_to_float(headroom::float_to_fp8(w, Fp8Kind::e4m3, c.saturating), Fp8Kind::e4m3);
   const std::uint8_t code = headroom::float_to_fp8(w * c.p_scale, Fp8Kind::e4m3, c.saturating);
   return headroom::fp8_to_float(code, Fp8Kind::e4m3) / c.p_scale;
 }
-
-}  // namespace
 
 std::int32_t run_fp8_attention(const hr_core_problem* p, const hr_kernel& k, const Fp8Config& c) {
   const MaskView mask(p->mask, p->q_len, p->kv_len);
@@ -73,7 +72,7 @@ std::int32_t run_fp8_attention(const hr_core_problem* p, const hr_kernel& k, con
         if (c.normalised) {
           float l = 0.0f;
           for (std::int64_t j = 0; j < tk; ++j) l += std::exp(z[j] - m_all);
-          for (std::int64_t j = 0; j < tk; ++j) add_value(j, rounded_weight(std::exp(z[j] - m_all) / l, c));
+          for (std::int64_t j = 0; j < tk; ++j) add_value(j, fp8_rounded_weight(std::exp(z[j] - m_all) / l, c));
           write_row(*p, b, h, i, acc.data(), m_all, 1.0f);
           if (float* out = lse_at(*p, b, h, i)) *out = m_all + std::log(l);
           continue;
@@ -91,7 +90,7 @@ std::int32_t run_fp8_attention(const hr_core_problem* p, const hr_kernel& k, con
           for (std::int64_t j = j0; j < j1; ++j) {
             const float e = std::exp(z[j] - m);
             l += e;
-            add_value(j, rounded_weight(e, c));
+            add_value(j, fp8_rounded_weight(e, c));
           }
         }
         write_row(*p, b, h, i, acc.data(), m, l);

@@ -55,6 +55,10 @@ inline std::int64_t fp8_scale_index(const hr_tensor& t, std::int32_t g, std::int
   }
 }
 
+/// Returns: weight w as the P·V product sees it under configuration c:
+/// w·p_scale rounded to E4M3 (saturating as c says), divided back.
+float fp8_rounded_weight(float w, const Fp8Config& c);
+
 /// Returns: HR_OK after writing O (and log-sum-exp) of `p` for a kernel
 /// declared `k` with configuration `c`; HR_UNSUPPORTED for formats or
 /// granularities it does not handle (per-channel scales).
