@@ -21,6 +21,7 @@
 #include "headroom/qualify.h"
 #include "headroom/record.h"
 #include "kernel_list.h"
+#include "qualify_support.h"
 
 namespace headroom {
 namespace {
@@ -51,14 +52,7 @@ std::vector<PlannedCase> bias_cases() {
   return out;
 }
 
-RunRecord qualify(AttachedKernel& k) {
-  RunnerOptions opt;
-  opt.judge.detect.run.isolate = false;
-  const std::unique_ptr<AttachedKernel> plain = plain_backward_for(k.declaration());
-  opt.judge.plain_backward = plain.get();
-  opt.apply_budget = budget_applier(default_budget(Format::float32));
-  return run_cases(k, bias_cases(), opt);
-}
+RunRecord qualify(AttachedKernel& k) { return testing::qualify_backward_in_process(k, bias_cases()); }
 
 TEST(QualifyBiasGradient, SoundKernelIsJudgedOnDBiasAndPasses) {
   const auto k = attach_in_process(&hr_kernels::f32_backward_tiled);

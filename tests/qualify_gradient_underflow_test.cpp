@@ -21,6 +21,7 @@
 #include "headroom/qualify.h"
 #include "headroom/record.h"
 #include "kernel_list.h"
+#include "qualify_support.h"
 
 namespace headroom {
 namespace {
@@ -54,12 +55,7 @@ std::int32_t doubled_dv(const hr_backward_problem* p) {
 }
 
 RunRecord qualify(AttachedKernel& k) {
-  RunnerOptions opt;
-  opt.judge.detect.run.isolate = false;
-  const std::unique_ptr<AttachedKernel> plain = plain_backward_for(k.declaration());
-  opt.judge.plain_backward = plain.get();
-  opt.apply_budget = budget_applier(default_budget(Format::float32));
-  return run_cases(k, {{underflow_case(), std::nullopt, {}, {}}}, opt);
+  return testing::qualify_backward_in_process(k, {{underflow_case(), std::nullopt, {}, {}}});
 }
 
 TEST(QualifyGradientUnderflow, AWeightBelowFloat32sNormalRangeIsAllowedItsFewBits) {
