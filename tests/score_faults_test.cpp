@@ -307,17 +307,24 @@ TEST(Detectors, NondeterminismTheDeterminismRunsMissIsNoMaskLeak) {
       << classes(o.faults);
 }
 
-TEST(Detectors, WrongHeadReadIsConventionNotMaskLeak) {
-  // Two kv heads with different dense masks: head 0 reading kv head 1 sees the
-  // keys poisoned for head 1, which head 0 may see.
+// A dense mask of shape [1, 2, 4, 6] giving two kv heads disjoint keys: head 0
+// sees keys 0-2, head 1 keys 3-5 (for the grouped-head order probe).
+Mask heads_apart_mask() {
   Mask dense;
   dense.kind = MaskKind::dense;
   dense.allowed = Tensor({1, 2, 4, 6});
   for (std::int64_t i = 0; i < 4; ++i)
     for (std::int64_t j = 0; j < 6; ++j) {
-      dense.allowed.at(0, 0, i, j) = j < 3 ? 1.0 : 0.0;   // head 0 sees keys 0-2
-      dense.allowed.at(0, 1, i, j) = j >= 3 ? 1.0 : 0.0;  // head 1 sees keys 3-5
+      dense.allowed.at(0, 0, i, j) = j < 3 ? 1.0 : 0.0;
+      dense.allowed.at(0, 1, i, j) = j >= 3 ? 1.0 : 0.0;
     }
+  return dense;
+}
+
+TEST(Detectors, WrongHeadReadIsConventionNotMaskLeak) {
+  // Two kv heads with different dense masks: head 0 reading kv head 1 sees the
+  // keys poisoned for head 1, which head 0 may see.
+  const Mask dense = heads_apart_mask();
   TestKernel k(Defect::wrong_head);
   const Outcome o = judge(k, core_case({1, 2, 2, 4, 6, 3, 2}, dense, 11));
   for (const Fault& f : o.faults.faults) EXPECT_NE(f.kind, FaultClass::mask_leak) << classes(o.faults);
@@ -337,14 +344,7 @@ TEST(Detectors, JitterThatCoincidesWithOtherHeadsPoisonIsNoConvention) {
   // growth rule the probe called this a grouped-head convention fault, and
   // racy_reduction's jitter a convention fault or a mask leak of mass ~6e-11
   // (4 runs in 60 of the quick gaussian suite).
-  Mask dense;
-  dense.kind = MaskKind::dense;
-  dense.allowed = Tensor({1, 2, 4, 6});
-  for (std::int64_t i = 0; i < 4; ++i)
-    for (std::int64_t j = 0; j < 6; ++j) {
-      dense.allowed.at(0, 0, i, j) = j < 3 ? 1.0 : 0.0;
-      dense.allowed.at(0, 1, i, j) = j >= 3 ? 1.0 : 0.0;
-    }
+  const Mask dense = heads_apart_mask();
   TestKernel k(Defect::jitter_when_poisoned);
   const Outcome o = judge(k, core_case({1, 2, 2, 4, 6, 3, 2}, dense, 11));
   EXPECT_TRUE(o.faults.faults.empty()) << classes(o.faults);
