@@ -2,7 +2,7 @@
 //
 // Notation as fast_row.inc: u = 2^-53, dd = an unevaluated sum hi + lo,
 // normalised when |lo| ≤ u|hi|. One query row i with n visible keys; the
-// forward kernel (FastCore::run_row) gives weights ŵ_j and Ŝ with, per
+// forward kernel (FastCore::run_row_weights) gives weights ŵ_j and Ŝ with, per
 // fast_core.cpp (a)–(c), w_j = ŵ_j(1 + φ_j), |φ_j| ≤ φ̄, |S − Ŝ| ≤ ε_S·Ŝ_low.
 //
 //  (1) P̂_j = ŵ_j/Ŝ as the forward's quotient (row_outputs: relative error
@@ -314,7 +314,7 @@ void BackwardFast::run_block(std::int64_t block, BackwardReference& ref, Scratch
       }
       ++stats.rows;
       FastRowOut o;
-      fast_.run_row(row, rs, o);
+      fast_.run_row_weights(row, rs, o);
       FastCore::WeightBounds wb;
       if (!o.ok || !FastCore::weight_bounds(o, static_cast<std::int64_t>(rs.keys.size()), false, wb)) {
         failed = true;
@@ -369,7 +369,11 @@ void BackwardFast::run_block(std::int64_t block, BackwardReference& ref, Scratch
           grid = false;
           ++stats.dp_dot2_rows;
         }
-        sc.dp_sigma[x] = bj > 0x1p-902 ? std::ldexp(1.0, std::ilogb(bj) + 2) : 0x1p-900;
+        // 2^(ilogb(b_j) + 2) by the exponent field (b_j normal here; an infinite or NaN
+        // b_j has turned the grid off above and its σ_j is not used).
+        sc.dp_sigma[x] = bj > 0x1p-902 ? 4 * std::bit_cast<double>(std::bit_cast<std::uint64_t>(bj) &
+                                                                   0x7ff0000000000000ULL)
+                                       : 0x1p-900;
         sc.dp_eps[x] = add_up(mul_up(dp_coef_, sc.dp_sigma[x]), dp_floor_);
       }
       // (2), (3); once more with Dot2 when the grid's c_e exceeds kGridDotMax.
@@ -394,8 +398,9 @@ void BackwardFast::run_block(std::int64_t block, BackwardReference& ref, Scratch
         delta = {0, 0};
         double u_sum = 0, ap = 0, a_neg = 0, ep = 0, eps_max = 0;
         a_max = 0;
+        const NonnegSumUp a_up(grid ? dvp + 3 : dv);
         for (std::size_t x = 0; x < nz; ++x) {
-          const double a = nonneg_sum_up(sc.a[x], grid ? dvp + 3 : dv);
+          const double a = a_up(sc.a[x]);
           sc.a[x] = a;
           if (rw.ph[x] == 0.0) {
             a_neg += a;
@@ -514,13 +519,14 @@ void BackwardFast::run_block(std::int64_t block, BackwardReference& ref, Scratch
       const double e_acc = e_acc_up(n);
       const double coef = q_grid ? tau : add_up(tau, mul_up(lambda, e_acc));
       const double tiny = mul_up(static_cast<double>(n), 0x1p-1071);
+      const NonnegSumUp q_mag_up(2 * n);
       for (std::int64_t d = 0; d < dk; ++d) {
         const auto du = static_cast<std::size_t>(d);
         if (k_max[du] == 0 || exact_zero(sc.q_mag[du], n_neg, m_row_min, k_min[du])) {  // (6): exactly 0
           put(ref.d_q, dq_at + du, 0, 0, 0);
           continue;
         }
-        const double mag = nonneg_sum_up(sc.q_mag[du], 2 * n);
+        const double mag = q_mag_up(sc.q_mag[du]);
         double bound = add_up(mul_up(coef, mag), tiny);
         if (q_grid) bound = add_up(bound, ge.at(sc.q_sigma[du]));
         bound = add_up(bound, mul_up(add_up(mul_up(static_cast<double>(n_neg), nu), mul_up(static_cast<double>(n),
@@ -569,6 +575,7 @@ void BackwardFast::run_block(std::int64_t block, BackwardReference& ref, Scratch
       for (std::int64_t d = 0; d < dv; ++d) pending.push_back({GradKind::d_v, b, g, j, d});
       continue;
     }
+    const NonnegSumUp mag_up(2 * rows), err_up(2 * rows + 2);
     const double k_coef = add_up(tau_max, mul_up(lambda_max, e_acc));
     const double k_abs = add_up(mul_up(static_cast<double>(neg), nu_max), mul_up(static_cast<double>(rows), 0x1p-1060));
     for (std::int64_t d = 0; d < dk; ++d) {
@@ -578,9 +585,9 @@ void BackwardFast::run_block(std::int64_t block, BackwardReference& ref, Scratch
         put(ref.d_k, at, 0, 0, 0);
         continue;
       }
-      const double mag = nonneg_sum_up(sc.k_mag[kat + du], 2 * rows);
+      const double mag = mag_up(sc.k_mag[kat + du]);
       double bound = add_up(add_up(mul_up(k_coef, mag), mul_up(k_abs, q_max[du])), tiny);
-      bound = add_up(bound, nonneg_sum_up(sc.k_err[kat + du], 2 * rows + 2));
+      bound = add_up(bound, err_up(sc.k_err[kat + du]));
       const double sl = scale * sc.k_lo[kat + du];
       const double out = std::fma(scale, sc.k_hi[kat + du], sl);
       bound = add_up(mul_up(abs_s, bound), add_up(mul_up(0x1p-52, std::fabs(sl)), 0x1p-1074));
@@ -597,9 +604,9 @@ void BackwardFast::run_block(std::int64_t block, BackwardReference& ref, Scratch
         put(ref.d_v, at, 0, 0, 0);
         continue;
       }
-      const double mag = nonneg_sum_up(sc.v_mag[vat + du], 2 * rows);
+      const double mag = mag_up(sc.v_mag[vat + du]);
       double bound = add_up(add_up(mul_up(v_coef, mag), mul_up(v_abs, do_max[du])), tiny);
-      bound = add_up(bound, mul_up(nonneg_sum_up(sc.v_err[vat + du], 2 * rows + 2), 1.0 + kU));
+      bound = add_up(bound, mul_up(err_up(sc.v_err[vat + du]), 1.0 + kU));
       const double magnitude = mul_down(sc.v_mag[vat + du], 1.0 - kMagSlack);
       put(ref.d_v, at, sc.v_hi[vat + du] + sc.v_lo[vat + du], bound, magnitude);
       if (!meets(bound, magnitude, allowed_rel)) pending.push_back({GradKind::d_v, b, g, j, d});

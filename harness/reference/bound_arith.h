@@ -67,10 +67,15 @@ inline double gamma_up(std::int64_t n, double u) {
 /// errs by a factor (1+δ), |δ| ≤ 2^-53, in the normal range, or by at most
 /// 2^-1075 absolutely in the subnormal range (IEEE 754-2019 §4.3.1, §7.5), so
 /// exact ≤ (computed + ops·2^-1074)·(1 + γ_ops).
-inline double nonneg_sum_up(double computed, std::int64_t ops) {
-  const double slack = mul_up(static_cast<double>(ops), 0x1p-1074);
-  return mul_up(add_up(computed, slack), add_up(1.0, gamma_up(ops, 0x1p-53)));
-}
+/// NonnegSumUp(ops) holds the two constants for a fixed `ops`, for loops over many
+/// sums: NonnegSumUp(ops)(computed) is nonneg_sum_up(computed, ops), bit for bit.
+struct NonnegSumUp {
+  double slack, factor;
+  explicit NonnegSumUp(std::int64_t ops)
+      : slack(mul_up(static_cast<double>(ops), 0x1p-1074)), factor(add_up(1.0, gamma_up(ops, 0x1p-53))) {}
+  double operator()(double computed) const { return mul_up(add_up(computed, slack), factor); }
+};
+inline double nonneg_sum_up(double computed, std::int64_t ops) { return NonnegSumUp(ops)(computed); }
 
 /// Returns: an upper bound of sqrt(Σ x_c²) for n values `stride` apart.
 inline double norm_up(const double* x, std::int64_t n, std::int64_t stride = 1) {

@@ -269,6 +269,13 @@ void FastCore::run_row(std::int64_t row, RowScratch& rs, FastRowOut& o) const {
   kernels_->group(&a, &o, 1);
 }
 
+void FastCore::run_row_weights(std::int64_t row, RowScratch& rs, FastRowOut& o) const {
+  FastRowArgs a;
+  prepare_row(row, rs, a, o);
+  a.weights_only = true;
+  kernels_->group(&a, &o, 1);
+}
+
 bool FastCore::weight_bounds(const FastRowOut& o, std::int64_t n, bool wide, WeightBounds& wb) {
   const double r = add_up(mul_up(o.r_max, 1.0 + 0x1p-40), 0x1p-1000);
   wb.phi = weight_uncertainty_up(r, kFastExpRelErr);

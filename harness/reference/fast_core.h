@@ -63,6 +63,9 @@ class FastCore {
   /// rs.keys[idx] (0 for a negligible key) and `o` holds Ŝ and the
   /// uncertainties; o.ok false means the row could not be finished.
   void run_row(std::int64_t row, RowScratch& rs, FastRowOut& o) const;
+  /// run_row up to the weights only (FastRowArgs::weights_only): the same
+  /// weights, Ŝ, r_max and negligible count, bit for bit; no outputs or lse.
+  void run_row_weights(std::int64_t row, RowScratch& rs, FastRowOut& o) const;
 
   /// The certified uncertainties of a finished row's weights, (a)–(c) of fast_core.cpp.
   struct WeightBounds {

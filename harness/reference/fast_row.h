@@ -76,6 +76,10 @@ struct FastRowArgs {
   /// (fast_row.inc, weighted_sums_grid) unless no_grid, and acc ≥ 6·dv_pad.
   const double* v_max = nullptr;
   bool no_grid = false;
+  /// group() only: stop after the weights (w_hi, w_lo, Ŝ, r_max, negligible);
+  /// no weighted sums, outputs or lse are computed, and o.ok says only that the
+  /// weights and Ŝ are finite (the backward, which needs no forward output).
+  bool weights_only = false;
   const FastTables* tables = nullptr;
   // Scratch, caller-owned: raw_hi/raw_lo ≥ Tk rounded up to kLanes, w_hi/w_lo ≥ n rounded up
   // to kLanes, acc ≥ 4·dv_pad.
