@@ -15,7 +15,12 @@
 // that crashes, times out or writes out of bounds as the forward's classes
 // (detail "backward: ..."). Gradient elements whose exact value rounds beyond
 // the output format's range are excluded from scores and from
-// non_finite_gradient, and counted in a note. The ratio to the plain
+// non_finite_gradient, and counted in a note. Each element's unit is widened
+// by the underflow of the products its terms pass through, so a weight below
+// the working format's normal range is not charged as the kernel's error
+// (judge_backward.cpp, add_underflow_floor: η = 2^-150 per product in float32,
+// 2^-1074 in float64, times the coefficients it reaches the element through).
+// The ratio to the plain
 // same-precision backward (JudgeOptions::plain_backward) is taken per tensor
 // and way, the plain backward fed the same exact O/lse, or its own forward.
 #pragma once
