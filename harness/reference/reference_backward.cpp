@@ -144,6 +144,7 @@ BackwardReference detail::reference_backward_with(const CoreProblem& p, const Co
     ref.stats.escalated_elements += w.stats.escalated_elements;
     ref.stats.dp_dot2_rows += w.stats.dp_dot2_rows;
     ref.stats.dq_cascade_rows += w.stats.dq_cascade_rows;
+    ref.stats.charged_rows += w.stats.charged_rows;
     if (w.mp) ref.stats.max_precision = std::max(ref.stats.max_precision, w.mp->max_precision_used());
   }
   return ref;

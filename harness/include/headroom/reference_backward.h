@@ -55,6 +55,7 @@ struct BackwardStats {
   long max_precision = 0;               ///< highest precision used (bits; 0 if none)
   std::int64_t dp_dot2_rows = 0;     ///< fast path: rows whose dP left the grid for the cascaded dot product
   std::int64_t dq_cascade_rows = 0;  ///< fast path: rows whose dQ sums left the grid for the cascade
+  std::int64_t charged_rows = 0;     ///< fast path: rows whose dK/dV terms were charged one by one (τ above kCleanTau)
 };
 
 struct BackwardReference {
