@@ -279,6 +279,26 @@ TEST(Terminal, FailureLineOfAFaultAloneLeavesTheElementFiguresOut) {
   EXPECT_EQ(line.find("expected="), std::string::npos) << line;
 }
 
+// A case failing on its log-sum-exp alone (or on a gradient limit alone) names
+// that figure, not the output's worst element, which may be within budget.
+TEST(Terminal, FailureLineOfALogSumExpOrGradientLimitAloneLeavesTheOutputElementOut) {
+  RunRecord r = seven_cases();
+  CaseRecord& c = r.cases[1];
+  c.figures.lse_error = 0.0009765625;
+  c.reasons = {"max_ratio_to_plain 2423 exceeds 4 (605.8x the limit); limit 4 (log-sum-exp error against the plain "
+               "kernel's), default for float32"};
+  std::string line = failure_line(r, c);
+  EXPECT_EQ(line.find("expected="), std::string::npos) << line;
+  EXPECT_NE(line.find(" lse_error=0.0009766 replay: "), std::string::npos) << line;
+  c.reasons = {"max_gradient_scaled_error 5e+06 exceeds 1e+05 (50x the limit); d_k fed the exact O and log-sum-exp"};
+  line = failure_line(r, c);
+  EXPECT_EQ(line.find("expected="), std::string::npos) << line;
+  EXPECT_EQ(line.find("lse_error="), std::string::npos) << line;
+  // With an output figure failing too, the element is printed as before.
+  c.reasons.push_back("max_scaled_error 7 > 6");
+  EXPECT_NE(failure_line(r, c).find(" at=[0,1,3,5] expected="), std::string::npos);
+}
+
 TEST(Terminal, WorstFigureIsPrintedOnAPassToo) {
   RunRecord r = seven_cases();
   for (auto& c : r.cases) c.within_budget = true;

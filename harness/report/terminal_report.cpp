@@ -58,10 +58,17 @@ std::string failure_line(const RunRecord& r, const CaseRecord& c) {
   // Every figure here is of the one element printed: the worst scaled error's.
   // A case with no scored element (a crash, a timeout, bad output) has none to print.
   const CaseFigures& f = c.figures;
-  // Element figures only where a figure limit failed the case: beside a fault
-  // alone (a leak, a crash) they would explain nothing.
-  bool figure_failed = c.reasons.empty();
-  for (const auto& reason : c.reasons) figure_failed = figure_failed || reason.rfind("max_", 0) == 0;
+  // Element figures only where a limit on the output's figures failed the
+  // case: beside a fault alone (a leak, a crash), a gradient limit or the
+  // log-sum-exp's, the output's worst element would explain nothing (and may
+  // well be within budget); the log-sum-exp's own worst error is given instead.
+  bool figure_failed = c.reasons.empty(), lse_failed = false;
+  for (const auto& reason : c.reasons) {
+    if (reason.rfind("max_", 0) != 0 || reason.rfind("max_gradient", 0) == 0) continue;
+    if (reason.find("(log-sum-exp error") != std::string::npos) lse_failed = true;
+    else figure_failed = true;
+  }
+  if (lse_failed && !figure_failed && !std::isnan(f.lse_error)) line += " lse_error=" + figure_text(f.lse_error);
   if (!f.worst_index.empty() && f.elements > 0 && figure_failed) {
     const int digits = r.output_format == "float64" ? 17 : 9;  // enough to round-trip the format (IEEE 754 §5.12.2)
     line += fmt::format(" at=[{}] expected={:.{}g} ({}) obtained={:.{}g} ({})", f.worst_index, f.worst_expected, digits,
