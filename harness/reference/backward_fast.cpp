@@ -285,11 +285,12 @@ void BackwardFast::run_block(std::int64_t block, BackwardReference& ref, Scratch
   args.k_fresh = sc.k_fresh.data();
   args.k_rows = sc.k_rows.data();
   const double grid_allowed = std::ldexp(1.0, opt_.base.target_log2 - 2);
-  // (5): the dK and dV terms of up to kScatterRows consecutive rows go into the
+  // (5): the dK and dV terms of up to group_rows consecutive rows go into the
   // accumulators together, key by key and within a key row by row: the
   // operations on each accumulator, and their order, are those of one row at
   // a time, with each key's accumulators read from memory once per group.
   BackwardRowArgs group_args[kScatterRows];
+  const int group_rows = scatter_rows_for(tk);
   int filled = 0;
   auto scatter = [&] {
     if (filled > 0) kr.kv_scatter(group_args, filled, tk);
@@ -554,7 +555,7 @@ void BackwardFast::run_block(std::int64_t block, BackwardReference& ref, Scratch
       }
       // (5) the row's terms of dK and dV, with those of the rows beside it.
       group_args[filled++] = args;
-      if (filled == kScatterRows) scatter();
+      if (filled == group_rows) scatter();
     }
   }
   if (!failed) scatter();

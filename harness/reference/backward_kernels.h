@@ -9,14 +9,26 @@
 // backward_row.inc, how they combine in backward_fast.cpp).
 #pragma once
 
+#include <algorithm>
 #include <cstdint>
 
 #include "fast_row.h"
 
 namespace headroom::detail {
 
-/// Rows whose dK and dV terms kv_scatter takes together.
-inline constexpr int kScatterRows = 16;
+/// Most rows whose dK and dV terms kv_scatter takes together: each group reads
+/// and writes the block's dK/dV accumulators once (6 values per key and column),
+/// so larger groups move less memory (tools/bench --backward-only 1024:128:
+/// fast/plain 4.4-5.0 with groups of 16, 3.5-4.0 with 64, on the loaded machine).
+inline constexpr int kScatterRows = 64;
+
+/// Returns: the rows per group for a block of `tk` keys: kScatterRows, fewer on
+/// long rows so the group's per-row arrays (6 values per visible key) stay
+/// within 64 MiB, at least 16. The results do not depend on it.
+inline int scatter_rows_for(std::int64_t tk) {
+  const std::int64_t fit = (std::int64_t{64} << 20) / (48 * std::max<std::int64_t>(tk, 1));
+  return static_cast<int>(std::clamp<std::int64_t>(fit, 16, kScatterRows));
+}
 
 /// One query row of a (batch, kv head) block. Row vectors are zero-padded to
 /// kLanes (dk_pad, dv_pad); key-indexed arrays are [Tk][pad] of the block.

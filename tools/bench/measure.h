@@ -5,6 +5,7 @@
 #include <sys/wait.h>
 #include <unistd.h>
 
+#include <algorithm>
 #include <chrono>
 #include <cmath>
 #include <cstdio>
@@ -76,6 +77,28 @@ Measure in_child(Job job) {
   waitpid(pid, &status, 0);
   if (got != static_cast<ssize_t>(sizeof m)) m.ok = false;
   return m;
+}
+
+/// Runs the jobs a(round) and b(round), each in its own child (in_child), in
+/// turn for `rounds` rounds (a, b, a, b, …), keeping per job the best seconds
+/// and the largest peak memory, and its round-0 Measure for the other figures.
+/// A slow phase of a shared machine then falls on both jobs, not on one: the
+/// ratio of two best-of figures taken one after the other can be off by 1.5×
+/// (tools/bench on the 2-core machine: plain backward best-of-7 0.147 to 0.225 s).
+template <class A, class B>
+void interleaved(int rounds, A a, B b, Measure& ma, Measure& mb) {
+  for (int round = 0; round < rounds; ++round) {
+    const Measure ra = in_child([&] { return a(round); });
+    const Measure rb = in_child([&] { return b(round); });
+    if (round == 0) {
+      ma = ra;
+      mb = rb;
+      continue;
+    }
+    ma.seconds = std::min(ma.seconds, ra.seconds), ma.peak_mib = std::max(ma.peak_mib, ra.peak_mib);
+    mb.seconds = std::min(mb.seconds, rb.seconds), mb.peak_mib = std::max(mb.peak_mib, rb.peak_mib);
+    ma.ok = ma.ok && ra.ok, mb.ok = mb.ok && rb.ok;
+  }
 }
 
 }  // namespace bench
