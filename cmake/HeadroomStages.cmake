@@ -47,11 +47,15 @@ function(headroom_test_pch_anchor)
   headroom_test_compile_options(headroom_test_pch)
 endfunction()
 
-# Test files are compiled at -O1 in the optimised builds: most of their compile
-# time is optimising GoogleTest's generated code, while the work they drive runs
-# in the libraries, built at the project's own level. Sanitized builds are -O1.
+# Test files are compiled at -O1 in the Release build and at -O0 in the
+# sanitized one: most of their compile time is optimising GoogleTest's
+# generated code (under ASan + UBSan, report_test takes 38.7 s at -O1 and
+# 12.8 s at -O0), while the work they drive runs in the libraries, built at
+# the project's own level.
 function(headroom_test_compile_options target)
-  if(CMAKE_BUILD_TYPE STREQUAL "Release")
+  if(HEADROOM_SANITIZE)
+    target_compile_options(${target} PRIVATE -O0)
+  elseif(CMAKE_BUILD_TYPE STREQUAL "Release")
     target_compile_options(${target} PRIVATE -O1)
   endif()
 endfunction()

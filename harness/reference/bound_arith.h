@@ -61,20 +61,21 @@ inline double gamma_up(std::int64_t n, double u) {
   return div_up(nu, std::nextafter(1.0 - nu, 0.0));
 }
 
-/// Returns: an upper bound of a sum of n nonnegative exact terms whose values
-/// (each a product or sum of doubles) were computed in round-to-nearest double
-/// as `computed` with at most `ops` operations on any path. Each operation
-/// errs by a factor (1+δ), |δ| ≤ 2^-53, in the normal range, or by at most
-/// 2^-1075 absolutely in the subnormal range (IEEE 754-2019 §4.3.1, §7.5), so
-/// exact ≤ (computed + ops·2^-1074)·(1 + γ_ops).
-/// NonnegSumUp(ops) holds the two constants for a fixed `ops`, for loops over many
-/// sums: NonnegSumUp(ops)(computed) is nonneg_sum_up(computed, ops), bit for bit.
+/// nonneg_sum_up (below) with its two constants computed once for a fixed `ops`, for
+/// loops over many sums: NonnegSumUp(ops)(computed) is nonneg_sum_up(computed, ops), bit for bit.
 struct NonnegSumUp {
   double slack, factor;
   explicit NonnegSumUp(std::int64_t ops)
       : slack(mul_up(static_cast<double>(ops), 0x1p-1074)), factor(add_up(1.0, gamma_up(ops, 0x1p-53))) {}
   double operator()(double computed) const { return mul_up(add_up(computed, slack), factor); }
 };
+
+/// Returns: an upper bound of a sum of n nonnegative exact terms whose values
+/// (each a product or sum of doubles) were computed in round-to-nearest double
+/// as `computed` with at most `ops` operations on any path. Each operation
+/// errs by a factor (1+δ), |δ| ≤ 2^-53, in the normal range, or by at most
+/// 2^-1075 absolutely in the subnormal range (IEEE 754-2019 §4.3.1, §7.5), so
+/// exact ≤ (computed + ops·2^-1074)·(1 + γ_ops).
 inline double nonneg_sum_up(double computed, std::int64_t ops) { return NonnegSumUp(ops)(computed); }
 
 /// Returns: an upper bound of sqrt(Σ x_c²) for n values `stride` apart.

@@ -8,10 +8,10 @@
 //   fast    reference_backward with the default method (double-double fast
 //           path, escalating to MPFR per element where a bound misses 2^-80)
 // in turn for --reps rounds (measure.h, interleaved: a slow phase of a shared
-// machine falls on both), and prints the worst bound / magnitude of the reference, the elements it
-// escalated, and the worst |plain − reference| / magnitude (a float64
-// backward errs by some 1e-16 to 1e-14 of the magnitude: a larger figure
-// means one of the two is wrong).
+// machine falls on both), and prints the worst bound / magnitude of the
+// reference, the elements it escalated, and the worst |plain − reference| /
+// magnitude (a float64 backward errs by some 1e-16 to 1e-14 of the magnitude:
+// a larger figure means one of the two is wrong).
 #include <algorithm>
 #include <cmath>
 #include <cstdio>
