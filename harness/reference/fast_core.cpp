@@ -263,12 +263,6 @@ bool FastCore::grid_too_coarse(const RowScratch& rs, const FastRowOut& o, std::i
   return false;
 }
 
-void FastCore::run_row(std::int64_t row, RowScratch& rs, FastRowOut& o) const {
-  FastRowArgs a;
-  prepare_row(row, rs, a, o);
-  kernels_->group(&a, &o, 1);
-}
-
 void FastCore::run_row_weights(std::int64_t row, RowScratch& rs, FastRowOut& o) const {
   FastRowArgs a;
   prepare_row(row, rs, a, o);

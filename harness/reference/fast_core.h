@@ -58,13 +58,11 @@ class FastCore {
   bool run_group(std::int64_t group, CoreReference& ref, Scratch& sc, RowRecompute& mp, ReferenceStats& stats) const;
 
   /// Runs the kernel on row `row` (= (b·Hq + h)·Tq + i) alone, its visible
-  /// keys already in rs.keys and rs.bias (visible_keys, at least one).
-  /// Afterwards rs.w_hi[idx] + rs.w_lo[idx] is the weight ŵ of key
-  /// rs.keys[idx] (0 for a negligible key) and `o` holds Ŝ and the
-  /// uncertainties; o.ok false means the row could not be finished.
-  void run_row(std::int64_t row, RowScratch& rs, FastRowOut& o) const;
-  /// run_row up to the weights only (FastRowArgs::weights_only): the same
-  /// weights, Ŝ, r_max and negligible count, bit for bit; no outputs or lse.
+  /// keys already in rs.keys and rs.bias (visible_keys, at least one), up to
+  /// the weights (FastRowArgs::weights_only): afterwards rs.w_hi[idx] +
+  /// rs.w_lo[idx] is the weight ŵ of key rs.keys[idx] (0 for a negligible key)
+  /// and `o` holds Ŝ and the uncertainties (no outputs or lse); o.ok false
+  /// means the weights could not be finished.
   void run_row_weights(std::int64_t row, RowScratch& rs, FastRowOut& o) const;
 
   /// The certified uncertainties of a finished row's weights, (a)–(c) of fast_core.cpp.

@@ -10,6 +10,7 @@
 #include <cmath>
 #include <cstdio>
 #include <ctime>
+#include <utility>
 
 namespace bench {
 
@@ -95,9 +96,11 @@ void interleaved(int rounds, A a, B b, Measure& ma, Measure& mb) {
       mb = rb;
       continue;
     }
-    ma.seconds = std::min(ma.seconds, ra.seconds), ma.peak_mib = std::max(ma.peak_mib, ra.peak_mib);
-    mb.seconds = std::min(mb.seconds, rb.seconds), mb.peak_mib = std::max(mb.peak_mib, rb.peak_mib);
-    ma.ok = ma.ok && ra.ok, mb.ok = mb.ok && rb.ok;
+    for (auto [m, r] : {std::pair<Measure*, const Measure*>{&ma, &ra}, {&mb, &rb}}) {
+      m->seconds = std::min(m->seconds, r->seconds);
+      m->peak_mib = std::max(m->peak_mib, r->peak_mib);
+      m->ok = m->ok && r->ok;
+    }
   }
 }
 
